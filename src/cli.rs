@@ -1,0 +1,246 @@
+//! The command line: parse → call the library → exit code. Progress and errors go to stderr.
+
+use anyhow::{Context, Result, bail};
+use clap::{Parser, Subcommand};
+use ductline::cochlea::Greenwood;
+use ductline::progress::Progress;
+use ductline::stack::{self, LoadOptions, VoxelSize};
+use ductline::{export, landmarks, phantom, pipeline, project};
+use std::io::IsTerminal;
+use std::path::{Path, PathBuf};
+
+#[derive(Parser)]
+#[command(name = "ductline", version, about = "Cochlear duct geometry from micro-CT stacks (research use only; not a medical device)")]
+pub struct Cli {
+    #[command(subcommand)]
+    pub cmd: Option<Cmd>,
+}
+
+#[derive(Subcommand)]
+pub enum Cmd {
+    /// Open a stack, slice folder or project in the desktop app.
+    Open { path: PathBuf },
+    /// Print dimensions, sample type, voxel size and its source, value range and memory size.
+    Inspect {
+        stack: PathBuf,
+        /// Voxel size in µm: one value (isotropic) or X,Y,Z.
+        #[arg(long, value_name = "X[,Y,Z]")]
+        voxel_um: Option<String>,
+    },
+    /// Write a synthetic cochlea: phantom.tif, landmarks.csv, truth.csv, truth.json.
+    Phantom {
+        outdir: PathBuf,
+        #[arg(long, value_name = "X[,Y,Z]", default_value = "40")]
+        voxel_um: String,
+        #[arg(long, default_value_t = 2.5)]
+        turns: f64,
+        /// Noise standard deviation as a fraction of full scale.
+        #[arg(long, default_value_t = 0.02)]
+        noise: f64,
+        /// Blur sigma in voxels.
+        #[arg(long, default_value_t = 0.7)]
+        blur: f64,
+        /// Tilt of the modiolar axis: degrees about x, then about y.
+        #[arg(long, value_name = "AX,AY", default_value = "0,0")]
+        tilt_deg: String,
+        /// A mirrored (left) specimen.
+        #[arg(long)]
+        left: bool,
+        /// 8 or 16 bits per sample.
+        #[arg(long, default_value_t = 16)]
+        bits: u8,
+        /// Landmark spacing (degrees) and noise (mm).
+        #[arg(long, default_value_t = 15.0)]
+        landmark_step_deg: f64,
+        #[arg(long, default_value_t = 0.005)]
+        landmark_noise_mm: f64,
+        #[arg(long, default_value_t = 1)]
+        seed: u64,
+    },
+    /// Fit the centreline, measure every section and write the geometry table.
+    Measure {
+        /// A project file (instead of --stack and --landmarks).
+        project: Option<PathBuf>,
+        #[arg(long)]
+        stack: Option<PathBuf>,
+        #[arg(long)]
+        landmarks: Option<PathBuf>,
+        /// Output CSV table.
+        #[arg(long)]
+        out: PathBuf,
+        /// Also write the JSON table with metadata.
+        #[arg(long)]
+        json: Option<PathBuf>,
+        /// Also write scala_vestibuli.stl and scala_tympani.stl into this folder.
+        #[arg(long)]
+        stl: Option<PathBuf>,
+        /// Distance between sections along the centreline (mm).
+        #[arg(long)]
+        step_mm: Option<f64>,
+        #[arg(long, value_name = "X[,Y,Z]")]
+        voxel_um: Option<String>,
+        /// Species preset of the frequency map (human, cat, guinea-pig, chinchilla, macaque, gerbil, mouse).
+        #[arg(long)]
+        species: Option<String>,
+        /// Bin 2×2×2 while loading.
+        #[arg(long, default_value_t = 1)]
+        bin: usize,
+    },
+}
+
+fn parse_list(s: &str, what: &str) -> Result<Vec<f64>> {
+    s.split(',').map(|x| x.trim().parse::<f64>().with_context(|| format!("{what}: '{x}' is not a number"))).collect()
+}
+
+fn voxel_arg(s: &Option<String>) -> Result<Option<VoxelSize>> {
+    match s {
+        None => Ok(None),
+        Some(s) => Ok(Some(VoxelSize::from_user_um(&parse_list(s, "--voxel-um")?)?)),
+    }
+}
+
+/// Prints progress to stderr until `done` is set: a bar on a terminal, a line per 10 % otherwise.
+fn report(p: Progress, label: &'static str, done: std::sync::Arc<std::sync::atomic::AtomicBool>) -> std::thread::JoinHandle<()> {
+    std::thread::spawn(move || {
+        let tty = std::io::stderr().is_terminal();
+        let mut last = -1i32;
+        while !done.load(std::sync::atomic::Ordering::Relaxed) {
+            let f = p.fraction();
+            if tty {
+                let n = (f * 30.0) as usize;
+                eprint!("\r{label:>10} [{}{}] {:3.0}%", "#".repeat(n), " ".repeat(30 - n), f * 100.0);
+            } else if (f * 10.0) as i32 > last {
+                last = (f * 10.0) as i32;
+                eprintln!("{label}: {:.0}%", f * 100.0);
+            }
+            std::thread::sleep(std::time::Duration::from_millis(150));
+        }
+        if tty {
+            eprintln!("\r{label:>10} done{}", " ".repeat(40));
+        }
+    })
+}
+
+/// Runs `f` with a progress report on stderr.
+fn with_progress<T>(label: &'static str, f: impl FnOnce(&Progress) -> T) -> T {
+    let p = Progress::new();
+    let done = std::sync::Arc::new(std::sync::atomic::AtomicBool::new(false));
+    let h = report(p.clone(), label, done.clone());
+    let out = f(&p);
+    done.store(true, std::sync::atomic::Ordering::Relaxed);
+    let _ = h.join();
+    out
+}
+
+pub fn inspect(path: &Path, voxel: Option<String>) -> Result<()> {
+    let opts = LoadOptions { voxel: voxel_arg(&voxel)?, ..Default::default() };
+    let st = with_progress("loading", |p| stack::load_with_progress(path, &opts, p))?;
+    let (lo, hi) = st.value_range();
+    println!("file:        {}", path.display());
+    println!("dimensions:  {} × {} × {} (columns × rows × slices)", st.dims[0], st.dims[1], st.dims[2]);
+    println!("sample type: {}", st.samples.type_name());
+    match &st.voxel {
+        Some(v) => println!("voxel size:  {}", v.describe()),
+        None => println!("voxel size:  unknown (give --voxel-um)"),
+    }
+    println!("value range: {lo} … {hi}");
+    println!("memory:      {} bytes ({:.1} MB)", st.bytes(), st.bytes() as f64 / 1e6);
+    for w in &st.warnings {
+        eprintln!("warning: {w}");
+    }
+    Ok(())
+}
+
+#[allow(clippy::too_many_arguments)]
+pub fn make_phantom(outdir: &Path, voxel_um: &str, turns: f64, noise: f64, blur: f64, tilt: &str, left: bool, bits: u8, step: f64, lnoise: f64, seed: u64) -> Result<()> {
+    let v = parse_list(voxel_um, "--voxel-um")?;
+    let v = VoxelSize::from_user_um(&v)?.mm.map(|x| x * 1000.0);
+    let t = parse_list(tilt, "--tilt-deg")?;
+    if t.len() != 2 {
+        bail!("--tilt-deg needs two angles AX,AY");
+    }
+    let spec = phantom::PhantomSpec { voxel_um: v, turns, noise, blur_vox: blur, tilt_deg: [t[0], t[1]], left, bits, landmark_step_deg: step, landmark_noise_mm: lnoise, seed, ..Default::default() };
+    let ph = with_progress("phantom", |p| phantom::generate(&spec, p))?;
+    phantom::write(&ph, outdir)?;
+    eprintln!(
+        "wrote {} ({} × {} × {} voxels), landmarks.csv, truth.csv, truth.json; length {:.3} mm over {:.0}°",
+        outdir.join("phantom.tif").display(),
+        ph.stack.dims[0],
+        ph.stack.dims[1],
+        ph.stack.dims[2],
+        ph.length_mm,
+        spec.theta_max().to_degrees()
+    );
+    Ok(())
+}
+
+pub struct MeasureArgs {
+    pub project: Option<PathBuf>,
+    pub stack: Option<PathBuf>,
+    pub landmarks: Option<PathBuf>,
+    pub out: PathBuf,
+    pub json: Option<PathBuf>,
+    pub stl: Option<PathBuf>,
+    pub step_mm: Option<f64>,
+    pub voxel_um: Option<String>,
+    pub species: Option<String>,
+    pub bin: usize,
+}
+
+pub fn measure(a: MeasureArgs) -> Result<()> {
+    let (stack_path, mut prj) = match (&a.project, &a.stack, &a.landmarks) {
+        (Some(p), None, None) => {
+            let prj = project::Project::load(p)?;
+            if let Some(w) = prj.stack_changed(p) {
+                eprintln!("warning: {w}");
+            }
+            (prj.stack_path(p), prj)
+        }
+        (None, Some(s), Some(l)) => {
+            let mut prj = project::Project::new(s, &a.out)?;
+            prj.landmarks = landmarks::read_csv(l, None)?;
+            (s.clone(), prj)
+        }
+        _ => bail!("measure needs either a PROJECT file or both --stack and --landmarks"),
+    };
+    if let Some(s) = a.step_mm {
+        prj.measure.step_mm = s;
+    }
+    if let Some(sp) = &a.species {
+        prj.species = sp.clone();
+    }
+    let gw = Greenwood::preset(&prj.species)?;
+    let voxel = match voxel_arg(&a.voxel_um)? {
+        Some(v) => Some(v),
+        None => prj.voxel_um.map(|um| VoxelSize::from_user_um(&um)).transpose()?,
+    };
+    let opts = LoadOptions { voxel, bin: a.bin, ..Default::default() };
+    let st = with_progress("loading", |p| stack::load_with_progress(&stack_path, &opts, p))?;
+    for w in &st.warnings {
+        eprintln!("warning: {w}");
+    }
+    st.voxel()?;
+    // the landmarks must lie inside the stack
+    let lm_text = landmarks::to_csv(&prj.landmarks);
+    let src = a.landmarks.clone().or(a.project.clone()).unwrap_or_default();
+    landmarks::parse_csv(&lm_text, &src, Some(&st))?;
+    let out = with_progress("measuring", |p| pipeline::run(&st, &prj.landmarks, &prj.fit, &prj.measure, &prj.overrides, &gw, p))
+        .map_err(|e| anyhow::anyhow!("{}: {e}", src.display()))?;
+    project::write_atomic(&a.out, export::table_csv(&out.rows).as_bytes())?;
+    if let Some(j) = &a.json {
+        let vox = st.voxel()?;
+        let bytes = std::fs::metadata(&stack_path).map(|m| m.len()).unwrap_or(0);
+        let prov = export::Provenance { stack_path: &stack_path, stack_bytes: bytes, voxel: vox, fit: &prj.fit, measure: &prj.measure };
+        let text = serde_json::to_string_pretty(&export::table_json(&out, &prov))?;
+        project::write_atomic(j, text.as_bytes())?;
+    }
+    if let Some(dir) = &a.stl {
+        export::write_stl(&out, dir)?;
+    }
+    for (i, t, r) in out.centreline.flagged() {
+        eprintln!("warning: landmark #{} ({}) at {:.0}° lies {:.3} mm from the fitted curve", i + 1, prj.landmarks[i].kind.as_str(), t.to_degrees(), r);
+    }
+    eprintln!("{}", out.summary());
+    eprintln!("wrote {}", a.out.display());
+    Ok(())
+}

@@ -1,0 +1,217 @@
+//! The geometry table (CSV and JSON) and the lumen surfaces (binary STL).
+
+use crate::frame::{v3, v3::V};
+use crate::measure::Row;
+use crate::pipeline::Outcome;
+use crate::section::SectionGeom;
+use crate::{Error, Result};
+use serde_json::json;
+use std::path::Path;
+
+/// Table columns in order (DESIGN.md), units in the names.
+pub const COLUMNS: [&str; 14] = [
+    "s_mm", "angle_deg", "x_mm", "y_mm", "z_mm", "radius_mm", "height_mm", "curvature_radius_mm", "cf_hz", "sv_area_mm2", "st_area_mm2", "partition_width_mm", "wall_mm", "flags",
+];
+
+fn num(x: Option<f64>, digits: usize) -> String {
+    match x {
+        Some(v) if v.is_finite() => format!("{v:.digits$}"),
+        _ => String::new(),
+    }
+}
+
+/// CSV text of the table: a header line, one row per position; blank cells where a value is not
+/// sound (the flags say why).
+pub fn table_csv(rows: &[Row]) -> String {
+    let mut s = COLUMNS.join(",");
+    s.push('\n');
+    for r in rows {
+        let cells = [
+            num(Some(r.s_mm), 4),
+            num(Some(r.angle_deg), 3),
+            num(Some(r.point[0]), 5),
+            num(Some(r.point[1]), 5),
+            num(Some(r.point[2]), 5),
+            num(Some(r.radius_mm), 5),
+            num(Some(r.height_mm), 5),
+            num(Some(r.curvature_radius_mm), 4),
+            num(Some(r.cf_hz), 1),
+            num(r.sv.area, 6),
+            num(r.st.area, 6),
+            num(r.partition_width_mm, 5),
+            num(r.wall_mm, 5),
+            r.flag_words(),
+        ];
+        s.push_str(&cells.join(","));
+        s.push('\n');
+    }
+    s
+}
+
+/// Facts about the input recorded in the JSON metadata.
+pub struct Provenance<'a> {
+    pub stack_path: &'a Path,
+    pub stack_bytes: u64,
+    pub voxel: &'a crate::stack::VoxelSize,
+    pub fit: &'a crate::centreline::FitSettings,
+    pub measure: &'a crate::measure::MeasureSettings,
+}
+
+/// The JSON export: metadata block plus the same rows as the CSV (null where blank).
+pub fn table_json(out: &Outcome, prov: &Provenance) -> serde_json::Value {
+    let cl = &out.centreline;
+    let f = &cl.frame;
+    let opt = |x: Option<f64>| x.filter(|v| v.is_finite());
+    let rows: Vec<serde_json::Value> = out
+        .rows
+        .iter()
+        .map(|r| {
+            json!({
+                "s_mm": r.s_mm, "angle_deg": r.angle_deg, "x_mm": r.point[0], "y_mm": r.point[1], "z_mm": r.point[2],
+                "radius_mm": r.radius_mm, "height_mm": r.height_mm, "curvature_radius_mm": opt(Some(r.curvature_radius_mm)),
+                "cf_hz": r.cf_hz, "sv_area_mm2": opt(r.sv.area), "st_area_mm2": opt(r.st.area),
+                "partition_width_mm": opt(r.partition_width_mm), "wall_mm": opt(r.wall_mm), "flags": r.flag_words(),
+            })
+        })
+        .collect();
+    let units: serde_json::Map<String, serde_json::Value> = COLUMNS
+        .iter()
+        .map(|c| {
+            let u = match *c {
+                "angle_deg" => "degree",
+                "sv_area_mm2" | "st_area_mm2" => "mm^2",
+                "cf_hz" => "Hz",
+                "flags" => "words separated by ';' (empty = sound)",
+                _ => "mm",
+            };
+            (c.to_string(), json!(u))
+        })
+        .collect();
+    json!({
+        "metadata": {
+            "tool": "ductline",
+            "version": crate::VERSION,
+            "caution": crate::CAUTION,
+            "stack": { "file": prov.stack_path.file_name().map(|n| n.to_string_lossy().to_string()), "bytes": prov.stack_bytes },
+            "voxel_mm": prov.voxel.mm,
+            "voxel_source": prov.voxel.source.iter().map(|s| s.label()).collect::<Vec<_>>(),
+            "frame": { "origin_mm": f.origin, "axis": f.ez, "zero_direction": f.ex, "handedness": format!("{:?}", f.handed).to_lowercase(),
+                       "convention": "height along the modiolar axis toward the apex; angle 0 toward the round window, growing toward the apex" },
+            "species": out.greenwood.species,
+            "frequency_map": { "form": "F = A (10^(a x) - k), x = 1 - s/length (Greenwood 1990)", "A_hz": out.greenwood.big_a, "a": out.greenwood.a, "k": out.greenwood.k },
+            "smoothing": { "lambda_lamina_radius": cl.lamina.r.lambda, "lambda_lamina_height": cl.lamina.z.lambda,
+                           "lambda_ligament_radius": cl.ligament.r.lambda, "lambda_ligament_height": cl.ligament.z.lambda,
+                           "chosen_by": if prov.fit.smoothing.is_some() { "user" } else { "generalized cross-validation" } },
+            "step_mm": prov.measure.step_mm,
+            "length_mm": cl.length,
+            "angular_depth_deg": cl.depth_deg(),
+            "turns": cl.depth_deg() / 360.0,
+            "length_estimates": out.estimates,
+            "columns": COLUMNS,
+            "units": units,
+            "materials": {
+                "note": "common-practice defaults, not measured; edit for your specimen",
+                "fluid_density_kg_m3": 1000.0, "fluid_viscosity_pa_s": 0.00085,
+                "soft_tissue_density_kg_m3": 1000.0, "bone_density_kg_m3": 2000.0,
+            },
+        },
+        "rows": rows,
+    })
+}
+
+/// A closed triangle mesh in stack mm.
+#[derive(Clone, Debug, Default)]
+pub struct Mesh {
+    pub vertices: Vec<V>,
+    pub triangles: Vec<[u32; 3]>,
+}
+
+impl Mesh {
+    /// Enclosed volume (mm³) by the divergence theorem; positive when normals point outward.
+    pub fn volume(&self) -> f64 {
+        self.triangles.iter().map(|t| v3::dot(self.vertices[t[0] as usize], v3::cross(self.vertices[t[1] as usize], self.vertices[t[2] as usize])) / 6.0).sum()
+    }
+}
+
+/// Lofts one scala's star outlines (same point count per section) into a closed tube with flat
+/// fan caps at both ends. Sections without an outline are skipped; returns None with fewer than 2.
+pub fn loft(geoms: &[SectionGeom], rows: &[Row], scala_vestibuli: bool) -> Option<Mesh> {
+    let rings: Vec<Vec<V>> = geoms
+        .iter()
+        .zip(rows)
+        .filter_map(|(g, r)| {
+            let sc = if scala_vestibuli { &r.sv } else { &r.st };
+            (sc.area.is_some() && !sc.outline.is_empty()).then(|| sc.outline.iter().map(|q| g.from_plane(*q)).collect())
+        })
+        .collect();
+    if rings.len() < 2 {
+        return None;
+    }
+    let k = rings[0].len();
+    let mut m = Mesh::default();
+    for ring in &rings {
+        m.vertices.extend_from_slice(ring);
+    }
+    for i in 0..rings.len() - 1 {
+        for j in 0..k {
+            let a = (i * k + j) as u32;
+            let b = (i * k + (j + 1) % k) as u32;
+            let c = a + k as u32;
+            let d = b + k as u32;
+            m.triangles.push([a, b, d]);
+            m.triangles.push([a, d, c]);
+        }
+    }
+    for (ri, flip) in [(0usize, true), (rings.len() - 1, false)] {
+        let centre = v3::scale(rings[ri].iter().fold([0.0; 3], |acc, p| v3::add(acc, *p)), 1.0 / k as f64);
+        let ci = m.vertices.len() as u32;
+        m.vertices.push(centre);
+        for j in 0..k {
+            let a = (ri * k + j) as u32;
+            let b = (ri * k + (j + 1) % k) as u32;
+            m.triangles.push(if flip { [ci, b, a] } else { [ci, a, b] });
+        }
+    }
+    if m.volume() < 0.0 {
+        for t in &mut m.triangles {
+            t.swap(1, 2);
+        }
+    }
+    Some(m)
+}
+
+/// Binary STL bytes of a mesh (normals from the triangle winding).
+pub fn stl_bytes(m: &Mesh, name: &str) -> Vec<u8> {
+    let mut out = Vec::with_capacity(84 + 50 * m.triangles.len());
+    let mut header = [0u8; 80];
+    let h = format!("ductline {name} (stack mm)");
+    header[..h.len().min(80)].copy_from_slice(&h.as_bytes()[..h.len().min(80)]);
+    out.extend_from_slice(&header);
+    out.extend_from_slice(&(m.triangles.len() as u32).to_le_bytes());
+    for t in &m.triangles {
+        let [a, b, c] = t.map(|i| m.vertices[i as usize]);
+        let n = v3::unit(v3::cross(v3::sub(b, a), v3::sub(c, a)));
+        for v in [n, a, b, c] {
+            for x in v {
+                out.extend_from_slice(&(x as f32).to_le_bytes());
+            }
+        }
+        out.extend_from_slice(&[0, 0]);
+    }
+    out
+}
+
+/// Writes scala_vestibuli.stl and scala_tympani.stl into `dir`; returns the files written.
+pub fn write_stl(out: &Outcome, dir: &Path) -> Result<Vec<std::path::PathBuf>> {
+    std::fs::create_dir_all(dir).map_err(|e| Error::io(dir, e))?;
+    let mut written = vec![];
+    for (sv, name) in [(true, "scala_vestibuli"), (false, "scala_tympani")] {
+        let Some(mesh) = loft(&out.geoms, &out.rows, sv) else {
+            return Err(Error::invalid(format!("{name}: fewer than two measured sections, no surface to write")));
+        };
+        let path = dir.join(format!("{name}.stl"));
+        crate::project::write_atomic(&path, &stl_bytes(&mesh, name))?;
+        written.push(path);
+    }
+    Ok(written)
+}

@@ -1,0 +1,224 @@
+//! Landmarks: the five kinds, the CSV file (`kind,x_mm,y_mm,z_mm`, stack-frame mm) and edits with
+//! undo/redo.
+
+use crate::frame::{self, Frame, Handedness};
+use crate::stack::Stack;
+use crate::{Error, Result};
+use serde::{Deserialize, Serialize};
+use std::path::Path;
+
+/// The landmark kinds; `as_str` gives the file and UI word.
+#[derive(Clone, Copy, Debug, PartialEq, Eq, Hash, Serialize, Deserialize)]
+#[serde(rename_all = "snake_case")]
+pub enum Kind {
+    /// A point on the modiolar axis near the base.
+    AxisBase,
+    /// A point on the modiolar axis near the apex.
+    AxisApex,
+    /// Round-window centre: the 0° direction.
+    Window,
+    /// Inner edge of the partition (tip of the bony spiral shelf).
+    Lamina,
+    /// Outer edge of the partition, where it meets the lateral wall.
+    Ligament,
+}
+
+impl Kind {
+    pub const ALL: [Kind; 5] = [Kind::AxisBase, Kind::AxisApex, Kind::Window, Kind::Lamina, Kind::Ligament];
+    pub fn as_str(self) -> &'static str {
+        match self {
+            Kind::AxisBase => "axis_base",
+            Kind::AxisApex => "axis_apex",
+            Kind::Window => "window",
+            Kind::Lamina => "lamina",
+            Kind::Ligament => "ligament",
+        }
+    }
+    pub fn parse(s: &str) -> Option<Kind> {
+        Kind::ALL.into_iter().find(|k| k.as_str() == s)
+    }
+}
+
+/// One landmark in stack-frame mm.
+#[derive(Clone, Copy, Debug, PartialEq, Serialize, Deserialize)]
+pub struct Landmark {
+    pub kind: Kind,
+    pub p: [f64; 3],
+}
+
+/// Parses landmark CSV text. `path` names the file in errors; a stack, when given, bounds the points.
+pub fn parse_csv(text: &str, path: &Path, stack: Option<&Stack>) -> Result<Vec<Landmark>> {
+    let mut lines = text.lines().enumerate().filter(|(_, l)| !l.trim().is_empty());
+    let (_, header) = lines.next().ok_or_else(|| Error::format(path, "empty landmark file"))?;
+    let cols: Vec<String> = header.split(',').map(|c| c.trim().trim_start_matches('\u{feff}').to_string()).collect();
+    let want = ["kind", "x_mm", "y_mm", "z_mm"];
+    let idx: Vec<usize> = want
+        .iter()
+        .map(|w| cols.iter().position(|c| c == w).ok_or_else(|| Error::line(path, 1, format!("missing column '{w}'; the header must be kind,x_mm,y_mm,z_mm"))))
+        .collect::<Result<_>>()?;
+    let mut out = vec![];
+    for (i, line) in lines {
+        let n = i + 1;
+        let f: Vec<&str> = line.split(',').map(|c| c.trim()).collect();
+        if f.len() < cols.len() {
+            return Err(Error::line(path, n, format!("{} fields, the header has {}", f.len(), cols.len())));
+        }
+        let kind = Kind::parse(f[idx[0]]).ok_or_else(|| {
+            Error::line(path, n, format!("unknown kind '{}'; kinds are axis_base, axis_apex, window, lamina, ligament", f[idx[0]]))
+        })?;
+        let mut p = [0.0; 3];
+        for a in 0..3 {
+            let s = f[idx[a + 1]];
+            p[a] = s.parse::<f64>().ok().filter(|x| x.is_finite()).ok_or_else(|| Error::line(path, n, format!("'{s}' in column {} is not a number", want[a + 1])))?;
+        }
+        if let Some(st) = stack {
+            if st.voxel.is_some() && !st.contains_mm(p) {
+                return Err(Error::line(path, n, format!("point ({:.3}, {:.3}, {:.3}) mm lies outside the stack", p[0], p[1], p[2])));
+            }
+        }
+        out.push(Landmark { kind, p });
+    }
+    Ok(out)
+}
+
+/// Reads a landmark CSV file.
+pub fn read_csv(path: &Path, stack: Option<&Stack>) -> Result<Vec<Landmark>> {
+    let bytes = std::fs::read(path).map_err(|e| Error::io(path, e))?;
+    let text = String::from_utf8(bytes).map_err(|_| Error::format(path, "not UTF-8 text"))?;
+    parse_csv(&text, path, stack)
+}
+
+/// CSV text of landmarks (full f64 precision, round-trips exactly).
+pub fn to_csv(items: &[Landmark]) -> String {
+    let mut s = String::from("kind,x_mm,y_mm,z_mm\n");
+    for l in items {
+        s.push_str(&format!("{},{},{},{}\n", l.kind.as_str(), l.p[0], l.p[1], l.p[2]));
+    }
+    s
+}
+
+/// Writes landmarks atomically.
+pub fn write_csv(path: &Path, items: &[Landmark]) -> Result<()> {
+    crate::project::write_atomic(path, to_csv(items).as_bytes())
+}
+
+/// The single landmark of a kind; errors when there is none or more than one.
+pub fn single(items: &[Landmark], kind: Kind) -> Result<[f64; 3]> {
+    let found: Vec<&Landmark> = items.iter().filter(|l| l.kind == kind).collect();
+    match found.len() {
+        1 => Ok(found[0].p),
+        0 => Err(Error::invalid(format!("no {} landmark: the cochlear frame needs one", kind.as_str()))),
+        n => Err(Error::invalid(format!("{n} {} landmarks: keep exactly one", kind.as_str()))),
+    }
+}
+
+/// The cochlear frame from the axis and window landmarks, with the handedness detected from the
+/// partition landmarks.
+pub fn frame_from(items: &[Landmark]) -> Result<Frame> {
+    let (b, a, w) = (single(items, Kind::AxisBase)?, single(items, Kind::AxisApex)?, single(items, Kind::Window)?);
+    let right = Frame::new(b, a, w, Handedness::Right)?;
+    let edge: Vec<[f64; 3]> = items.iter().filter(|l| matches!(l.kind, Kind::Lamina | Kind::Ligament)).map(|l| l.p).collect();
+    let handed = frame::detect_handedness(&right, &edge);
+    Frame::new(b, a, w, handed)
+}
+
+/// One reversible change to a landmark list.
+#[derive(Clone, Debug, PartialEq, Serialize, Deserialize)]
+pub enum Edit {
+    Insert { index: usize, lm: Landmark },
+    Delete { index: usize },
+    Move { index: usize, to: [f64; 3] },
+    SetKind { index: usize, kind: Kind },
+}
+
+/// A landmark list with an undo/redo history: every change goes through [`LandmarkSet::apply`].
+#[derive(Clone, Debug, Default, Serialize, Deserialize)]
+pub struct LandmarkSet {
+    pub items: Vec<Landmark>,
+    #[serde(skip)]
+    undo: Vec<Edit>,
+    #[serde(skip)]
+    redo: Vec<Edit>,
+}
+
+impl LandmarkSet {
+    pub fn new(items: Vec<Landmark>) -> Self {
+        LandmarkSet { items, undo: vec![], redo: vec![] }
+    }
+
+    /// Applies an edit, records its inverse for undo and clears redo. Errors on a bad index.
+    pub fn apply(&mut self, e: Edit) -> Result<()> {
+        let inv = self.raw(e)?;
+        self.undo.push(inv);
+        self.redo.clear();
+        Ok(())
+    }
+
+    /// Adds a landmark at the end.
+    pub fn add(&mut self, lm: Landmark) {
+        let index = self.items.len();
+        let _ = self.apply(Edit::Insert { index, lm });
+    }
+
+    pub fn undo(&mut self) -> bool {
+        let Some(e) = self.undo.pop() else { return false };
+        match self.raw(e) {
+            Ok(inv) => {
+                self.redo.push(inv);
+                true
+            }
+            Err(_) => false,
+        }
+    }
+
+    pub fn redo(&mut self) -> bool {
+        let Some(e) = self.redo.pop() else { return false };
+        match self.raw(e) {
+            Ok(inv) => {
+                self.undo.push(inv);
+                true
+            }
+            Err(_) => false,
+        }
+    }
+
+    pub fn can_undo(&self) -> bool {
+        !self.undo.is_empty()
+    }
+    pub fn can_redo(&self) -> bool {
+        !self.redo.is_empty()
+    }
+
+    /// Applies without touching the history; returns the inverse edit.
+    fn raw(&mut self, e: Edit) -> Result<Edit> {
+        let bad = |i: usize| Error::invalid(format!("no landmark #{i}"));
+        Ok(match e {
+            Edit::Insert { index, lm } => {
+                if index > self.items.len() {
+                    return Err(bad(index));
+                }
+                self.items.insert(index, lm);
+                Edit::Delete { index }
+            }
+            Edit::Delete { index } => {
+                if index >= self.items.len() {
+                    return Err(bad(index));
+                }
+                let lm = self.items.remove(index);
+                Edit::Insert { index, lm }
+            }
+            Edit::Move { index, to } => {
+                let l = self.items.get_mut(index).ok_or_else(|| bad(index))?;
+                let from = l.p;
+                l.p = to;
+                Edit::Move { index, to: from }
+            }
+            Edit::SetKind { index, kind } => {
+                let l = self.items.get_mut(index).ok_or_else(|| bad(index))?;
+                let old = l.kind;
+                l.kind = kind;
+                Edit::SetKind { index, kind: old }
+            }
+        })
+    }
+}

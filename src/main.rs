@@ -1,0 +1,31 @@
+//! `ductline`: the desktop app (no arguments, or `open PATH`) and the batch command line.
+
+mod app;
+mod cli;
+
+use clap::Parser;
+use cli::{Cli, Cmd};
+use std::process::ExitCode;
+
+fn main() -> ExitCode {
+    let args = Cli::parse();
+    let res = match args.cmd {
+        None => app::run(None),
+        Some(Cmd::Open { path }) => app::run(Some(path)),
+        Some(Cmd::Inspect { stack, voxel_um }) => cli::inspect(&stack, voxel_um),
+        Some(Cmd::Phantom { outdir, voxel_um, turns, noise, blur, tilt_deg, left, bits, landmark_step_deg, landmark_noise_mm, seed }) => {
+            cli::make_phantom(&outdir, &voxel_um, turns, noise, blur, &tilt_deg, left, bits, landmark_step_deg, landmark_noise_mm, seed)
+        }
+        Some(Cmd::Measure { project, stack, landmarks, out, json, stl, step_mm, voxel_um, species, bin }) => {
+            cli::measure(cli::MeasureArgs { project, stack, landmarks, out, json, stl, step_mm, voxel_um, species, bin })
+        }
+    };
+    match res {
+        Ok(()) => ExitCode::SUCCESS,
+        Err(e) => {
+            let msg = format!("{e:#}").replace('\n', " ");
+            eprintln!("error: {msg}");
+            ExitCode::FAILURE
+        }
+    }
+}

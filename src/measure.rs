@@ -1,0 +1,639 @@
+//! Per-section measures: scala areas from partial-volume fractions, partition width, lateral wall
+//! thickness, and flags whenever a value cannot be trusted.
+//!
+//! Method, per section (all lengths mm):
+//! 1. Resample the stack on a square grid normal to the centreline at pitch ≤ half the smallest
+//!    voxel side; the grid grows until both scalae lie inside it or the capture limit is reached.
+//! 2. Levels: Otsu's threshold splits dark (fluid) from bright (bone); the fluid and bone levels
+//!    are the medians of each class's interior pixels (at least one voxel from the other class),
+//!    so blurred edges do not pull them; the segmentation threshold is their midpoint.
+//! 3. The partition line through the lamina and ligament points splits the lumen. Each scala is
+//!    grown (4-connected) from a seed on its side over pixels below the threshold.
+//! 4. Area = Σ fᵢ·pitch² with the fluid fraction fᵢ = (bone − vᵢ)/(bone − fluid), summed over the
+//!    grown region and the edge band around it (pixels within two voxels that are nearer to this
+//!    region than to any other dark region on the same side). A blur spreads each edge over the
+//!    band but keeps the sum; the fractions are not clipped, so noise averages out instead of
+//!    biasing the sum.
+//! 5. Wall: along the partition direction from the partition midpoint outward, the distance
+//!    between the upward (lumen → bone) and downward (bone → outside) threshold crossings.
+
+use crate::centreline::Centreline;
+use crate::cochlea::Greenwood;
+use crate::frame::v3::V;
+use crate::progress::Progress;
+use crate::section::{self, SectionGeom};
+use crate::stack::Stack;
+use crate::with_samples;
+use crate::{Error, Result};
+use rayon::prelude::*;
+use serde::{Deserialize, Serialize};
+
+/// Measure settings.
+#[derive(Clone, Debug, PartialEq, Serialize, Deserialize)]
+pub struct MeasureSettings {
+    /// Distance between output positions along the centreline (mm).
+    pub step_mm: f64,
+    /// Resampling pitch (mm); None = half the smallest voxel side. Larger values are capped there.
+    pub pitch_mm: Option<f64>,
+    /// Largest half-size of a section (mm): a scala reaching it is flagged `open`.
+    pub capture_mm: f64,
+    /// Fluid and bone grey levels for all sections; None = found per section.
+    pub levels: Option<[f32; 2]>,
+    /// Sections within this many degrees of a flagged landmark are flagged `outlier`.
+    pub outlier_window_deg: f64,
+}
+
+impl Default for MeasureSettings {
+    fn default() -> Self {
+        MeasureSettings { step_mm: 0.1, pitch_mm: None, capture_mm: 3.0, levels: None, outlier_window_deg: 15.0 }
+    }
+}
+
+/// What the user set for one section (kept in the project file).
+#[derive(Clone, Debug, Default, PartialEq, Serialize, Deserialize)]
+pub struct Override {
+    /// Arc length of the section it belongs to (mm); matched to the nearest section.
+    pub s_mm: f64,
+    /// Fluid and bone levels for this section.
+    pub levels: Option<[f32; 2]>,
+    /// Seeds in section coordinates (u along the partition, v toward the apex; mm from the centre).
+    pub seed_sv: Option<[f64; 2]>,
+    pub seed_st: Option<[f64; 2]>,
+    /// Leave this section out: its values are blank and flagged `excluded`.
+    pub exclude: bool,
+}
+
+/// Why a value is not sound.
+#[derive(Clone, Copy, Debug, PartialEq, Eq, Serialize, Deserialize)]
+#[serde(rename_all = "snake_case")]
+pub enum Flag {
+    /// A scala reaches the section border, the capture limit or the edge of the stack.
+    Open,
+    /// The section lies beyond the landmarks of an edge.
+    Extrapolated,
+    /// A flagged landmark lies near this section.
+    Outlier,
+    /// No dark pixel found to start a scala from.
+    NoSeed,
+    /// Fluid and bone levels too close to separate.
+    LowContrast,
+    /// Left out by the user.
+    Excluded,
+    /// The wall's outer edge was not found.
+    NoWall,
+}
+
+impl Flag {
+    pub fn word(self) -> &'static str {
+        match self {
+            Flag::Open => "open",
+            Flag::Extrapolated => "extrapolated",
+            Flag::Outlier => "outlier",
+            Flag::NoSeed => "no_seed",
+            Flag::LowContrast => "low_contrast",
+            Flag::Excluded => "excluded",
+            Flag::NoWall => "no_wall",
+        }
+    }
+}
+
+/// One scala found in a section.
+#[derive(Clone, Debug, Default, Serialize, Deserialize)]
+pub struct Scala {
+    /// mm²; None when it cannot be trusted (see the row's flags).
+    pub area: Option<f64>,
+    /// Closed outline at the half-fluid level, section coordinates (mm), star-sampled from the centroid.
+    pub outline: Vec<[f64; 2]>,
+    /// Fraction-weighted centroid (section coordinates, mm).
+    pub centroid: [f64; 2],
+    pub seed: Option<[f64; 2]>,
+}
+
+/// The measures at one output position; the table row plus what the inspector draws.
+#[derive(Clone, Debug, Serialize, Deserialize)]
+pub struct Row {
+    pub s_mm: f64,
+    pub angle_deg: f64,
+    pub point: V,
+    pub radius_mm: f64,
+    pub height_mm: f64,
+    pub curvature_radius_mm: f64,
+    pub cf_hz: f64,
+    pub sv: Scala,
+    pub st: Scala,
+    pub partition_width_mm: Option<f64>,
+    pub wall_mm: Option<f64>,
+    pub flags: Vec<Flag>,
+    /// Fluid and bone levels used.
+    pub levels: [f32; 2],
+    /// Section half-size and pitch used (mm).
+    pub half_mm: f64,
+    pub pitch_mm: f64,
+    /// Partition end points in section coordinates (mm).
+    pub lamina_uv: [f64; 2],
+    pub ligament_uv: [f64; 2],
+}
+
+impl Row {
+    pub fn flag_words(&self) -> String {
+        self.flags.iter().map(|f| f.word()).collect::<Vec<_>>().join(";")
+    }
+    pub fn sound(&self) -> bool {
+        self.flags.is_empty()
+    }
+}
+
+/// Points on the star outline of each scala.
+pub const OUTLINE_POINTS: usize = 64;
+
+/// Measures every section. Parallel over sections; `progress` counts sections and can cancel.
+pub fn measure(stack: &Stack, cl: &Centreline, s: &MeasureSettings, overrides: &[Override], gw: &Greenwood, progress: &Progress) -> Result<(Vec<SectionGeom>, Vec<Row>)> {
+    let vox = stack.voxel()?;
+    if !(s.step_mm > 0.0) {
+        return Err(Error::invalid(format!("step must be positive, got {} mm", s.step_mm)));
+    }
+    let geoms = section::geometry(cl, s.step_mm);
+    progress.start(geoms.len() as u64);
+    let flagged: Vec<f64> = cl.flagged().iter().map(|f| f.1).collect();
+    let pitch = s.pitch_mm.unwrap_or(f64::INFINITY).min(0.5 * vox.min());
+    let rows = geoms
+        .par_iter()
+        .map(|g| {
+            progress.check()?;
+            let ov = overrides.iter().filter(|o| (o.s_mm - g.s).abs() <= 0.5 * s.step_mm).min_by(|a, b| (a.s_mm - g.s).abs().total_cmp(&(b.s_mm - g.s).abs()));
+            let mut row = section_row(stack, cl, g, s, pitch, vox.max(), ov, gw);
+            if cl.extrapolated(g.theta) {
+                row.flags.push(Flag::Extrapolated);
+            }
+            if flagged.iter().any(|t| (t - g.theta).abs().to_degrees() <= s.outlier_window_deg) {
+                row.flags.push(Flag::Outlier);
+            }
+            progress.add(1);
+            Ok(row)
+        })
+        .collect::<Result<Vec<Row>>>()?;
+    Ok((geoms, rows))
+}
+
+/// The partition line in section coordinates: a point on it and the unit normal toward v > 0.
+struct Line {
+    p: [f64; 2],
+    n: [f64; 2],
+}
+
+impl Line {
+    fn side(&self, q: [f64; 2]) -> f64 {
+        (q[0] - self.p[0]) * self.n[0] + (q[1] - self.p[1]) * self.n[1]
+    }
+}
+
+/// A resampled section image.
+struct Img {
+    v: Vec<f32>,
+    n: usize,
+    pitch: f64,
+    start: f64,
+}
+
+impl Img {
+    fn uv(&self, i: usize) -> [f64; 2] {
+        [self.start + (i % self.n) as f64 * self.pitch, self.start + (i / self.n) as f64 * self.pitch]
+    }
+    fn index(&self, q: [f64; 2]) -> Option<usize> {
+        let a = ((q[0] - self.start) / self.pitch).round();
+        let b = ((q[1] - self.start) / self.pitch).round();
+        if a < 0.0 || b < 0.0 || a >= self.n as f64 || b >= self.n as f64 { None } else { Some(b as usize * self.n + a as usize) }
+    }
+}
+
+#[allow(clippy::too_many_arguments)]
+fn section_row(stack: &Stack, cl: &Centreline, g: &SectionGeom, s: &MeasureSettings, pitch: f64, vmax: f64, ov: Option<&Override>, gw: &Greenwood) -> Row {
+    let (radius, height) = cl.radius_height(g.theta);
+    let lam = g.to_plane(g.lamina);
+    let lig = g.to_plane(g.ligament);
+    let mut row = Row {
+        s_mm: g.s,
+        angle_deg: g.theta.to_degrees(),
+        point: g.centre,
+        radius_mm: radius,
+        height_mm: height,
+        curvature_radius_mm: cl.curvature_radius(g.theta),
+        cf_hz: gw.cf(1.0 - g.s / cl.length),
+        sv: Scala::default(),
+        st: Scala::default(),
+        partition_width_mm: Some(g.width()),
+        wall_mm: None,
+        flags: vec![],
+        levels: [f32::NAN; 2],
+        half_mm: 0.0,
+        pitch_mm: pitch,
+        lamina_uv: lam,
+        ligament_uv: lig,
+    };
+    if ov.is_some_and(|o| o.exclude) {
+        row.partition_width_mm = None;
+        row.flags.push(Flag::Excluded);
+        return row;
+    }
+    let d = [lig[0] - lam[0], lig[1] - lam[1]];
+    let dn = d[0].hypot(d[1]).max(1e-12);
+    let mut n = [-d[1] / dn, d[0] / dn];
+    if n[1] < 0.0 {
+        n = [-n[0], -n[1]];
+    }
+    let line = Line { p: lam, n };
+    let mid = [0.5 * (lam[0] + lig[0]), 0.5 * (lam[1] + lig[1])];
+    let mut half = (0.75 * g.width()).max(10.0 * vmax).min(s.capture_mm);
+    let levels_given = ov.and_then(|o| o.levels).or(s.levels);
+    loop {
+        let img = sample_section(stack, g, half, pitch);
+        let levels = match levels_given {
+            Some(l) => Some(l),
+            None => find_levels(&img, (1.5 * vmax / pitch).ceil() as usize),
+        };
+        let Some([fluid, bone]) = levels else {
+            row.flags.push(Flag::LowContrast);
+            return row;
+        };
+        row.levels = [fluid, bone];
+        row.half_mm = half;
+        if !(bone > fluid) {
+            row.flags.push(Flag::LowContrast);
+            return row;
+        }
+        let mut thr = 0.5 * (fluid + bone);
+        let band = (2.0 * vmax / pitch).ceil() as usize;
+        let erode = (vmax / pitch).ceil() as usize;
+        // The dark class may hold other dark matter (soft tissue, air) besides fluid: take the fluid
+        // level from the interior of the scalae themselves, then segment again.
+        if levels_given.is_none() {
+            if let Some(f) = lumen_level(&img, &line, mid, thr, vmax, g.width(), erode) {
+                row.levels = [f, bone];
+                thr = 0.5 * (f + bone);
+            }
+        }
+        let [fluid, bone] = row.levels;
+        let mut grow_more = false;
+        let mut open = false;
+        let mut scalae = [Scala::default(), Scala::default()];
+        let mut missing = false;
+        for (k, side) in [1.0f64, -1.0].into_iter().enumerate() {
+            let given = ov.and_then(|o| if k == 0 { o.seed_sv } else { o.seed_st });
+            let seed = given.and_then(|q| img.index(q)).or_else(|| find_seed(&img, &line, mid, side, thr, vmax, g.width()));
+            let Some(seed) = seed else {
+                missing = true;
+                continue;
+            };
+            let r = grow(&img, seed, &line, side, thr);
+            if r.touches_border && half < s.capture_mm {
+                grow_more = true;
+                break;
+            }
+            open |= r.touches_border || r.touches_nan;
+            let (area, field, centroid) = fraction_area(&img, &r.mask, &line, side, thr, fluid, bone, band);
+            scalae[k] = Scala { area: Some(area), outline: outline(&img, &field, centroid), centroid, seed: Some(img.uv(seed)) };
+        }
+        if grow_more {
+            half = (half * 1.5).min(s.capture_mm);
+            continue;
+        }
+        if missing {
+            row.flags.push(Flag::NoSeed);
+        }
+        if open {
+            row.flags.push(Flag::Open);
+        }
+        if missing || open {
+            for sc in &mut scalae {
+                sc.area = None;
+            }
+        }
+        let [sv, st] = scalae;
+        row.sv = sv;
+        row.st = st;
+        row.wall_mm = wall(stack, g, mid, [d[0] / dn, d[1] / dn], pitch, s.capture_mm, thr);
+        if row.wall_mm.is_none() {
+            row.flags.push(Flag::NoWall);
+        }
+        return row;
+    }
+}
+
+fn sample_section(stack: &Stack, g: &SectionGeom, half: f64, pitch: f64) -> Img {
+    let grid = section::section_grid(g, half, pitch);
+    let start = -(grid.nu as f64 - 1.0) * 0.5 * pitch;
+    Img { v: section::resample(stack, &grid), n: grid.nu, pitch, start }
+}
+
+/// Otsu's threshold (Otsu 1979) over finite values: the cut maximizing between-class variance.
+pub fn otsu(values: &[f32]) -> Option<f32> {
+    let (lo, hi) = values.iter().filter(|x| x.is_finite()).fold((f32::INFINITY, f32::NEG_INFINITY), |(a, b), &x| (a.min(x), b.max(x)));
+    if !(hi > lo) {
+        return None;
+    }
+    const B: usize = 256;
+    let mut hist = [0f64; B];
+    for &x in values.iter().filter(|x| x.is_finite()) {
+        hist[(((x - lo) / (hi - lo)) * (B as f32 - 1.0)).round() as usize] += 1.0;
+    }
+    let total: f64 = hist.iter().sum();
+    let sum_all: f64 = hist.iter().enumerate().map(|(i, h)| i as f64 * h).sum();
+    let (mut w0, mut s0, mut best, mut cut) = (0.0, 0.0, -1.0, 0);
+    for (i, h) in hist.iter().enumerate().take(B - 1) {
+        w0 += h;
+        s0 += i as f64 * h;
+        let w1 = total - w0;
+        if w0 == 0.0 || w1 == 0.0 {
+            continue;
+        }
+        let (m0, m1) = (s0 / w0, (sum_all - s0) / w1);
+        let between = w0 * w1 * (m0 - m1).powi(2);
+        if between > best {
+            best = between;
+            cut = i;
+        }
+    }
+    Some(lo + (cut as f32 + 0.5) / (B as f32 - 1.0) * (hi - lo))
+}
+
+/// Fluid and bone levels: medians of the interior pixels of Otsu's two classes (pixels whose
+/// square neighbourhood of radius `r` lies wholly in their class).
+fn find_levels(img: &Img, r: usize) -> Option<[f32; 2]> {
+    let t = otsu(&img.v)?;
+    let n = img.n as isize;
+    let (mut dark, mut bright) = (vec![], vec![]);
+    let r = r as isize;
+    for b in r..n - r {
+        for a in r..n - r {
+            let x = img.v[(b * n + a) as usize];
+            if !x.is_finite() {
+                continue;
+            }
+            let cls = x < t;
+            let mut same = true;
+            'w: for db in -r..=r {
+                for da in -r..=r {
+                    let y = img.v[((b + db) * n + a + da) as usize];
+                    if !y.is_finite() || (y < t) != cls {
+                        same = false;
+                        break 'w;
+                    }
+                }
+            }
+            if same {
+                if cls { dark.push(x) } else { bright.push(x) }
+            }
+        }
+    }
+    if dark.len() < 4 || bright.len() < 4 {
+        return None;
+    }
+    let med = |v: &mut Vec<f32>| {
+        v.sort_by(f32::total_cmp);
+        v[v.len() / 2]
+    };
+    Some([med(&mut dark), med(&mut bright)])
+}
+
+/// Median of the interior pixels (at least `erode` pixels from any non-region pixel) of both
+/// scalae grown at threshold `thr`; None when neither has interior pixels.
+fn lumen_level(img: &Img, line: &Line, mid: [f64; 2], thr: f32, vmax: f64, width: f64, erode: usize) -> Option<f32> {
+    let n = img.n as isize;
+    let e = erode as isize;
+    let mut vals = vec![];
+    for side in [1.0, -1.0] {
+        let Some(seed) = find_seed(img, line, mid, side, thr, vmax, width) else { continue };
+        let r = grow(img, seed, line, side, thr);
+        for b in e..n - e {
+            for a in e..n - e {
+                let i = (b * n + a) as usize;
+                if r.mask[i] && (-e..=e).all(|db| (-e..=e).all(|da| r.mask[((b + db) * n + a + da) as usize])) {
+                    vals.push(img.v[i]);
+                }
+            }
+        }
+    }
+    if vals.len() < 4 {
+        return None;
+    }
+    vals.sort_by(f32::total_cmp);
+    Some(vals[vals.len() / 2])
+}
+
+/// A dark pixel on the given side of the partition, a little way off its midpoint, whose 3×3
+/// neighbourhood is dark too.
+fn find_seed(img: &Img, line: &Line, mid: [f64; 2], side: f64, thr: f32, vmax: f64, width: f64) -> Option<usize> {
+    let n = img.n;
+    let dark = |i: usize| img.v[i].is_finite() && img.v[i] < thr;
+    let mut d = 1.5 * vmax;
+    let far = (0.8 * width).max(4.0 * vmax);
+    while d <= far {
+        let q = [mid[0] + side * d * line.n[0], mid[1] + side * d * line.n[1]];
+        if let Some(i) = img.index(q) {
+            let (a, b) = (i % n, i / n);
+            if a > 0 && b > 0 && a + 1 < n && b + 1 < n && line.side(img.uv(i)) * side > 0.0 {
+                let all = (0..3).all(|db| (0..3).all(|da| dark((b + db - 1) * n + a + da - 1)));
+                if all {
+                    return Some(i);
+                }
+            }
+        }
+        d += 0.5 * img.pitch;
+    }
+    None
+}
+
+struct Region {
+    mask: Vec<bool>,
+    touches_border: bool,
+    touches_nan: bool,
+}
+
+/// 4-connected flood fill from `seed` over dark pixels on one side of the partition line.
+fn grow(img: &Img, seed: usize, line: &Line, side: f64, thr: f32) -> Region {
+    let n = img.n;
+    let mut mask = vec![false; n * n];
+    let mut stack = vec![seed];
+    mask[seed] = true;
+    let (mut touches_border, mut touches_nan) = (false, false);
+    while let Some(i) = stack.pop() {
+        let (a, b) = (i % n, i / n);
+        if a == 0 || b == 0 || a + 1 == n || b + 1 == n {
+            touches_border = true;
+        }
+        let mut visit = |j: usize| {
+            if mask[j] {
+                return;
+            }
+            let x = img.v[j];
+            if x.is_nan() {
+                touches_nan = true;
+                return;
+            }
+            if x < thr && line.side(img.uv(j)) * side > 0.0 {
+                mask[j] = true;
+                stack.push(j);
+            }
+        };
+        if a > 0 {
+            visit(i - 1);
+        }
+        if a + 1 < n {
+            visit(i + 1);
+        }
+        if b > 0 {
+            visit(i - n);
+        }
+        if b + 1 < n {
+            visit(i + n);
+        }
+    }
+    Region { mask, touches_border, touches_nan }
+}
+
+/// Partial-volume area (mm²) of a grown region and its edge band; also the per-pixel fluid
+/// fraction field (0 outside) and the fraction-weighted centroid.
+#[allow(clippy::too_many_arguments)]
+fn fraction_area(img: &Img, mask: &[bool], line: &Line, side: f64, thr: f32, fluid: f32, bone: f32, band: usize) -> (f64, Vec<f32>, [f64; 2]) {
+    let n = img.n as isize;
+    let k = band as isize;
+    let same = |i: usize| line.side(img.uv(i)) * side > 0.0;
+    let other_dark = |i: usize| !mask[i] && img.v[i].is_finite() && img.v[i] < thr && same(i);
+    let mut cand = vec![false; mask.len()];
+    for i in 0..mask.len() {
+        if !mask[i] {
+            continue;
+        }
+        let (a, b) = (i as isize % n, i as isize / n);
+        let edge = [(-1, 0), (1, 0), (0, -1), (0, 1)].iter().any(|(da, db)| {
+            let (x, y) = (a + da, b + db);
+            x >= 0 && y >= 0 && x < n && y < n && !mask[(y * n + x) as usize]
+        });
+        if !edge {
+            continue;
+        }
+        for y in (b - k).max(0)..(b + k + 1).min(n) {
+            for x in (a - k).max(0)..(a + k + 1).min(n) {
+                let j = (y * n + x) as usize;
+                if !mask[j] && (x - a).pow(2) + (y - b).pow(2) <= k * k {
+                    cand[j] = true;
+                }
+            }
+        }
+    }
+    let mut field = vec![0f32; mask.len()];
+    let frac = |x: f32| (bone - x) / (bone - fluid);
+    for i in 0..mask.len() {
+        if mask[i] {
+            field[i] = frac(img.v[i]);
+            continue;
+        }
+        if !cand[i] || !img.v[i].is_finite() || !same(i) {
+            continue;
+        }
+        let (a, b) = (i as isize % n, i as isize / n);
+        let (mut dr, mut dother) = (isize::MAX, isize::MAX);
+        for y in (b - k).max(0)..(b + k + 1).min(n) {
+            for x in (a - k).max(0)..(a + k + 1).min(n) {
+                let j = (y * n + x) as usize;
+                let d2 = (x - a).pow(2) + (y - b).pow(2);
+                if mask[j] {
+                    dr = dr.min(d2);
+                } else if other_dark(j) {
+                    dother = dother.min(d2);
+                }
+            }
+        }
+        if dr <= k * k && dr <= dother {
+            field[i] = frac(img.v[i]);
+        }
+    }
+    let p2 = img.pitch * img.pitch;
+    let (mut sum, mut cu, mut cv) = (0.0f64, 0.0f64, 0.0f64);
+    for (i, &f) in field.iter().enumerate() {
+        if f != 0.0 {
+            let q = img.uv(i);
+            sum += f as f64;
+            cu += f as f64 * q[0];
+            cv += f as f64 * q[1];
+        }
+    }
+    let c = if sum > 0.0 { [cu / sum, cv / sum] } else { [0.0, 0.0] };
+    (sum * p2, field, c)
+}
+
+/// Star outline of a fraction field at the half level, [`OUTLINE_POINTS`] rays from `c`.
+fn outline(img: &Img, field: &[f32], c: [f64; 2]) -> Vec<[f64; 2]> {
+    let n = img.n;
+    let at = |q: [f64; 2]| -> f32 {
+        let x = (q[0] - img.start) / img.pitch;
+        let y = (q[1] - img.start) / img.pitch;
+        if x < 0.0 || y < 0.0 || x > (n - 1) as f64 || y > (n - 1) as f64 {
+            return 0.0;
+        }
+        let (i, j) = ((x.floor() as usize).min(n - 2), (y.floor() as usize).min(n - 2));
+        let (fx, fy) = ((x - i as f64) as f32, (y - j as f64) as f32);
+        let f = |a: usize, b: usize| field[b * n + a].clamp(0.0, 1.0);
+        let top = f(i, j) + (f(i + 1, j) - f(i, j)) * fx;
+        let bot = f(i, j + 1) + (f(i + 1, j + 1) - f(i, j + 1)) * fx;
+        top + (bot - top) * fy
+    };
+    let step = 0.25 * img.pitch;
+    let limit = 2.0 * (n as f64) * img.pitch;
+    (0..OUTLINE_POINTS)
+        .map(|k| {
+            let a = std::f64::consts::TAU * k as f64 / OUTLINE_POINTS as f64;
+            let dir = [a.cos(), a.sin()];
+            let (mut r, mut prev) = (0.0, at(c));
+            loop {
+                let q = [c[0] + (r + step) * dir[0], c[1] + (r + step) * dir[1]];
+                let cur = at(q);
+                if cur < 0.5 || r > limit {
+                    let t = if prev > cur { ((prev - 0.5) / (prev - cur)).clamp(0.0, 1.0) as f64 } else { 0.0 };
+                    let rr = r + t * step;
+                    break [c[0] + rr * dir[0], c[1] + rr * dir[1]];
+                }
+                r += step;
+                prev = cur;
+            }
+        })
+        .collect()
+}
+
+/// Lateral wall thickness (mm) along the partition direction `dir` from `mid` (section
+/// coordinates): the threshold crossing into bone, then the crossing out of it. The profile is
+/// the mean of four lines at ±1 and ±2 pitches off the partition line.
+fn wall(stack: &Stack, g: &SectionGeom, mid: [f64; 2], dir: [f64; 2], pitch: f64, capture: f64, thr: f32) -> Option<f64> {
+    let vox = stack.voxel.as_ref()?;
+    let inv = vox.mm.map(|x| 1.0 / x);
+    let h = 0.5 * pitch;
+    let steps = ((capture + 1.0) / h) as usize;
+    let normal = [-dir[1], dir[0]];
+    let prof: Vec<f32> = with_samples!(&stack.samples, data => (0..steps).map(|i| {
+        let d = i as f64 * h;
+        let mut acc = 0.0f32;
+        for o in [-2.0, -1.0, 1.0, 2.0] {
+            let q = [mid[0] + d * dir[0] + o * pitch * normal[0], mid[1] + d * dir[1] + o * pitch * normal[1]];
+            acc += section::trilinear(data, stack.dims, inv, g.from_plane(q));
+        }
+        acc / 4.0
+    }).collect());
+    let cross = |i: usize| -> f64 {
+        let (a, b) = (prof[i - 1], prof[i]);
+        ((i - 1) as f64 + ((thr - a) / (b - a)).clamp(0.0, 1.0) as f64) * h
+    };
+    let first_dark = prof.iter().position(|x| x.is_finite() && *x < thr)?;
+    let mut up = None;
+    for i in first_dark + 1..prof.len() {
+        if !prof[i].is_finite() {
+            return None;
+        }
+        match up {
+            None if prof[i] >= thr => up = Some(cross(i)),
+            Some(u) if prof[i] < thr => return Some(cross(i) - u),
+            _ => {}
+        }
+    }
+    None
+}
+

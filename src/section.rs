@@ -1,0 +1,178 @@
+//! Sections: planes normal to the centreline at a uniform step in s, and trilinear resampling of
+//! the stack on them (working on the stack's own sample type; no widened copy of the volume).
+
+use crate::centreline::{Centreline, rotation_minimizing};
+use crate::frame::{v3, v3::V};
+use crate::landmarks::Kind;
+use crate::stack::{Sample, Stack};
+use crate::with_samples;
+
+/// Where and how one section lies (all stack-frame mm, unit vectors).
+#[derive(Clone, Debug)]
+pub struct SectionGeom {
+    /// Arc length from the basal end (mm).
+    pub s: f64,
+    /// Unwrapped angle (rad).
+    pub theta: f64,
+    /// Centreline point.
+    pub centre: V,
+    /// Unit tangent (plane normal), toward the apex.
+    pub t: V,
+    /// First in-plane axis, along the partition (lamina → ligament).
+    pub u: V,
+    /// Second in-plane axis, toward the apex side (scala vestibuli).
+    pub v: V,
+    /// Where the lamina and ligament curves cross this plane.
+    pub lamina: V,
+    pub ligament: V,
+    /// Rotation-minimizing reference vector (continuous along the curve, no twist).
+    pub rmf: V,
+}
+
+impl SectionGeom {
+    /// In-plane coordinates (mm) of a stack point relative to the centre.
+    pub fn to_plane(&self, p: V) -> [f64; 2] {
+        let d = v3::sub(p, self.centre);
+        [v3::dot(d, self.u), v3::dot(d, self.v)]
+    }
+    /// Stack point of in-plane coordinates (mm).
+    pub fn from_plane(&self, q: [f64; 2]) -> V {
+        v3::axpy(v3::axpy(self.centre, q[0], self.u), q[1], self.v)
+    }
+    /// Partition width (mm): lamina to ligament.
+    pub fn width(&self) -> f64 {
+        v3::dist(self.lamina, self.ligament)
+    }
+}
+
+/// Where an edge curve crosses the plane through `c` with normal `t`, searched near θ.
+fn crossing(cl: &Centreline, kind: Kind, c: V, t: V, theta: f64) -> V {
+    let f = |a: f64| v3::dot(v3::sub(cl.edge_point(kind, a), c), t);
+    let (mut a, mut fa) = (theta, f(theta));
+    let mut b = theta + 1e-3;
+    let mut fb = f(b);
+    for _ in 0..30 {
+        if (fb - fa).abs() < 1e-300 {
+            break;
+        }
+        let n = b - fb * (b - a) / (fb - fa);
+        a = b;
+        fa = fb;
+        b = n;
+        fb = f(b);
+        if fb.abs() < 1e-12 {
+            break;
+        }
+    }
+    if (b - theta).abs() > 0.5 { cl.edge_point(kind, theta) } else { cl.edge_point(kind, b) }
+}
+
+/// Section geometry at s = 0, step, 2·step, … ≤ length (mm).
+pub fn geometry(cl: &Centreline, step: f64) -> Vec<SectionGeom> {
+    let n = (cl.length / step + 1e-9).floor() as usize + 1;
+    let thetas: Vec<f64> = (0..n).map(|k| cl.theta_at(k as f64 * step)).collect();
+    let pts: Vec<V> = thetas.iter().map(|&t| cl.point(t)).collect();
+    let tans: Vec<V> = thetas.iter().map(|&t| cl.tangent(t)).collect();
+    let r0 = v3::sub(cl.edge_point(Kind::Ligament, thetas[0]), cl.edge_point(Kind::Lamina, thetas[0]));
+    let rmf = rotation_minimizing(&pts, &tans, r0);
+    (0..n)
+        .map(|k| {
+            let (c, t) = (pts[k], tans[k]);
+            let lamina = crossing(cl, Kind::Lamina, c, t, thetas[k]);
+            let ligament = crossing(cl, Kind::Ligament, c, t, thetas[k]);
+            let d = v3::sub(ligament, lamina);
+            let d = v3::axpy(d, -v3::dot(d, t), t);
+            let u = if v3::norm(d) > 1e-9 { v3::unit(d) } else { rmf[k] };
+            let mut v = v3::cross(t, u);
+            if v3::dot(v, cl.frame.ez) < 0.0 {
+                v = v3::scale(v, -1.0);
+            }
+            SectionGeom { s: k as f64 * step, theta: thetas[k], centre: c, t, u, v, lamina, ligament, rmf: rmf[k] }
+        })
+        .collect()
+}
+
+/// A sampling grid on a plane: sample (a, b) lies at `origin + a·du + b·dv` (mm), a < nu, b < nv.
+#[derive(Clone, Debug)]
+pub struct Grid {
+    pub origin: V,
+    pub du: V,
+    pub dv: V,
+    pub nu: usize,
+    pub nv: usize,
+}
+
+/// Trilinear value at a stack point (mm); NaN outside the voxel centres' box.
+/// `inv` is 1/voxel size per axis (1/mm).
+#[inline]
+pub fn trilinear<T: Sample>(data: &[T], dims: [usize; 3], inv: [f64; 3], p: V) -> f32 {
+    trilinear_idx(data, dims, [p[0] * inv[0], p[1] * inv[1], p[2] * inv[2]])
+}
+
+/// Trilinear value at continuous voxel indices (i, j, k); NaN outside [0, n−1] on any axis.
+#[inline]
+pub fn trilinear_idx<T: Sample>(data: &[T], dims: [usize; 3], x: [f64; 3]) -> f32 {
+    let mut i0 = [0usize; 3];
+    let mut f = [0f32; 3];
+    for a in 0..3 {
+        let n = dims[a];
+        let xa = x[a];
+        if !(xa >= 0.0 && xa <= (n - 1) as f64) {
+            return f32::NAN;
+        }
+        let fl = (xa.floor() as usize).min(n.saturating_sub(2));
+        i0[a] = fl;
+        f[a] = if n > 1 { (xa - fl as f64) as f32 } else { 0.0 };
+    }
+    let sx = 1usize.min(dims[0] - 1);
+    let sy = if dims[1] > 1 { dims[0] } else { 0 };
+    let sz = if dims[2] > 1 { dims[0] * dims[1] } else { 0 };
+    let b = (i0[2] * dims[1] + i0[1]) * dims[0] + i0[0];
+    let c000 = data[b].f();
+    let c100 = data[b + sx].f();
+    let c010 = data[b + sy].f();
+    let c110 = data[b + sy + sx].f();
+    let c001 = data[b + sz].f();
+    let c101 = data[b + sz + sx].f();
+    let c011 = data[b + sz + sy].f();
+    let c111 = data[b + sz + sy + sx].f();
+    let x00 = c000 + (c100 - c000) * f[0];
+    let x10 = c010 + (c110 - c010) * f[0];
+    let x01 = c001 + (c101 - c001) * f[0];
+    let x11 = c011 + (c111 - c011) * f[0];
+    let y0 = x00 + (x10 - x00) * f[1];
+    let y1 = x01 + (x11 - x01) * f[1];
+    y0 + (y1 - y0) * f[2]
+}
+
+/// Resamples the stack on a grid (row-major: index b·nu + a). Needs a voxel size.
+pub fn resample(stack: &Stack, g: &Grid) -> Vec<f32> {
+    let mut out = vec![f32::NAN; g.nu * g.nv];
+    resample_into(stack, g, &mut out);
+    out
+}
+
+/// [`resample`] into a caller's buffer of nu·nv values.
+pub fn resample_into(stack: &Stack, g: &Grid, out: &mut [f32]) {
+    let Some(vox) = &stack.voxel else { return };
+    let inv = vox.mm.map(|x| 1.0 / x);
+    let to_idx = |p: V| [p[0] * inv[0], p[1] * inv[1], p[2] * inv[2]];
+    let (o, du, dv) = (to_idx(g.origin), to_idx(g.du), to_idx(g.dv));
+    with_samples!(&stack.samples, data => {
+        for b in 0..g.nv {
+            let row = v3::axpy(o, b as f64, dv);
+            for a in 0..g.nu {
+                out[b * g.nu + a] = trilinear_idx(data, stack.dims, v3::axpy(row, a as f64, du));
+            }
+        }
+    })
+}
+
+/// A square grid of half-size `half` (mm) and `pitch` (mm) centred on the section, rows offset by
+/// half a pitch in v so no sample lies on the partition line v = 0.
+pub fn section_grid(g: &SectionGeom, half: f64, pitch: f64) -> Grid {
+    let n = (2.0 * half / pitch).round() as usize;
+    let n = n + n % 2; // even: rows at ±pitch/2, ±3·pitch/2, …
+    let start = -(n as f64 - 1.0) * 0.5 * pitch;
+    Grid { origin: g.from_plane([start, start]), du: v3::scale(g.u, pitch), dv: v3::scale(g.v, pitch), nu: n, nv: n }
+}

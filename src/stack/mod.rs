@@ -1,0 +1,349 @@
+//! The image stack: voxels in one contiguous buffer of the file's own sample type, plus the voxel
+//! size and where it came from.
+//!
+//! Stack frame (DESIGN.md): voxel (column i, row j, slice k) has its centre at (i·vx, j·vy, k·vz) mm.
+
+mod folder;
+mod tiff;
+pub mod write;
+
+use crate::{Error, Result};
+use rayon::prelude::*;
+use std::path::{Path, PathBuf};
+
+pub use folder::natural_cmp;
+
+/// The slice files of a folder in natural order (errors when it holds none).
+pub fn folder_files(dir: &Path) -> Result<Vec<PathBuf>> {
+    folder::slice_files(dir)
+}
+
+/// A grey sample type the stack can hold. `f` widens one sample to f32 for arithmetic.
+pub trait Sample: Copy + Send + Sync + bytemuck::Pod + 'static {
+    const NAME: &'static str;
+    fn f(self) -> f32;
+}
+impl Sample for u8 {
+    const NAME: &'static str = "uint8";
+    #[inline]
+    fn f(self) -> f32 {
+        self as f32
+    }
+}
+impl Sample for u16 {
+    const NAME: &'static str = "uint16";
+    #[inline]
+    fn f(self) -> f32 {
+        self as f32
+    }
+}
+impl Sample for f32 {
+    const NAME: &'static str = "float32";
+    #[inline]
+    fn f(self) -> f32 {
+        self
+    }
+}
+
+/// The voxel buffer, x fastest, then y, then z; kept in the file's own sample type.
+#[derive(Clone, Debug)]
+pub enum Samples {
+    U8(Vec<u8>),
+    U16(Vec<u16>),
+    F32(Vec<f32>),
+}
+
+/// Runs `$body` with `$v` bound to the typed sample slice of a [`Samples`].
+#[macro_export]
+macro_rules! with_samples {
+    ($samples:expr, $v:ident => $body:expr) => {
+        match $samples {
+            $crate::stack::Samples::U8($v) => $body,
+            $crate::stack::Samples::U16($v) => $body,
+            $crate::stack::Samples::F32($v) => $body,
+        }
+    };
+}
+
+impl Samples {
+    pub fn type_name(&self) -> &'static str {
+        match self {
+            Samples::U8(_) => u8::NAME,
+            Samples::U16(_) => u16::NAME,
+            Samples::F32(_) => f32::NAME,
+        }
+    }
+    pub fn bytes(&self) -> usize {
+        with_samples!(self, v => std::mem::size_of_val(v.as_slice()))
+    }
+    pub fn len(&self) -> usize {
+        with_samples!(self, v => v.len())
+    }
+    pub fn is_empty(&self) -> bool {
+        self.len() == 0
+    }
+    /// One voxel by linear index, widened to f32.
+    #[inline]
+    pub fn get(&self, idx: usize) -> f32 {
+        with_samples!(self, v => v[idx].f())
+    }
+}
+
+/// Where a voxel size came from; shown to the user beside the value.
+#[derive(Clone, Debug, PartialEq, serde::Serialize, serde::Deserialize)]
+pub enum VoxelSource {
+    /// OME-XML physical sizes in the TIFF image description.
+    Ome,
+    /// TIFF XResolution/YResolution with ResolutionUnit (in-plane only).
+    TiffResolution,
+    /// The `spacing=` entry of an ImageJ-style image description (slice spacing).
+    DescriptionSpacing,
+    /// PNG pHYs chunk (in-plane only).
+    PngPhys,
+    /// Assumed equal to the in-plane size because the file gives none.
+    AssumedIsotropic,
+    /// Given by the user (`--voxel-um` or the app).
+    User,
+}
+
+impl VoxelSource {
+    pub fn label(&self) -> &'static str {
+        match self {
+            VoxelSource::Ome => "OME-XML",
+            VoxelSource::TiffResolution => "TIFF resolution tags",
+            VoxelSource::DescriptionSpacing => "image description spacing",
+            VoxelSource::PngPhys => "PNG pHYs",
+            VoxelSource::AssumedIsotropic => "assumed equal to x",
+            VoxelSource::User => "user",
+        }
+    }
+}
+
+/// Voxel size (mm) per axis with the source of each value.
+#[derive(Clone, Debug, PartialEq, serde::Serialize, serde::Deserialize)]
+pub struct VoxelSize {
+    pub mm: [f64; 3],
+    pub source: [VoxelSource; 3],
+}
+
+impl VoxelSize {
+    /// A user-given size in µm (one value = isotropic). Errors on zero, negative or non-finite sizes.
+    pub fn from_user_um(um: &[f64]) -> Result<Self> {
+        let v = match um.len() {
+            1 => [um[0]; 3],
+            3 => [um[0], um[1], um[2]],
+            n => return Err(Error::invalid(format!("voxel size needs 1 or 3 values in µm, got {n}"))),
+        };
+        for x in v {
+            if !(x.is_finite() && x > 0.0) {
+                return Err(Error::invalid(format!("voxel size must be positive, got {x} µm")));
+            }
+        }
+        Ok(VoxelSize { mm: v.map(|x| x / 1000.0), source: std::array::from_fn(|_| VoxelSource::User) })
+    }
+    /// Smallest side (mm).
+    pub fn min(&self) -> f64 {
+        self.mm.iter().cloned().fold(f64::INFINITY, f64::min)
+    }
+    /// Largest side (mm).
+    pub fn max(&self) -> f64 {
+        self.mm.iter().cloned().fold(0.0, f64::max)
+    }
+    /// "40 × 40 × 40 µm (OME-XML)" style text.
+    pub fn describe(&self) -> String {
+        let um = self.mm.map(|x| x * 1000.0);
+        let mut src: Vec<&str> = self.source.iter().map(|s| s.label()).collect();
+        src.dedup();
+        format!("{:.4} × {:.4} × {:.4} µm ({})", um[0], um[1], um[2], src.join(", "))
+    }
+}
+
+/// Options for loading a stack.
+#[derive(Clone, Debug)]
+pub struct LoadOptions {
+    /// User voxel size; overrides the file's metadata.
+    pub voxel: Option<VoxelSize>,
+    /// Bin 2×2×2 (average) while loading: 1 = none, 2 = 2×2×2.
+    pub bin: usize,
+    /// Refuse stacks whose decoded size exceeds this many bytes (also capped by available memory).
+    pub max_bytes: Option<u64>,
+}
+
+impl Default for LoadOptions {
+    fn default() -> Self {
+        LoadOptions { voxel: None, bin: 1, max_bytes: None }
+    }
+}
+
+/// A loaded stack.
+#[derive(Clone, Debug)]
+pub struct Stack {
+    /// (nx, ny, nz): columns, rows, slices.
+    pub dims: [usize; 3],
+    pub samples: Samples,
+    /// None when neither the file nor the user gave one.
+    pub voxel: Option<VoxelSize>,
+    /// The file or folder it was read from.
+    pub path: PathBuf,
+    /// Non-fatal remarks made while loading (e.g. RGB turned into grey).
+    pub warnings: Vec<String>,
+}
+
+impl Stack {
+    /// A stack from a buffer (used by the phantom and tests). Errors when sizes disagree.
+    pub fn from_samples(dims: [usize; 3], samples: Samples, voxel: Option<VoxelSize>) -> Result<Self> {
+        if dims.iter().product::<usize>() != samples.len() {
+            return Err(Error::invalid(format!("buffer holds {} samples, dims {:?} need {}", samples.len(), dims, dims.iter().product::<usize>())));
+        }
+        Ok(Stack { dims, samples, voxel, path: PathBuf::new(), warnings: vec![] })
+    }
+
+    /// The voxel size, or a clear error when none is known.
+    pub fn voxel(&self) -> Result<&VoxelSize> {
+        self.voxel.as_ref().ok_or_else(|| {
+            Error::format(&self.path, "no voxel size in the file; give it with --voxel-um X[,Y,Z]")
+        })
+    }
+
+    /// Linear index of voxel (i, j, k).
+    #[inline]
+    pub fn index(&self, i: usize, j: usize, k: usize) -> usize {
+        (k * self.dims[1] + j) * self.dims[0] + i
+    }
+
+    /// Minimum and maximum sample value (NaN samples ignored).
+    pub fn value_range(&self) -> (f32, f32) {
+        with_samples!(&self.samples, v => v
+            .par_chunks(1 << 16)
+            .map(|c| c.iter().fold((f32::INFINITY, f32::NEG_INFINITY), |(lo, hi), s| {
+                let x = s.f();
+                if x.is_nan() { (lo, hi) } else { (lo.min(x), hi.max(x)) }
+            }))
+            .reduce(|| (f32::INFINITY, f32::NEG_INFINITY), |a, b| (a.0.min(b.0), a.1.max(b.1))))
+    }
+
+    /// Stack extent (mm) along each axis: the position of the last voxel centre.
+    pub fn extent_mm(&self) -> Result<[f64; 3]> {
+        let v = self.voxel()?;
+        Ok(std::array::from_fn(|a| (self.dims[a] as f64 - 1.0) * v.mm[a]))
+    }
+
+    /// True when a stack-frame point (mm) lies within half a voxel of the voxel centres.
+    pub fn contains_mm(&self, p: [f64; 3]) -> bool {
+        let Some(v) = &self.voxel else { return false };
+        (0..3).all(|a| {
+            let x = p[a] / v.mm[a];
+            x >= -0.5 && x <= self.dims[a] as f64 - 0.5
+        })
+    }
+
+    /// Bytes held by the voxel buffer.
+    pub fn bytes(&self) -> usize {
+        self.samples.bytes()
+    }
+}
+
+/// Loads a multi-page TIFF, or a folder of single-page TIFF/PNG slices in natural order.
+pub fn load(path: &Path, opts: &LoadOptions) -> Result<Stack> {
+    load_with_progress(path, opts, &crate::progress::Progress::new())
+}
+
+/// [`load`] reporting progress per page and honouring cancel.
+pub fn load_with_progress(path: &Path, opts: &LoadOptions, progress: &crate::progress::Progress) -> Result<Stack> {
+    if opts.bin != 1 && opts.bin != 2 {
+        return Err(Error::invalid(format!("binning must be 1 or 2, got {}", opts.bin)));
+    }
+    let meta = std::fs::metadata(path).map_err(|e| Error::io(path, e))?;
+    let mut stack = if meta.is_dir() {
+        folder::load(path, opts, progress)?
+    } else {
+        tiff::load(path, opts, progress)?
+    };
+    if let Some(v) = &opts.voxel {
+        stack.voxel = Some(v.clone());
+    }
+    if opts.bin == 2 {
+        if let Some(v) = &mut stack.voxel {
+            v.mm = v.mm.map(|x| x * 2.0);
+        }
+    }
+    Ok(stack)
+}
+
+/// The header facts of a stack file, read without decoding the voxels.
+#[derive(Clone, Debug)]
+pub struct Header {
+    pub dims: [usize; 3],
+    pub sample: &'static str,
+    pub bytes_per_sample: usize,
+    pub voxel: Option<VoxelSize>,
+}
+
+/// Refuses a decoded size above the cap or the memory available now, before allocating.
+pub(crate) fn check_memory(path: &Path, bytes: u64, max_bytes: Option<u64>) -> Result<()> {
+    let avail = available_memory().map(|a| a / 10 * 9);
+    let cap = match (max_bytes, avail) {
+        (Some(m), Some(a)) => Some(m.min(a)),
+        (m, a) => m.or(a),
+    };
+    if let Some(cap) = cap {
+        if bytes > cap {
+            return Err(Error::format(
+                path,
+                format!(
+                    "decoded stack needs {:.2} GB but only {:.2} GB may be used; load it binned 2×2×2 (--bin 2) or crop it",
+                    bytes as f64 / 1e9,
+                    cap as f64 / 1e9
+                ),
+            ));
+        }
+    }
+    Ok(())
+}
+
+/// MemAvailable from /proc/meminfo in bytes (None where it cannot be read).
+pub fn available_memory() -> Option<u64> {
+    let text = std::fs::read_to_string("/proc/meminfo").ok()?;
+    let line = text.lines().find(|l| l.starts_with("MemAvailable:"))?;
+    let kb: u64 = line.split_whitespace().nth(1)?.parse().ok()?;
+    Some(kb * 1024)
+}
+
+/// Averages pairs of decoded pages 2×2×2 into one output slice of half the width and height.
+pub(crate) fn bin_pair<T: Sample>(a: &[T], b: Option<&[T]>, nx: usize, ny: usize, out: &mut [T], conv: fn(f32) -> T) {
+    let (bx, by) = (nx / 2, ny / 2);
+    for j in 0..by {
+        for i in 0..bx {
+            let mut sum = 0.0f32;
+            let mut n = 0.0f32;
+            for page in [Some(a), b].into_iter().flatten() {
+                for (dj, di) in [(0, 0), (0, 1), (1, 0), (1, 1)] {
+                    sum += page[(2 * j + dj) * nx + 2 * i + di].f();
+                    n += 1.0;
+                }
+            }
+            out[j * bx + i] = conv(sum / n);
+        }
+    }
+}
+
+pub(crate) fn to_u8(x: f32) -> u8 {
+    x.round().clamp(0.0, 255.0) as u8
+}
+pub(crate) fn to_u16(x: f32) -> u16 {
+    x.round().clamp(0.0, 65535.0) as u16
+}
+pub(crate) fn to_f32(x: f32) -> f32 {
+    x
+}
+
+/// Grey value of an RGB sample (ITU-R BT.601 luma weights; common practice).
+pub(crate) fn luma(r: f32, g: f32, b: f32) -> f32 {
+    0.299 * r + 0.587 * g + 0.114 * b
+}
+
+/// Reads only the header facts of a stack (for `inspect` and the memory check).
+pub fn header(path: &Path) -> Result<Header> {
+    let meta = std::fs::metadata(path).map_err(|e| Error::io(path, e))?;
+    if meta.is_dir() { folder::header(path) } else { tiff::header(path) }
+}

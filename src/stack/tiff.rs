@@ -1,0 +1,291 @@
+//! Multi-page TIFF (classic and BigTIFF; stripped or tiled; uncompressed, LZW, Deflate, PackBits)
+//! decoded in parallel into one contiguous buffer of the file's own sample type.
+
+use super::{LoadOptions, Sample, Samples, Stack, VoxelSize, VoxelSource};
+use crate::progress::Progress;
+use crate::{Error, Result};
+use rayon::prelude::*;
+use std::fs::File;
+use std::io::BufReader;
+use std::path::Path;
+use tiff::ColorType;
+use tiff::decoder::{Decoder, Limits};
+use tiff::tags::Tag;
+
+type Dec = Decoder<BufReader<File>>;
+
+/// How a page's samples become grey.
+#[derive(Clone, Copy, Debug, PartialEq)]
+pub(crate) enum Kind {
+    Gray8,
+    Gray16,
+    GrayF32,
+    /// RGB or RGBA with this many channels and bits.
+    Rgb { channels: usize, bits: u8 },
+}
+
+impl Kind {
+    fn name(self) -> &'static str {
+        match self {
+            Kind::Gray8 => "uint8",
+            Kind::Gray16 => "uint16",
+            Kind::GrayF32 => "float32",
+            Kind::Rgb { bits: 8, .. } => "uint8",
+            Kind::Rgb { .. } => "uint16",
+        }
+    }
+    fn bytes(self) -> usize {
+        match self {
+            Kind::Gray8 => 1,
+            Kind::Gray16 => 2,
+            Kind::GrayF32 => 4,
+            Kind::Rgb { bits, .. } => bits as usize / 8,
+        }
+    }
+}
+
+fn open(path: &Path) -> Result<Dec> {
+    let f = File::open(path).map_err(|e| Error::io(path, e))?;
+    let mut limits = Limits::default();
+    limits.decoding_buffer_size = 1 << 32;
+    Decoder::new(BufReader::with_capacity(1 << 16, f))
+        .map(|d| d.with_limits(limits))
+        .map_err(|e| Error::format(path, format!("not a readable TIFF: {e}")))
+}
+
+fn page_kind(path: &Path, page: usize, dec: &mut Dec) -> Result<(usize, usize, Kind)> {
+    let perr = |e: tiff::TiffError| Error::page(path, page, e.to_string());
+    let (w, h) = dec.dimensions().map_err(perr)?;
+    let ct = dec.colortype().map_err(perr)?;
+    let fmt = dec.find_tag_unsigned_vec::<u16>(Tag::SampleFormat).map_err(perr)?.and_then(|v| v.first().copied()).unwrap_or(1);
+    let kind = match (ct, fmt) {
+        (ColorType::Gray(8), 1) => Kind::Gray8,
+        (ColorType::Gray(16), 1) => Kind::Gray16,
+        (ColorType::Gray(32), 3) => Kind::GrayF32,
+        (ColorType::RGB(b @ (8 | 16)), 1) => Kind::Rgb { channels: 3, bits: b },
+        (ColorType::RGBA(b @ (8 | 16)), 1) => Kind::Rgb { channels: 4, bits: b },
+        (ct, fmt) => {
+            let f = match fmt { 1 => "unsigned", 2 => "signed", 3 => "float", _ => "unknown" };
+            return Err(Error::page(path, page, format!("unsupported sample format {ct:?} ({f}); ductline reads 8/16-bit unsigned and 32-bit float grey, or RGB(A)")));
+        }
+    };
+    if w == 0 || h == 0 {
+        return Err(Error::page(path, page, "page has zero width or height"));
+    }
+    Ok((w as usize, h as usize, kind))
+}
+
+/// Walks every page's directory (no pixel data) and checks they agree. Returns (nx, ny, pages, kind).
+fn walk(path: &Path) -> Result<(Dec, usize, usize, usize, Kind)> {
+    let mut dec = open(path)?;
+    let (nx, ny, kind) = page_kind(path, 0, &mut dec)?;
+    let mut pages = 1;
+    let mut walker = open(path)?;
+    while walker.more_images() {
+        walker.next_image().map_err(|e| Error::page(path, pages, format!("unreadable page directory: {e}")))?;
+        let (w, h, k) = page_kind(path, pages, &mut walker)?;
+        if (w, h) != (nx, ny) {
+            return Err(Error::page(path, pages, format!("size {w}×{h} differs from the first page's {nx}×{ny}")));
+        }
+        if k != kind {
+            return Err(Error::page(path, pages, format!("sample type {} differs from the first page's {}", k.name(), kind.name())));
+        }
+        pages += 1;
+    }
+    Ok((dec, nx, ny, pages, kind))
+}
+
+pub(super) fn header(path: &Path) -> Result<super::Header> {
+    let (mut dec, nx, ny, nz, kind) = walk(path)?;
+    let voxel = voxel_from_tags(&mut dec);
+    Ok(super::Header { dims: [nx, ny, nz], sample: kind.name(), bytes_per_sample: kind.bytes(), voxel })
+}
+
+pub(super) fn load(path: &Path, opts: &LoadOptions, progress: &Progress) -> Result<Stack> {
+    let (mut dec, nx, ny, nz, kind) = walk(path)?;
+    let voxel = voxel_from_tags(&mut dec);
+    drop(dec);
+    let b = opts.bin;
+    let dims = [nx / b, ny / b, nz.div_ceil(b)];
+    if dims.contains(&0) {
+        return Err(Error::format(path, "stack too small to bin"));
+    }
+    let bytes = (dims.iter().product::<usize>() * kind.bytes()) as u64;
+    super::check_memory(path, bytes, opts.max_bytes)?;
+    progress.start(nz as u64);
+    let samples = match kind {
+        Kind::Gray8 | Kind::Rgb { bits: 8, .. } => Samples::U8(decode::<u8>(path, [nx, ny, nz], kind, b, super::to_u8, progress)?),
+        Kind::Gray16 | Kind::Rgb { .. } => Samples::U16(decode::<u16>(path, [nx, ny, nz], kind, b, super::to_u16, progress)?),
+        Kind::GrayF32 => Samples::F32(decode::<f32>(path, [nx, ny, nz], kind, b, super::to_f32, progress)?),
+    };
+    let mut warnings = vec![];
+    if let Kind::Rgb { .. } = kind {
+        warnings.push(format!("{}: colour pages turned into grey (BT.601 luma)", path.display()));
+    }
+    if let Some(v) = &voxel {
+        if v.source[2] == VoxelSource::AssumedIsotropic {
+            warnings.push(format!("{}: the file gives no slice spacing; assumed equal to the pixel width", path.display()));
+        }
+    }
+    Ok(Stack { dims, samples, voxel, path: path.to_path_buf(), warnings })
+}
+
+/// Decodes all pages into one buffer, page groups in parallel (each group with its own file handle).
+/// With `bin` = 2, pairs of pages are averaged 2×2×2 into one output slice.
+fn decode<T: Sample>(path: &Path, [nx, ny, nz]: [usize; 3], kind: Kind, bin: usize, conv: fn(f32) -> T, progress: &Progress) -> Result<Vec<T>> {
+    let out_slice = (nx / bin) * (ny / bin);
+    let out_nz = nz.div_ceil(bin);
+    let mut out = vec![T::zeroed(); out_slice * out_nz];
+    let threads = rayon::current_num_threads().max(1);
+    // output slices per group: several groups a thread so uneven pages balance out
+    let per = out_nz.div_ceil(threads * 4).max(1);
+    out.par_chunks_mut(out_slice * per).enumerate().try_for_each(|(g, chunk)| -> Result<()> {
+        let first_out = g * per;
+        let first_page = first_out * bin;
+        let mut dec = open(path)?;
+        dec.seek_to_image(first_page).map_err(|e| Error::page(path, first_page, format!("cannot reach page: {e}")))?;
+        let mut page = first_page;
+        let mut tmp_a = vec![T::zeroed(); if bin == 1 { 0 } else { nx * ny }];
+        let mut tmp_b = tmp_a.clone();
+        for slice in chunk.chunks_mut(out_slice) {
+            progress.check()?;
+            if bin == 1 {
+                read_page(path, page, &mut dec, kind, slice, conv)?;
+                page += 1;
+            } else {
+                read_page(path, page, &mut dec, kind, &mut tmp_a, conv)?;
+                let have_b = page + 1 < nz;
+                if have_b {
+                    next(path, page + 1, &mut dec)?;
+                    read_page(path, page + 1, &mut dec, kind, &mut tmp_b, conv)?;
+                }
+                super::bin_pair(&tmp_a, if have_b { Some(&tmp_b[..]) } else { None }, nx, ny, slice, conv);
+                page += 2;
+            }
+            progress.add(bin as u64);
+            if page < nz && page < (first_out + per) * bin {
+                next(path, page, &mut dec)?;
+            }
+        }
+        Ok(())
+    })?;
+    Ok(out)
+}
+
+fn next(path: &Path, page: usize, dec: &mut Dec) -> Result<()> {
+    dec.next_image().map_err(|e| Error::page(path, page, format!("cannot reach page: {e}")))
+}
+
+fn read_page<T: Sample>(path: &Path, page: usize, dec: &mut Dec, kind: Kind, out: &mut [T], conv: fn(f32) -> T) -> Result<()> {
+    let perr = |e: tiff::TiffError| Error::page(path, page, format!("cannot decode (truncated or corrupt?): {e}"));
+    match kind {
+        Kind::Rgb { channels, .. } => {
+            let img = dec.read_image().map_err(perr)?;
+            let grey = |px: &[f32]| conv(super::luma(px[0], px[1], px[2]));
+            match img {
+                tiff::decoder::DecodingResult::U8(v) => {
+                    for (o, px) in out.iter_mut().zip(v.chunks_exact(channels)) {
+                        *o = grey(&[px[0] as f32, px[1] as f32, px[2] as f32]);
+                    }
+                }
+                tiff::decoder::DecodingResult::U16(v) => {
+                    for (o, px) in out.iter_mut().zip(v.chunks_exact(channels)) {
+                        *o = grey(&[px[0] as f32, px[1] as f32, px[2] as f32]);
+                    }
+                }
+                _ => return Err(Error::page(path, page, "unexpected colour sample type")),
+            }
+            Ok(())
+        }
+        _ => dec.read_image_bytes(bytemuck::cast_slice_mut(out)).map_err(perr),
+    }
+}
+
+/// Voxel size from the first page: OME-XML physical sizes in the image description, else the
+/// resolution tags (in-plane) with an ImageJ-style `spacing=` for the slices.
+fn voxel_from_tags(dec: &mut Dec) -> Option<VoxelSize> {
+    let desc = dec.find_tag(Tag::ImageDescription).ok().flatten().and_then(|v| v.into_string().ok()).unwrap_or_default();
+    if let Some(v) = voxel_from_ome(&desc) {
+        return Some(v);
+    }
+    let res = |dec: &mut Dec, tag| -> Option<f64> {
+        match dec.find_tag(tag).ok()?? {
+            tiff::decoder::ifd::Value::Rational(n, d) if n > 0 && d > 0 => Some(n as f64 / d as f64),
+            v => v.into_f64().ok().filter(|x| *x > 0.0),
+        }
+    };
+    let (xr, yr) = (res(dec, Tag::XResolution)?, res(dec, Tag::YResolution)?);
+    let unit = dec.find_tag_unsigned::<u16>(Tag::ResolutionUnit).ok().flatten().unwrap_or(2);
+    let unit_mm = match unit {
+        2 => 25.4,
+        3 => 10.0,
+        _ => desc_value(&desc, "unit=").and_then(|u| unit_to_mm(&u))?,
+    };
+    let (x, y) = (unit_mm / xr, unit_mm / yr);
+    let spacing = desc_value(&desc, "spacing=").and_then(|s| s.parse::<f64>().ok()).filter(|s| *s > 0.0);
+    let z_unit = desc_value(&desc, "unit=").and_then(|u| unit_to_mm(&u)).unwrap_or(unit_mm);
+    let (z, zsrc) = match spacing {
+        Some(s) => (s * z_unit, VoxelSource::DescriptionSpacing),
+        None => (x, VoxelSource::AssumedIsotropic),
+    };
+    Some(VoxelSize { mm: [x, y, z], source: [VoxelSource::TiffResolution, VoxelSource::TiffResolution, zsrc] })
+}
+
+/// Physical sizes from an OME-XML description (units default to µm as the OME schema says).
+pub(crate) fn voxel_from_ome(desc: &str) -> Option<VoxelSize> {
+    if !desc.contains("<OME") {
+        return None;
+    }
+    let get = |axis: &str| -> Option<f64> {
+        let v: f64 = xml_attr(desc, &format!("PhysicalSize{axis}"))?.parse().ok()?;
+        let unit = xml_attr(desc, &format!("PhysicalSize{axis}Unit")).unwrap_or_else(|| "µm".into());
+        Some(v * unit_to_mm(&unit)?).filter(|x| *x > 0.0 && x.is_finite())
+    };
+    let (x, y) = (get("X")?, get("Y")?);
+    Some(match get("Z") {
+        Some(z) => VoxelSize { mm: [x, y, z], source: [VoxelSource::Ome, VoxelSource::Ome, VoxelSource::Ome] },
+        None => VoxelSize { mm: [x, y, x], source: [VoxelSource::Ome, VoxelSource::Ome, VoxelSource::AssumedIsotropic] },
+    })
+}
+
+fn xml_attr(xml: &str, name: &str) -> Option<String> {
+    let pat = format!("{name}=\"");
+    let mut from = 0;
+    while let Some(i) = xml[from..].find(&pat) {
+        let at = from + i;
+        // a whole attribute name: preceded by whitespace
+        if at > 0 && xml.as_bytes()[at - 1].is_ascii_whitespace() {
+            let rest = &xml[at + pat.len()..];
+            return rest.find('"').map(|e| rest[..e].to_string());
+        }
+        from = at + pat.len();
+    }
+    None
+}
+
+fn desc_value(desc: &str, key: &str) -> Option<String> {
+    desc.lines().find_map(|l| l.trim().strip_prefix(key).map(|v| v.trim().to_string()))
+}
+
+/// Millimetres per one of `unit` (nm, µm/um/micron, mm, cm, m).
+pub(crate) fn unit_to_mm(unit: &str) -> Option<f64> {
+    match unit.trim() {
+        "nm" => Some(1e-6),
+        "µm" | "μm" | "um" | "micron" | "microns" | "\\u00B5m" => Some(1e-3),
+        "mm" => Some(1.0),
+        "cm" => Some(10.0),
+        "m" => Some(1000.0),
+        _ => None,
+    }
+}
+
+/// Opens a single-page TIFF slice for [`super::folder`].
+pub(crate) fn open_page(path: &Path) -> Result<Dec> {
+    open(path)
+}
+pub(crate) fn page_kind_pub(path: &Path, dec: &mut Dec) -> Result<(usize, usize, Kind)> {
+    page_kind(path, 0, dec)
+}
+pub(crate) fn read_page_pub<T: Sample>(path: &Path, dec: &mut Dec, kind: Kind, out: &mut [T], conv: fn(f32) -> T) -> Result<()> {
+    read_page(path, 0, dec, kind, out, conv)
+}
