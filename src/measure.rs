@@ -15,7 +15,8 @@
 //!    band but keeps the sum; the fractions are not clipped, so noise averages out instead of
 //!    biasing the sum.
 //! 5. Wall: along the partition direction from the partition midpoint outward, the distance
-//!    between the upward (lumen → bone) and downward (bone → outside) threshold crossings.
+//!    between the upward (lumen → bone) crossing of the fluid/bone half level and the downward
+//!    crossing of the half level between bone and whatever lies outside the wall.
 
 use crate::centreline::Centreline;
 use crate::cochlea::Greenwood;
@@ -311,7 +312,7 @@ fn section_row(stack: &Stack, cl: &Centreline, g: &SectionGeom, s: &MeasureSetti
         let [sv, st] = scalae;
         row.sv = sv;
         row.st = st;
-        row.wall_mm = wall(stack, g, mid, [d[0] / dn, d[1] / dn], pitch, s.capture_mm, thr);
+        row.wall_mm = wall(stack, g, mid, [d[0] / dn, d[1] / dn], pitch, s.capture_mm, thr, bone);
         if row.wall_mm.is_none() {
             row.flags.push(Flag::NoWall);
         }
@@ -603,7 +604,8 @@ fn outline(img: &Img, field: &[f32], c: [f64; 2]) -> Vec<[f64; 2]> {
 /// Lateral wall thickness (mm) along the partition direction `dir` from `mid` (section
 /// coordinates): the threshold crossing into bone, then the crossing out of it. The profile is
 /// the mean of four lines at ±1 and ±2 pitches off the partition line.
-fn wall(stack: &Stack, g: &SectionGeom, mid: [f64; 2], dir: [f64; 2], pitch: f64, capture: f64, thr: f32) -> Option<f64> {
+#[allow(clippy::too_many_arguments)]
+fn wall(stack: &Stack, g: &SectionGeom, mid: [f64; 2], dir: [f64; 2], pitch: f64, capture: f64, thr: f32, bone: f32) -> Option<f64> {
     let vox = stack.voxel.as_ref()?;
     let inv = vox.mm.map(|x| 1.0 / x);
     let h = 0.5 * pitch;
@@ -618,22 +620,26 @@ fn wall(stack: &Stack, g: &SectionGeom, mid: [f64; 2], dir: [f64; 2], pitch: f64
         }
         acc / 4.0
     }).collect());
-    let cross = |i: usize| -> f64 {
+    let cross = |i: usize, t: f32| -> f64 {
         let (a, b) = (prof[i - 1], prof[i]);
-        ((i - 1) as f64 + ((thr - a) / (b - a)).clamp(0.0, 1.0) as f64) * h
+        ((i - 1) as f64 + ((t - a) / (b - a)).clamp(0.0, 1.0) as f64) * h
     };
     let first_dark = prof.iter().position(|x| x.is_finite() && *x < thr)?;
-    let mut up = None;
-    for i in first_dark + 1..prof.len() {
-        if !prof[i].is_finite() {
-            return None;
-        }
-        match up {
-            None if prof[i] >= thr => up = Some(cross(i)),
-            Some(u) if prof[i] < thr => return Some(cross(i) - u),
-            _ => {}
-        }
+    let up = (first_dark + 1..prof.len()).find(|&i| !prof[i].is_finite() || prof[i] >= thr)?;
+    let down = (up + 1..prof.len()).find(|&i| !prof[i].is_finite() || prof[i] < thr)?;
+    if !prof[up].is_finite() || !prof[down].is_finite() {
+        return None;
     }
-    None
+    // The outer edge's half level lies between bone and what is outside the wall, which need
+    // not be fluid: take that level from the profile two to four voxels beyond the edge.
+    let k = (vox.max() / h).ceil() as usize;
+    let mut outside: Vec<f32> = prof.get(down + 2 * k..(down + 4 * k).min(prof.len()))?.iter().copied().filter(|x| x.is_finite()).collect();
+    if outside.is_empty() {
+        return None;
+    }
+    outside.sort_by(f32::total_cmp);
+    let t_out = (0.5 * (bone + outside[outside.len() / 2])).max(thr);
+    let down = (up + 1..prof.len()).find(|&i| prof[i] < t_out).unwrap_or(down);
+    Some(cross(down, t_out) - cross(up, thr))
 }
 
