@@ -163,7 +163,7 @@ pub fn make_phantom(outdir: &Path, voxel_um: &str, turns: f64, noise: f64, blur:
     let ph = with_progress("phantom", |p| phantom::generate(&spec, p))?;
     phantom::write(&ph, outdir)?;
     eprintln!(
-        "wrote {} ({} × {} × {} voxels), landmarks.csv, truth.csv, truth.json; length {:.3} mm over {:.0}°",
+        "wrote {} ({} × {} × {} voxels), landmarks.csv, truth.csv, truth.json, phantom.ductline.json; length {:.3} mm over {:.0}°",
         outdir.join("phantom.tif").display(),
         ph.stack.dims[0],
         ph.stack.dims[1],

@@ -513,7 +513,8 @@ pub fn truth_section(spec: &PhantomSpec, t: f64, pitch: f64) -> (f64, f64, f64, 
     (sv as f64 * a, st as f64 * a, v3::norm(d), wall)
 }
 
-/// Writes the phantom into `dir`: phantom.tif (OME-TIFF), landmarks.csv, truth.csv, truth.json.
+/// Writes the phantom into `dir`: phantom.tif (OME-TIFF), landmarks.csv, truth.csv, truth.json and
+/// a project (phantom.ductline.json) that opens the stack with its landmarks placed.
 pub fn write(ph: &Phantom, dir: &std::path::Path) -> Result<()> {
     std::fs::create_dir_all(dir).map_err(|e| Error::io(dir, e))?;
     crate::stack::write::write_tiff(&ph.stack, &dir.join("phantom.tif"), crate::stack::write::Packing::Deflate, false)?;
@@ -535,5 +536,9 @@ pub fn write(ph: &Phantom, dir: &std::path::Path) -> Result<()> {
         "spec": ph.spec,
         "note": "truth areas by 5 µm rasterization of planes normal to the analytic partition midline",
     });
-    crate::project::write_atomic(&dir.join("truth.json"), serde_json::to_string_pretty(&json).unwrap_or_default().as_bytes())
+    crate::project::write_atomic(&dir.join("truth.json"), serde_json::to_string_pretty(&json).unwrap_or_default().as_bytes())?;
+    let prj_path = dir.join("phantom.ductline.json");
+    let mut prj = crate::project::Project::new(&dir.join("phantom.tif"), &prj_path)?;
+    prj.landmarks = ph.landmarks.clone();
+    prj.save(&prj_path)
 }

@@ -1,7 +1,720 @@
-//! The desktop app (egui). The only part of ductline that touches the GUI.
+//! The desktop app (egui/eframe): the only part of ductline that touches the GUI.
+//!
+//! Layout: a menu bar; the specimen panel on the left; the tracing view in the middle; the plan
+//! map and the section inspector on the right; the duct profile along the bottom; a status bar.
+//! Panels only emit [`Cmd`]s; [`DuctApp::apply`] is the one place that changes the document,
+//! so undo/redo and "unsaved changes" work the same for every edit.
 
-use std::path::PathBuf;
+pub mod doc;
+mod inspector;
+mod jobs;
+mod plan;
+mod profile;
+mod side;
+#[cfg(test)]
+mod tests;
+pub mod tracing;
 
-pub fn run(_path: Option<PathBuf>) -> anyhow::Result<()> {
-    anyhow::bail!("app not built yet")
+use doc::Doc;
+use ductline::cochlea::Greenwood;
+use ductline::landmarks::{Edit, Kind};
+use ductline::measure::Override;
+use ductline::pipeline::Outcome;
+use ductline::project::{self, Project};
+use ductline::stack::{self, LoadOptions, Stack, VoxelSize};
+use jobs::Job;
+use std::path::{Path, PathBuf};
+use std::sync::mpsc::Receiver;
+use std::time::{Duration, Instant};
+
+/// Colours of the app (its own palette).
+pub mod palette {
+    use ductline::landmarks::Kind;
+    use egui::Color32;
+    pub const VIEW_BG: Color32 = Color32::from_rgb(18, 22, 28);
+    pub const PANEL_BG: Color32 = Color32::from_rgb(24, 29, 36);
+    pub const OUTSIDE: Color32 = Color32::from_rgb(14, 20, 44);
+    pub const LAMINA: Color32 = Color32::from_rgb(232, 163, 61);
+    pub const LIGAMENT: Color32 = Color32::from_rgb(43, 179, 163);
+    pub const AXIS: Color32 = Color32::from_rgb(156, 124, 240);
+    pub const WINDOW: Color32 = Color32::from_rgb(242, 107, 91);
+    pub const CENTRE: Color32 = Color32::from_rgb(215, 227, 107);
+    pub const CUT: Color32 = Color32::from_rgb(120, 200, 255);
+    pub const FLAG: Color32 = Color32::from_rgb(255, 70, 70);
+    pub const WARN: Color32 = Color32::from_rgb(240, 190, 80);
+    pub const SERIES: [Color32; 5] = [
+        Color32::from_rgb(110, 198, 255),
+        Color32::from_rgb(255, 143, 179),
+        Color32::from_rgb(150, 220, 120),
+        Color32::from_rgb(214, 196, 160),
+        Color32::from_rgb(190, 160, 255),
+    ];
+    pub fn kind(k: Kind) -> Color32 {
+        match k {
+            Kind::AxisBase | Kind::AxisApex => AXIS,
+            Kind::Window => WINDOW,
+            Kind::Lamina => LAMINA,
+            Kind::Ligament => LIGAMENT,
+        }
+    }
+}
+
+/// Everything a panel can ask for.
+#[derive(Clone, Debug)]
+pub enum Cmd {
+    Open(PathBuf),
+    OpenDialog,
+    ImportLandmarksDialog,
+    ImportLandmarks(PathBuf),
+    ExportLandmarksDialog,
+    ExportLandmarks(PathBuf),
+    Save,
+    SaveAsDialog,
+    SaveAs(PathBuf),
+    ExportTableDialog,
+    ExportTable(PathBuf),
+    ExportStlDialog,
+    ExportStl(PathBuf),
+    Edit(Edit),
+    Undo,
+    Redo,
+    Refit,
+    Measure,
+    Cancel,
+    GoToAngle(f64),
+    SelectRow(Option<usize>),
+    SetOverride(Override),
+    ClearOverride(f64),
+    SetVoxel(Vec<f64>),
+    Status(String),
+    Recover,
+    DiscardRecovery,
+}
+
+/// A stack (and maybe its project) read in the background.
+pub struct Loaded {
+    stack: Stack,
+    stack_path: PathBuf,
+    project: Option<(Project, PathBuf)>,
+}
+
+#[derive(Clone, Copy, Debug)]
+enum Pending {
+    Open,
+    ImportLandmarks,
+    ExportLandmarks,
+    SaveAs,
+    ExportTable,
+    ExportStl,
+}
+
+pub struct DuctApp {
+    pub doc: Option<Doc>,
+    pub view: Option<tracing::View>,
+    side: side::Side,
+    profile: profile::ProfileState,
+    inspector: inspector::Inspector,
+    pub selected_row: Option<usize>,
+    load: Option<Job<Result<Loaded, String>>>,
+    run: Option<Job<Result<Outcome, String>>>,
+    dialog: Option<(Pending, Receiver<Option<PathBuf>>)>,
+    pub status: String,
+    show_help: bool,
+    show_about: bool,
+    recovery: Option<PathBuf>,
+    last_autosave: Instant,
+    recent: Vec<PathBuf>,
+    /// Where the recent-files list is kept (None: not kept, as in tests).
+    recent_file: Option<PathBuf>,
+}
+
+/// The bundled sample project (next to the sources, or below the working folder).
+pub fn sample_path() -> PathBuf {
+    let rel = Path::new("sample_stacks/cochlea_phantom/phantom.ductline.json");
+    let built = Path::new(env!("CARGO_MANIFEST_DIR")).join(rel);
+    if built.exists() { built } else { rel.to_path_buf() }
+}
+
+fn config_file() -> Option<PathBuf> {
+    let base = std::env::var_os("XDG_CONFIG_HOME").map(PathBuf::from).or_else(|| std::env::var_os("HOME").map(|h| PathBuf::from(h).join(".config")))?;
+    Some(base.join("ductline").join("recent.json"))
+}
+
+/// Opens the app window; `path` (stack, folder or project) or the bundled sample.
+pub fn run(path: Option<PathBuf>) -> anyhow::Result<()> {
+    if std::env::var_os("DISPLAY").is_none() && std::env::var_os("WAYLAND_DISPLAY").is_none() {
+        anyhow::bail!("no display (DISPLAY/WAYLAND_DISPLAY unset): the desktop app needs X11 or Wayland; the command line (inspect, phantom, measure) works without one");
+    }
+    let path = path.unwrap_or_else(sample_path);
+    let options = eframe::NativeOptions {
+        viewport: egui::ViewportBuilder::default().with_inner_size([1480.0, 920.0]).with_min_inner_size([900.0, 600.0]).with_title("ductline"),
+        ..Default::default()
+    };
+    eframe::run_native("ductline", options, Box::new(move |_cc| Ok(Box::new(DuctApp::new(Some(path), config_file())))))
+        .map_err(|e| anyhow::anyhow!("cannot open the app window: {e}"))
+}
+
+impl DuctApp {
+    pub fn new(open: Option<PathBuf>, recent_file: Option<PathBuf>) -> DuctApp {
+        let recent = recent_file.as_ref().and_then(|f| std::fs::read_to_string(f).ok()).and_then(|t| serde_json::from_str(&t).ok()).unwrap_or_default();
+        let mut app = DuctApp {
+            doc: None,
+            view: None,
+            side: side::Side::default(),
+            profile: profile::ProfileState::default(),
+            inspector: inspector::Inspector::default(),
+            selected_row: None,
+            load: None,
+            run: None,
+            dialog: None,
+            status: "Ready. Open a stack, slice folder or project (ctrl+O, or drop it here).".into(),
+            show_help: false,
+            show_about: false,
+            recovery: None,
+            last_autosave: Instant::now(),
+            recent,
+            recent_file,
+        };
+        if let Some(p) = open {
+            app.apply(Cmd::Open(p));
+        }
+        app
+    }
+
+    /// True while loading or measuring.
+    pub fn busy(&self) -> bool {
+        self.load.is_some() || self.run.is_some()
+    }
+
+    /// Finishes background work whose result has arrived.
+    pub fn poll(&mut self) {
+        if let Some(res) = self.load.as_ref().and_then(|j| j.poll()) {
+            self.load = None;
+            match res {
+                Ok(l) => self.loaded(l),
+                Err(e) => self.status = format!("error: {e}"),
+            }
+        }
+        if let Some(res) = self.run.as_ref().and_then(|j| j.poll()) {
+            self.run = None;
+            match (res, &mut self.doc) {
+                (Ok(out), Some(doc)) => {
+                    self.status = out.summary();
+                    doc.outcome = Some(out);
+                    doc.stale = false;
+                    self.selected_row = self.selected_row.or(Some(0));
+                }
+                (Err(e), _) => self.status = format!("measure stopped: {e}"),
+                _ => {}
+            }
+        }
+        if let Some((what, rx)) = &self.dialog {
+            if let Ok(res) = rx.try_recv() {
+                let what = *what;
+                self.dialog = None;
+                if let Some(p) = res {
+                    self.apply(match what {
+                        Pending::Open => Cmd::Open(p),
+                        Pending::ImportLandmarks => Cmd::ImportLandmarks(p),
+                        Pending::ExportLandmarks => Cmd::ExportLandmarks(p),
+                        Pending::SaveAs => Cmd::SaveAs(p),
+                        Pending::ExportTable => Cmd::ExportTable(p),
+                        Pending::ExportStl => Cmd::ExportStl(p),
+                    });
+                }
+            }
+        }
+    }
+
+    fn loaded(&mut self, l: Loaded) {
+        let mut doc = Doc::new(l.stack, l.stack_path.clone());
+        let mut msg = format!("opened {}", l.stack_path.display());
+        if let Some((p, path)) = l.project {
+            if let Some(w) = p.stack_changed(&path) {
+                msg = format!("warning: {w}");
+            }
+            doc = doc.with_project(p, Some(path));
+        }
+        for w in &doc.stack.warnings {
+            msg = format!("warning: {w}");
+        }
+        if doc.stack.voxel.is_none() {
+            msg = "The file gives no voxel size: enter it in the specimen panel.".into();
+        }
+        let auto = doc.autosave_path();
+        let newer = |a: &Path, b: &Path| match (std::fs::metadata(a).and_then(|m| m.modified()), std::fs::metadata(b).and_then(|m| m.modified())) {
+            (Ok(x), Ok(y)) => x > y,
+            (Ok(_), Err(_)) => true,
+            _ => false,
+        };
+        if auto.exists() && doc.project_path.as_deref().is_none_or(|p| newer(&auto, p)) {
+            self.recovery = Some(auto);
+        }
+        self.view = Some(tracing::View::new(&doc.stack));
+        self.doc = Some(doc);
+        self.selected_row = None;
+        self.status = msg;
+    }
+
+    fn remember(&mut self, p: &Path) {
+        let p = std::path::absolute(p).unwrap_or_else(|_| p.to_path_buf());
+        self.recent.retain(|x| x != &p);
+        self.recent.insert(0, p);
+        self.recent.truncate(10);
+        if let Some(f) = &self.recent_file {
+            if let Some(d) = f.parent() {
+                let _ = std::fs::create_dir_all(d);
+            }
+            let _ = project::write_atomic(f, serde_json::to_string_pretty(&self.recent).unwrap_or_default().as_bytes());
+        }
+    }
+
+    fn ask(&mut self, what: Pending) {
+        if self.dialog.is_some() {
+            return;
+        }
+        let start = self.doc.as_ref().and_then(|d| d.project_path.clone().or(Some(d.stack_path.clone()))).and_then(|p| p.parent().map(Path::to_path_buf));
+        let rx = jobs::dialog(move || {
+            let mut d = rfd::FileDialog::new();
+            if let Some(s) = start {
+                d = d.set_directory(s);
+            }
+            match what {
+                Pending::Open => d.add_filter("stack or project", &["tif", "tiff", "json", "png"]).pick_file(),
+                Pending::ImportLandmarks => d.add_filter("landmarks", &["csv"]).pick_file(),
+                Pending::ExportLandmarks => d.set_file_name("landmarks.csv").save_file(),
+                Pending::SaveAs => d.set_file_name("specimen.ductline.json").save_file(),
+                Pending::ExportTable => d.set_file_name("geometry.csv").add_filter("CSV or JSON table", &["csv", "json"]).save_file(),
+                Pending::ExportStl => d.pick_folder(),
+            }
+        });
+        self.dialog = Some((what, rx));
+    }
+
+    /// The one place that changes the document.
+    pub fn apply(&mut self, cmd: Cmd) {
+        match cmd {
+            Cmd::Open(p) => {
+                if self.busy() {
+                    self.status = "busy: wait for the running work or cancel it".into();
+                    return;
+                }
+                self.remember(&p);
+                self.status = format!("loading {}", p.display());
+                let max = None;
+                self.load = Some(Job::spawn("loading", move |prog| load(&p, max, prog)));
+            }
+            Cmd::OpenDialog => self.ask(Pending::Open),
+            Cmd::ImportLandmarksDialog => self.ask(Pending::ImportLandmarks),
+            Cmd::ExportLandmarksDialog => self.ask(Pending::ExportLandmarks),
+            Cmd::SaveAsDialog => self.ask(Pending::SaveAs),
+            Cmd::ExportTableDialog => self.ask(Pending::ExportTable),
+            Cmd::ExportStlDialog => self.ask(Pending::ExportStl),
+            Cmd::Status(s) => self.status = s,
+            Cmd::GoToAngle(a) => {
+                if let Some(v) = &mut self.view {
+                    v.plane = tracing::Plane::Radial;
+                    v.angle_deg = a;
+                }
+            }
+            Cmd::Cancel => {
+                for p in [self.load.as_ref().map(|j| &j.progress), self.run.as_ref().map(|j| &j.progress)].into_iter().flatten() {
+                    p.cancel();
+                }
+            }
+            Cmd::Recover => {
+                if let (Some(path), Some(doc)) = (self.recovery.take(), self.doc.as_mut()) {
+                    match Project::load(&path) {
+                        Ok(p) => {
+                            let keep = doc.project_path.clone();
+                            let stack = (*doc.stack).clone();
+                            let mut d = Doc::new(stack, doc.stack_path.clone()).with_project(p, keep);
+                            d.dirty = true;
+                            *doc = d;
+                            self.status = format!("recovered unsaved work from {}", path.display());
+                        }
+                        Err(e) => self.status = format!("error: {e}"),
+                    }
+                }
+            }
+            Cmd::DiscardRecovery => {
+                if let Some(p) = self.recovery.take() {
+                    let _ = std::fs::remove_file(p);
+                }
+            }
+            other => self.apply_doc(other),
+        }
+    }
+
+    fn apply_doc(&mut self, cmd: Cmd) {
+        let Some(doc) = self.doc.as_mut() else {
+            self.status = "open a stack first".into();
+            return;
+        };
+        let result: Result<String, String> = match cmd {
+            Cmd::Edit(e) => doc.lms.apply(e).map(|_| String::new()).map_err(|e| e.to_string()),
+            Cmd::Undo => Ok(if doc.lms.undo() { "undone".into() } else { "nothing to undo".into() }),
+            Cmd::Redo => Ok(if doc.lms.redo() { "redone".into() } else { "nothing to redo".into() }),
+            Cmd::Refit => Ok(String::new()),
+            Cmd::ImportLandmarks(p) => ductline::landmarks::read_csv(&p, Some(&doc.stack)).map_err(|e| e.to_string()).map(|items| {
+                let n = items.len();
+                for lm in items {
+                    doc.lms.add(lm);
+                }
+                format!("imported {n} landmarks from {}", p.display())
+            }),
+            Cmd::ExportLandmarks(p) => ductline::landmarks::write_csv(&p, &doc.lms.items).map(|_| format!("wrote {}", p.display())).map_err(|e| e.to_string()),
+            Cmd::Save => match doc.project_path.clone() {
+                Some(p) => save(doc, &p),
+                None => {
+                    self.ask(Pending::SaveAs);
+                    return;
+                }
+            },
+            Cmd::SaveAs(p) => {
+                let old = doc.autosave_path();
+                doc.project_path = Some(p.clone());
+                let r = save(doc, &p);
+                if r.is_ok() {
+                    let _ = std::fs::remove_file(old);
+                }
+                r
+            }
+            Cmd::ExportTable(p) => export_table(doc, &p),
+            Cmd::ExportStl(dir) => match &doc.outcome {
+                Some(out) => ductline::export::write_stl(out, &dir).map(|w| format!("wrote {} surfaces into {}", w.len(), dir.display())).map_err(|e| e.to_string()),
+                None => Err("measure first".into()),
+            },
+            Cmd::Measure => {
+                let gw = Greenwood::preset(&doc.species).map_err(|e| e.to_string());
+                match gw {
+                    Ok(gw) => {
+                        let (st, items, fit, ms, ov) = (doc.stack.clone(), doc.lms.items.clone(), doc.fit.clone(), doc.measure.clone(), doc.overrides.clone());
+                        self.run = Some(Job::spawn("measuring", move |p| ductline::pipeline::run(&st, &items, &fit, &ms, &ov, &gw, p).map_err(|e| e.to_string())));
+                        Ok("measuring…".into())
+                    }
+                    Err(e) => Err(e),
+                }
+            }
+            Cmd::SelectRow(i) => {
+                self.selected_row = i;
+                Ok(String::new())
+            }
+            Cmd::SetOverride(o) => {
+                doc.overrides.retain(|x| (x.s_mm - o.s_mm).abs() > 1e-9);
+                doc.overrides.push(o);
+                doc.stale = true;
+                doc.dirty = true;
+                Ok("section override set: measure again to apply it".into())
+            }
+            Cmd::ClearOverride(s) => {
+                doc.overrides.retain(|x| (x.s_mm - s).abs() > 1e-9);
+                doc.stale = true;
+                doc.dirty = true;
+                Ok("section override cleared".into())
+            }
+            Cmd::SetVoxel(v) => VoxelSize::from_user_um(&v).map(|v| {
+                let d = v.describe();
+                doc.set_voxel(v);
+                if let Some(view) = &mut self.view {
+                    *view = tracing::View::new(&doc.stack);
+                }
+                format!("voxel size set to {d}")
+            }).map_err(|e| e.to_string()),
+            _ => Ok(String::new()),
+        };
+        match result {
+            Ok(s) => {
+                if !s.is_empty() {
+                    self.status = s;
+                }
+            }
+            Err(e) => self.status = format!("error: {e}"),
+        }
+    }
+
+    /// Shortcuts and dropped files.
+    fn input(&mut self, ctx: &egui::Context) -> Vec<Cmd> {
+        use egui::{Key, Modifiers};
+        let mut cmds = vec![];
+        let dropped: Vec<PathBuf> = ctx.input(|i| i.raw.dropped_files.iter().map(|f| f.path().to_path_buf()).filter(|p| !p.as_os_str().is_empty()).collect());
+        if let Some(p) = dropped.into_iter().next() {
+            cmds.push(Cmd::Open(p));
+        }
+        if ctx.egui_wants_keyboard_input() {
+            return cmds;
+        }
+        ctx.input_mut(|i| {
+            if i.consume_key(Modifiers::COMMAND | Modifiers::SHIFT, Key::Z) || i.consume_key(Modifiers::COMMAND, Key::Y) {
+                cmds.push(Cmd::Redo);
+            }
+            if i.consume_key(Modifiers::COMMAND, Key::Z) {
+                cmds.push(Cmd::Undo);
+            }
+            if i.consume_key(Modifiers::COMMAND, Key::S) {
+                cmds.push(Cmd::Save);
+            }
+            if i.consume_key(Modifiers::COMMAND, Key::O) {
+                cmds.push(Cmd::OpenDialog);
+            }
+            if i.consume_key(Modifiers::NONE, Key::F1) {
+                self.show_help = !self.show_help;
+            }
+            for (k, kind) in [Key::Num1, Key::Num2, Key::Num3, Key::Num4, Key::Num5].into_iter().zip(Kind::ALL) {
+                if i.consume_key(Modifiers::NONE, k) {
+                    if let Some(v) = &mut self.view {
+                        v.active = kind;
+                    }
+                }
+            }
+            if i.consume_key(Modifiers::NONE, Key::Delete) || i.consume_key(Modifiers::NONE, Key::Backspace) {
+                if let Some(v) = &mut self.view {
+                    if let Some(idx) = v.selected.take() {
+                        cmds.push(Cmd::Edit(Edit::Delete { index: idx }));
+                    }
+                }
+            }
+        });
+        cmds
+    }
+
+    fn autosave(&mut self, force: bool) {
+        let Some(doc) = &mut self.doc else { return };
+        if !doc.dirty || (!force && self.last_autosave.elapsed() < Duration::from_secs(30)) {
+            return;
+        }
+        self.last_autosave = Instant::now();
+        let path = doc.autosave_path();
+        match doc.to_project(&path).and_then(|p| p.save(&path)) {
+            Ok(()) => {}
+            Err(e) => self.status = format!("autosave failed: {e}"),
+        }
+    }
+
+    fn menu_ui(&mut self, ui: &mut egui::Ui) -> Vec<Cmd> {
+        let mut cmds = vec![];
+        egui::MenuBar::new().ui(ui, |ui| {
+            ui.menu_button("Specimen", |ui| {
+                if ui.button("Open stack or project…  (ctrl+O)").clicked() {
+                    cmds.push(Cmd::OpenDialog);
+                }
+                ui.menu_button("Recent", |ui| {
+                    for p in self.recent.clone() {
+                        if ui.button(p.display().to_string()).clicked() {
+                            cmds.push(Cmd::Open(p));
+                        }
+                    }
+                });
+                if ui.button("Open the bundled sample").clicked() {
+                    cmds.push(Cmd::Open(sample_path()));
+                }
+                ui.separator();
+                if ui.button("Save project  (ctrl+S)").clicked() {
+                    cmds.push(Cmd::Save);
+                }
+                if ui.button("Save project as…").clicked() {
+                    cmds.push(Cmd::SaveAsDialog);
+                }
+                ui.separator();
+                if ui.button("Import landmarks (CSV)…").clicked() {
+                    cmds.push(Cmd::ImportLandmarksDialog);
+                }
+                if ui.button("Export landmarks (CSV)…").clicked() {
+                    cmds.push(Cmd::ExportLandmarksDialog);
+                }
+                if ui.button("Export geometry table (CSV/JSON)…").clicked() {
+                    cmds.push(Cmd::ExportTableDialog);
+                }
+                if ui.button("Export lumen surfaces (STL)…").clicked() {
+                    cmds.push(Cmd::ExportStlDialog);
+                }
+            });
+            ui.menu_button("Edit", |ui| {
+                let (u, r) = self.doc.as_ref().map(|d| (d.lms.can_undo(), d.lms.can_redo())).unwrap_or((false, false));
+                if ui.add_enabled(u, egui::Button::new("Undo  (ctrl+Z)")).clicked() {
+                    cmds.push(Cmd::Undo);
+                }
+                if ui.add_enabled(r, egui::Button::new("Redo  (ctrl+shift+Z)")).clicked() {
+                    cmds.push(Cmd::Redo);
+                }
+            });
+            ui.menu_button("Help", |ui| {
+                if ui.button("Shortcuts  (F1)").clicked() {
+                    self.show_help = true;
+                }
+                if ui.button("About ductline").clicked() {
+                    self.show_about = true;
+                }
+            });
+        });
+        cmds
+    }
+
+    fn status_ui(&self, ui: &mut egui::Ui) {
+        ui.horizontal(|ui| {
+            if let Some(h) = self.view.as_ref().and_then(|v| v.hover.as_ref()) {
+                ui.monospace(format!("x {:.3}  y {:.3}  z {:.3} mm", h.p[0], h.p[1], h.p[2]));
+                if let Some(c) = h.cochlear {
+                    ui.monospace(format!("│ r {:.3} mm  θ {:.1}°  h {:.3} mm", c[0], c[1], c[2]));
+                }
+                ui.monospace(format!("│ value {}", if h.value.is_nan() { "—".to_string() } else { format!("{:.1}", h.value) }));
+                ui.separator();
+            }
+            ui.label(&self.status);
+        });
+    }
+
+    fn windows_ui(&mut self, ctx: &egui::Context) -> Vec<Cmd> {
+        let mut cmds = vec![];
+        egui::Window::new("Shortcuts").open(&mut self.show_help).collapsible(false).show(ctx, |ui| {
+            egui::Grid::new("keys").num_columns(2).striped(true).show(ui, |ui| {
+                for (k, what) in [
+                    ("click", "place a landmark of the active kind"),
+                    ("drag a mark", "move it"),
+                    ("right-click a mark", "delete it"),
+                    ("Delete", "delete the selected landmark"),
+                    ("1 … 5", "active kind: axis_base, axis_apex, window, lamina, ligament"),
+                    ("wheel", "next slice, or 2° on the radial cut"),
+                    ("ctrl+wheel", "zoom"),
+                    ("drag", "pan"),
+                    ("ctrl+Z / ctrl+shift+Z", "undo / redo"),
+                    ("ctrl+S", "save the project"),
+                    ("ctrl+O", "open a stack, slice folder or project"),
+                    ("F1", "this list"),
+                ] {
+                    ui.monospace(k);
+                    ui.label(what);
+                    ui.end_row();
+                }
+            });
+        });
+        egui::Window::new("About ductline").open(&mut self.show_about).collapsible(false).show(ctx, |ui| {
+            ui.heading(format!("ductline {}", ductline::VERSION));
+            ui.label("Cochlear duct geometry from micro-CT stacks: trace the partition, measure every cross-section, export solver tables and lumen surfaces.");
+            ui.separator();
+            ui.colored_label(palette::WARN, ductline::CAUTION);
+        });
+        if let Some(p) = &self.recovery {
+            let text = format!("Unsaved work from an earlier session was kept in\n{}\nRecover it?", p.display());
+            egui::Modal::new(egui::Id::unique("recover")).show(ctx, |ui| {
+                ui.label(text);
+                ui.horizontal(|ui| {
+                    if ui.button("Recover").clicked() {
+                        cmds.push(Cmd::Recover);
+                    }
+                    if ui.button("Discard").clicked() {
+                        cmds.push(Cmd::DiscardRecovery);
+                    }
+                });
+            });
+        }
+        cmds
+    }
+
+    /// One frame of the whole app.
+    pub fn frame_ui(&mut self, ui: &mut egui::Ui) {
+        self.poll();
+        let ctx = ui.ctx().clone();
+        let mut cmds = self.input(&ctx);
+        egui::Panel::top("menu").show(ui, |ui| cmds.extend(self.menu_ui(ui)));
+        egui::Panel::bottom("status").show(ui, |ui| self.status_ui(ui));
+        let running = self.run.as_ref().or(None).map(|j| (j.label.clone(), j.progress.fraction())).or_else(|| self.load.as_ref().map(|j| (j.label.clone(), j.progress.fraction())));
+        if let (Some(doc), Some(view)) = (self.doc.as_mut(), self.view.as_mut()) {
+            egui::Panel::left("specimen").default_size(300.0).resizable(true).show(ui, |ui| cmds.extend(self.side.side_ui(ui, doc, view, running.clone())));
+            egui::Panel::right("plan-and-section").default_size(340.0).resizable(true).show(ui, |ui| {
+                ui.strong("Plan map");
+                cmds.extend(plan::plan_ui(ui, doc, view.angle_deg));
+                ui.separator();
+                ui.strong("Section inspector");
+                cmds.extend(self.inspector.inspector_ui(ui, doc, self.selected_row));
+            });
+            egui::Panel::bottom("profile").default_size(240.0).resizable(true).show(ui, |ui| {
+                ui.strong("Duct profile");
+                let rows = doc.outcome.as_ref().map(|o| o.rows.as_slice()).unwrap_or(&[]);
+                cmds.extend(profile::profile_ui(ui, &mut self.profile, rows, self.selected_row));
+            });
+            egui::CentralPanel::default().show(ui, |ui| cmds.extend(view.tracing_ui(ui, doc)));
+        } else {
+            egui::CentralPanel::default().show(ui, |ui| {
+                ui.vertical_centered(|ui| {
+                    ui.add_space(80.0);
+                    ui.heading("ductline");
+                    ui.label("Open a micro-CT stack (multi-page TIFF), a folder of slices or a project: ctrl+O, the Specimen menu, or drop it here.");
+                    if let Some((label, f)) = &running {
+                        ui.add(egui::ProgressBar::new(*f).text(format!("{label} {:.0}%", f * 100.0)).desired_width(320.0));
+                        if ui.button("Cancel").clicked() {
+                            cmds.push(Cmd::Cancel);
+                        }
+                    }
+                    if ui.button("Open the bundled sample").clicked() {
+                        cmds.push(Cmd::Open(sample_path()));
+                    }
+                    ui.add_space(20.0);
+                    ui.small(ductline::CAUTION);
+                });
+            });
+        }
+        cmds.extend(self.windows_ui(&ctx));
+        for c in cmds {
+            let edits = matches!(c, Cmd::Edit(_) | Cmd::Undo | Cmd::Redo | Cmd::Refit | Cmd::ImportLandmarks(_));
+            self.apply(c);
+            if edits {
+                if let Some(d) = &mut self.doc {
+                    d.refit();
+                    d.dirty = true;
+                }
+            }
+        }
+        if ctx.input(|i| i.viewport().close_requested()) {
+            self.autosave(true);
+        }
+        self.autosave(false);
+        if self.busy() || self.dialog.is_some() {
+            ctx.request_repaint_after(Duration::from_millis(100));
+        }
+    }
+}
+
+impl eframe::App for DuctApp {
+    fn ui(&mut self, ui: &mut egui::Ui, _frame: &mut eframe::Frame) {
+        self.frame_ui(ui);
+    }
+}
+
+/// Loads a stack, or a project and its stack (background thread).
+fn load(p: &Path, max_bytes: Option<u64>, prog: &ductline::progress::Progress) -> Result<Loaded, String> {
+    let is_project = p.extension().is_some_and(|e| e.eq_ignore_ascii_case("json"));
+    let (stack_path, project) = if is_project {
+        let prj = Project::load(p).map_err(|e| e.to_string())?;
+        (prj.stack_path(p), Some((prj, p.to_path_buf())))
+    } else {
+        (p.to_path_buf(), None)
+    };
+    let voxel = project.as_ref().and_then(|(prj, _)| prj.voxel_um).map(|um| VoxelSize::from_user_um(&um)).transpose().map_err(|e| e.to_string())?;
+    let opts = LoadOptions { voxel, max_bytes, ..Default::default() };
+    let stack = stack::load_with_progress(&stack_path, &opts, prog).map_err(|e| e.to_string())?;
+    Ok(Loaded { stack, stack_path, project })
+}
+
+fn save(doc: &mut Doc, p: &Path) -> Result<String, String> {
+    let prj = doc.to_project(p).map_err(|e| e.to_string())?;
+    prj.save(p).map_err(|e| e.to_string())?;
+    doc.dirty = false;
+    let _ = std::fs::remove_file(doc.autosave_path());
+    Ok(format!("saved {}", p.display()))
+}
+
+fn export_table(doc: &Doc, p: &Path) -> Result<String, String> {
+    let Some(out) = &doc.outcome else { return Err("measure first".into()) };
+    let json = p.extension().is_some_and(|e| e.eq_ignore_ascii_case("json"));
+    let bytes = if json {
+        let vox = doc.stack.voxel.as_ref().ok_or("no voxel size")?;
+        let size = std::fs::metadata(&doc.stack_path).map(|m| m.len()).unwrap_or(0);
+        let prov = ductline::export::Provenance { stack_path: &doc.stack_path, stack_bytes: size, voxel: vox, fit: &doc.fit, measure: &doc.measure };
+        serde_json::to_string_pretty(&ductline::export::table_json(out, &prov)).map_err(|e| e.to_string())?.into_bytes()
+    } else {
+        ductline::export::table_csv(&out.rows).into_bytes()
+    };
+    project::write_atomic(p, &bytes).map_err(|e| e.to_string())?;
+    Ok(format!("wrote {}", p.display()))
 }

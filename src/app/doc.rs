@@ -1,0 +1,128 @@
+//! The open specimen: the stack, the landmarks with their history, settings and results.
+//! Serialisable state lives in [`ductline::project::Project`]; this adds what is derived.
+
+use ductline::centreline::{Centreline, FitSettings};
+use ductline::landmarks::LandmarkSet;
+use ductline::measure::{MeasureSettings, Override};
+use ductline::pipeline::{self, Outcome};
+use ductline::project::Project;
+use ductline::stack::{Stack, VoxelSize};
+use std::path::{Path, PathBuf};
+use std::sync::Arc;
+
+pub struct Doc {
+    pub stack: Arc<Stack>,
+    pub stack_path: PathBuf,
+    pub project_path: Option<PathBuf>,
+    pub lms: LandmarkSet,
+    pub fit: FitSettings,
+    pub measure: MeasureSettings,
+    pub species: String,
+    pub overrides: Vec<Override>,
+    /// The centreline fitted to the current landmarks, or why it cannot be.
+    pub fitted: Result<Centreline, String>,
+    pub outcome: Option<Outcome>,
+    /// Landmarks or settings changed since the last measure.
+    pub stale: bool,
+    /// Unsaved changes.
+    pub dirty: bool,
+    pub range: (f32, f32),
+    /// Display window: grey values mapped to black and white.
+    pub window: [f32; 2],
+    /// The voxel size was given by the user (kept in the project).
+    pub user_voxel: bool,
+}
+
+impl Doc {
+    pub fn new(stack: Stack, stack_path: PathBuf) -> Doc {
+        let range = stack.value_range();
+        let window = auto_window(&stack);
+        let mut d = Doc {
+            stack: Arc::new(stack),
+            stack_path,
+            project_path: None,
+            lms: LandmarkSet::default(),
+            fit: FitSettings::default(),
+            measure: MeasureSettings::default(),
+            species: "human".into(),
+            overrides: vec![],
+            fitted: Err(String::new()),
+            outcome: None,
+            stale: true,
+            dirty: false,
+            range,
+            window,
+            user_voxel: false,
+        };
+        d.refit();
+        d
+    }
+
+    /// Takes landmarks and settings from a project.
+    pub fn with_project(mut self, p: Project, path: Option<PathBuf>) -> Doc {
+        self.lms = LandmarkSet::new(p.landmarks);
+        self.fit = p.fit;
+        self.measure = p.measure;
+        self.species = p.species;
+        self.overrides = p.overrides;
+        self.user_voxel = p.voxel_um.is_some();
+        self.project_path = path;
+        self.refit();
+        self
+    }
+
+    pub fn to_project(&self, project_path: &Path) -> ductline::Result<Project> {
+        let mut p = Project::new(&self.stack_path, project_path)?;
+        p.voxel_um = if self.user_voxel { self.stack.voxel.as_ref().map(|v| v.mm.map(|x| x * 1000.0)) } else { None };
+        p.species = self.species.clone();
+        p.landmarks = self.lms.items.clone();
+        p.fit = self.fit.clone();
+        p.measure = self.measure.clone();
+        p.overrides = self.overrides.clone();
+        Ok(p)
+    }
+
+    /// Refits the centreline after any landmark or fit-setting change (fast: milliseconds).
+    pub fn refit(&mut self) {
+        self.fitted = pipeline::fit(&self.lms.items, &self.fit).map_err(|e| e.to_string());
+        self.stale = true;
+    }
+
+    pub fn set_voxel(&mut self, v: VoxelSize) {
+        let mut st = (*self.stack).clone();
+        st.voxel = Some(v);
+        self.stack = Arc::new(st);
+        self.user_voxel = true;
+        self.dirty = true;
+        self.outcome = None;
+    }
+
+    /// Where unsaved work is kept every 30 s: beside the project, or beside the stack.
+    pub fn autosave_path(&self) -> PathBuf {
+        autosave_path(self.project_path.as_deref(), &self.stack_path)
+    }
+}
+
+pub fn autosave_path(project: Option<&Path>, stack: &Path) -> PathBuf {
+    match project {
+        Some(p) => p.with_extension("autosave.json"),
+        None => {
+            let stem = stack.file_stem().map(|s| s.to_string_lossy().to_string()).unwrap_or_else(|| "stack".into());
+            stack.parent().unwrap_or(Path::new(".")).join(format!("{stem}.ductline-autosave.json"))
+        }
+    }
+}
+
+/// Window from the 0.5 and 99.5 percentiles of a sample of the voxels.
+pub fn auto_window(stack: &Stack) -> [f32; 2] {
+    let n = stack.samples.len();
+    let step = (n / 200_000).max(1);
+    let mut v: Vec<f32> = (0..n).step_by(step).map(|i| stack.samples.get(i)).filter(|x| x.is_finite()).collect();
+    if v.is_empty() {
+        return [0.0, 1.0];
+    }
+    v.sort_by(f32::total_cmp);
+    let lo = v[v.len() / 200];
+    let hi = v[v.len() - 1 - v.len() / 200];
+    if hi > lo { [lo, hi] } else { [lo, lo + 1.0] }
+}

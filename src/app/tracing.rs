@@ -1,0 +1,357 @@
+//! The tracing view: a stack plane (constant i, j or k) or the radial cut through the modiolar
+//! axis at an angle, with landmarks and fitted curves drawn where they meet the plane.
+
+use super::doc::Doc;
+use super::{Cmd, palette};
+use ductline::frame::{v3, v3::V};
+use ductline::landmarks::{Edit, Kind, Landmark};
+use ductline::section::{self, Grid};
+use ductline::stack::Stack;
+use egui::{Color32, Pos2, Rect, Sense, Stroke, Vec2, pos2, vec2};
+
+#[derive(Clone, Copy, Debug, PartialEq)]
+pub enum Plane {
+    /// Constant index along stack axis 0 (i), 1 (j) or 2 (k).
+    Slice(usize),
+    /// Through the modiolar axis at `View::angle_deg`.
+    Radial,
+}
+
+/// A plane image: sample (a, b) lies at origin + a·du + b·dv (stack mm).
+#[derive(Clone, Debug)]
+pub struct PlaneMap {
+    pub origin: V,
+    pub du: V,
+    pub dv: V,
+    pub nu: usize,
+    pub nv: usize,
+}
+
+impl PlaneMap {
+    pub fn point(&self, a: f64, b: f64) -> V {
+        v3::axpy(v3::axpy(self.origin, a, self.du), b, self.dv)
+    }
+    /// (a, b, distance from the plane in mm) of a stack point.
+    pub fn project(&self, p: V) -> (f64, f64, f64) {
+        let d = v3::sub(p, self.origin);
+        let n = v3::unit(v3::cross(self.du, self.dv));
+        (v3::dot(d, self.du) / v3::dot(self.du, self.du), v3::dot(d, self.dv) / v3::dot(self.dv, self.dv), v3::dot(d, n))
+    }
+}
+
+/// What the cursor is over, for the status bar.
+#[derive(Clone, Debug, Default)]
+pub struct Hover {
+    pub p: V,
+    pub cochlear: Option<[f64; 3]>,
+    pub value: f32,
+}
+
+pub struct View {
+    pub plane: Plane,
+    pub index: [usize; 3],
+    pub angle_deg: f64,
+    pub zoom: f32,
+    pub pan: Vec2,
+    pub active: Kind,
+    pub selected: Option<usize>,
+    drag: Option<(usize, V)>,
+    pub hover: Option<Hover>,
+    cache: Option<(String, PlaneMap, Vec<f32>)>,
+    tex: Option<(String, egui::TextureHandle)>,
+}
+
+impl View {
+    pub fn new(stack: &Stack) -> View {
+        View {
+            plane: Plane::Slice(2),
+            index: stack.dims.map(|n| n / 2),
+            angle_deg: 0.0,
+            zoom: 1.0,
+            pan: Vec2::ZERO,
+            active: Kind::Lamina,
+            selected: None,
+            drag: None,
+            hover: None,
+            cache: None,
+            tex: None,
+        }
+    }
+
+    /// The plane geometry for the current view; None for the radial cut before a frame exists.
+    pub fn plane_map(&self, doc: &Doc) -> Option<PlaneMap> {
+        let st = &doc.stack;
+        let v = st.voxel.as_ref()?.mm;
+        let [nx, ny, nz] = st.dims;
+        Some(match self.plane {
+            Plane::Slice(2) => PlaneMap { origin: [0.0, 0.0, self.index[2] as f64 * v[2]], du: [v[0], 0.0, 0.0], dv: [0.0, v[1], 0.0], nu: nx, nv: ny },
+            Plane::Slice(1) => PlaneMap { origin: [0.0, self.index[1] as f64 * v[1], 0.0], du: [v[0], 0.0, 0.0], dv: [0.0, 0.0, v[2]], nu: nx, nv: nz },
+            Plane::Slice(_) => PlaneMap { origin: [self.index[0] as f64 * v[0], 0.0, 0.0], du: [0.0, v[1], 0.0], dv: [0.0, 0.0, v[2]], nu: ny, nv: nz },
+            Plane::Radial => {
+                let frame = match &doc.fitted {
+                    Ok(c) => c.frame.clone(),
+                    Err(_) => ductline::landmarks::frame_from(&doc.lms.items).ok()?,
+                };
+                let (o, er, ez) = frame.radial_plane(self.angle_deg);
+                let ext = st.extent_mm().ok()?;
+                // radial and axial reach: the farthest stack corner from the origin
+                let mut reach: f64 = 0.0;
+                for c in 0..8 {
+                    let p = [if c & 1 == 0 { 0.0 } else { ext[0] }, if c & 2 == 0 { 0.0 } else { ext[1] }, if c & 4 == 0 { 0.0 } else { ext[2] }];
+                    reach = reach.max(v3::dist(p, o));
+                }
+                let pitch = (v[0].min(v[1]).min(v[2])).max(2.0 * reach / 1024.0);
+                let n = (2.0 * reach / pitch) as usize;
+                PlaneMap { origin: v3::axpy(v3::axpy(o, -reach, er), reach, ez), du: v3::scale(er, pitch), dv: v3::scale(ez, -pitch), nu: n, nv: n }
+            }
+        })
+    }
+
+    fn key(&self, map: &PlaneMap) -> String {
+        format!("{:?} {:?} {:.6} {:?}", self.plane, self.index, self.angle_deg, map.origin)
+    }
+
+    /// Draws the view and returns the commands it emits.
+    pub fn tracing_ui(&mut self, ui: &mut egui::Ui, doc: &Doc) -> Vec<Cmd> {
+        let mut cmds = vec![];
+        self.toolbar_ui(ui, doc);
+        let Some(map) = self.plane_map(doc) else {
+            ui.centered_and_justified(|ui| ui.label("The radial cut needs the frame: place axis_base, axis_apex and window first."));
+            return cmds;
+        };
+        let key = self.key(&map);
+        if self.cache.as_ref().map(|c| &c.0) != Some(&key) {
+            let vals = plane_values(&doc.stack, &self.plane, self.index, &map);
+            self.cache = Some((key.clone(), map.clone(), vals));
+            self.tex = None;
+        }
+        let tex_key = format!("{key} {:?}", doc.window);
+        if self.tex.as_ref().map(|t| &t.0) != Some(&tex_key) {
+            let (_, m, vals) = self.cache.as_ref().expect("cache filled above");
+            let img = egui::ColorImage::new([m.nu, m.nv], to_rgba(vals, doc.window));
+            self.tex = Some((tex_key, ui.ctx().load_texture("tracing-plane", img, egui::TextureOptions::NEAREST)));
+        }
+        let avail = ui.available_size();
+        let (rect, resp) = ui.allocate_exact_size(avail, Sense::click_and_drag());
+        resp.widget_info(|| egui::WidgetInfo::labeled(egui::Role::Image, true, "Tracing view"));
+        let w_mm = map.nu as f32 * v3::norm(map.du) as f32;
+        let h_mm = map.nv as f32 * v3::norm(map.dv) as f32;
+        let scale = (rect.width() / w_mm).min(rect.height() / h_mm) * self.zoom;
+        let img_rect = Rect::from_center_size(rect.center() + self.pan, vec2(w_mm * scale, h_mm * scale));
+        let painter = ui.painter_at(rect);
+        painter.rect_filled(rect, 0.0, palette::VIEW_BG);
+        if let Some((_, tex)) = &self.tex {
+            painter.image(tex.id(), img_rect, Rect::from_min_max(pos2(0.0, 0.0), pos2(1.0, 1.0)), Color32::WHITE);
+        }
+        let to_screen = |a: f64, b: f64| pos2(img_rect.min.x + ((a + 0.5) / map.nu as f64) as f32 * img_rect.width(), img_rect.min.y + ((b + 0.5) / map.nv as f64) as f32 * img_rect.height());
+        let to_stack = |p: Pos2| map.point(((p.x - img_rect.min.x) / img_rect.width()) as f64 * map.nu as f64 - 0.5, ((p.y - img_rect.min.y) / img_rect.height()) as f64 * map.nv as f64 - 0.5);
+        let vmax = doc.stack.voxel.as_ref().map(|v| v.max()).unwrap_or(1.0);
+        // fitted curves where they meet the plane
+        if let Ok(cl) = &doc.fitted {
+            let n = ((cl.t1 - cl.t0).to_degrees() * 4.0) as usize;
+            for (kind, color) in [(Some(Kind::Lamina), palette::LAMINA), (Some(Kind::Ligament), palette::LIGAMENT), (None, palette::CENTRE)] {
+                let pt = |t: f64| match kind {
+                    Some(k) => cl.edge_point(k, t),
+                    None => cl.point(t),
+                };
+                let mut prev = map.project(pt(cl.t0));
+                for k in 1..=n {
+                    let t = cl.t0 + (cl.t1 - cl.t0) * k as f64 / n as f64;
+                    let cur = map.project(pt(t));
+                    if cur.2.abs() < 0.5 * vmax || (prev.2 < 0.0) != (cur.2 < 0.0) {
+                        painter.circle_filled(to_screen(cur.0, cur.1), 2.5, color);
+                    }
+                    prev = cur;
+                }
+            }
+        }
+        // landmarks near the plane
+        let flagged: Vec<usize> = doc.fitted.as_ref().map(|c| c.flagged().iter().map(|f| f.0).collect()).unwrap_or_default();
+        let mut screen_lms = vec![];
+        for (i, lm) in doc.lms.items.iter().enumerate() {
+            let p = match self.drag {
+                Some((d, to)) if d == i => to,
+                _ => lm.p,
+            };
+            let (a, b, d) = map.project(p);
+            if d.abs() > 1.5 * vmax {
+                continue;
+            }
+            let s = to_screen(a, b);
+            screen_lms.push((i, s));
+            let fade = 1.0 - (d.abs() / (1.5 * vmax)) as f32 * 0.6;
+            mark(&painter, s, lm.kind, fade, self.selected == Some(i), flagged.contains(&i));
+        }
+        // interaction
+        let nearest = |pos: Pos2| screen_lms.iter().filter(|(_, s)| s.distance(pos) < 9.0).min_by(|a, b| a.1.distance(pos).total_cmp(&b.1.distance(pos))).map(|x| x.0);
+        if let Some(pos) = resp.hover_pos() {
+            let p = to_stack(pos);
+            let inv = doc.stack.voxel.as_ref().map(|v| v.mm.map(|x| 1.0 / x)).unwrap_or([1.0; 3]);
+            let value = ductline::with_samples!(&doc.stack.samples, d => section::trilinear(d, doc.stack.dims, inv, p));
+            let cochlear = doc.fitted.as_ref().ok().map(|c| c.frame.to_cochlear(p));
+            self.hover = Some(Hover { p, cochlear, value });
+        } else {
+            self.hover = None;
+        }
+        if resp.drag_started_by(egui::PointerButton::Primary) {
+            if let Some(i) = resp.interact_pointer_pos().and_then(nearest) {
+                self.selected = Some(i);
+                self.drag = Some((i, doc.lms.items[i].p));
+            }
+        }
+        if resp.dragged() {
+            match &mut self.drag {
+                Some((_, to)) => {
+                    if let Some(pos) = resp.interact_pointer_pos() {
+                        *to = to_stack(pos);
+                    }
+                }
+                None => self.pan += resp.drag_delta(),
+            }
+        }
+        if resp.drag_stopped() {
+            if let Some((i, to)) = self.drag.take() {
+                cmds.push(Cmd::Edit(Edit::Move { index: i, to }));
+            }
+        }
+        if resp.clicked() {
+            if let Some(pos) = resp.interact_pointer_pos() {
+                match nearest(pos) {
+                    Some(i) => self.selected = Some(i),
+                    None => {
+                        let p = to_stack(pos);
+                        if doc.stack.contains_mm(p) {
+                            cmds.push(Cmd::Edit(Edit::Insert { index: doc.lms.items.len(), lm: Landmark { kind: self.active, p } }));
+                        }
+                    }
+                }
+            }
+        }
+        if resp.secondary_clicked() {
+            if let Some(i) = resp.interact_pointer_pos().and_then(nearest) {
+                cmds.push(Cmd::Edit(Edit::Delete { index: i }));
+                self.selected = None;
+            }
+        }
+        if resp.hovered() {
+            let (scroll, zoom) = ui.input(|i| (i.smooth_scroll_delta.y, i.zoom_delta()));
+            if zoom != 1.0 {
+                self.zoom = (self.zoom * zoom).clamp(0.2, 40.0);
+            } else if scroll.abs() > 0.5 {
+                self.step(if scroll > 0.0 { 1 } else { -1 }, doc);
+            }
+        }
+        resp.on_hover_text("Click: place the active landmark kind · drag a mark: move it · right-click a mark: delete · drag elsewhere: pan · wheel: next slice or angle · ctrl+wheel: zoom");
+        cmds
+    }
+
+    /// One step of the wheel: next slice, or 2° of angle on the radial cut.
+    pub fn step(&mut self, dir: i32, doc: &Doc) {
+        match self.plane {
+            Plane::Slice(a) => {
+                let n = doc.stack.dims[a] as i64;
+                self.index[a] = (self.index[a] as i64 + dir as i64).clamp(0, n - 1) as usize;
+            }
+            Plane::Radial => self.angle_deg += 2.0 * dir as f64,
+        }
+    }
+
+    fn toolbar_ui(&mut self, ui: &mut egui::Ui, doc: &Doc) {
+        ui.horizontal(|ui| {
+            for (p, label, tip) in [
+                (Plane::Slice(2), "k plane", "Stack slices: constant slice index k (x right, y down)"),
+                (Plane::Slice(1), "j plane", "Constant row index j (x right, z down)"),
+                (Plane::Slice(0), "i plane", "Constant column index i (y right, z down)"),
+                (Plane::Radial, "Radial cut", "The plane through the modiolar axis at the chosen angle (apex up)"),
+            ] {
+                if ui.selectable_label(self.plane == p, label).on_hover_text(tip).clicked() {
+                    self.plane = p;
+                }
+            }
+            ui.separator();
+            match self.plane {
+                Plane::Slice(a) => {
+                    let n = doc.stack.dims[a].max(1) - 1;
+                    let l = ui.label(["i", "j", "k"][a]);
+                    ui.add(egui::Slider::new(&mut self.index[a], 0..=n)).labelled_by(l.id).on_hover_text("Slice index (wheel steps it)");
+                }
+                Plane::Radial => {
+                    let l = ui.label("angle");
+                    ui.add(egui::DragValue::new(&mut self.angle_deg).speed(1.0).suffix("°")).labelled_by(l.id).on_hover_text("Angle of the radial cut from the round window (wheel steps 2°)");
+                }
+            }
+            if ui.button("Fit view").on_hover_text("Reset zoom and pan").clicked() {
+                self.zoom = 1.0;
+                self.pan = Vec2::ZERO;
+            }
+        });
+    }
+
+    /// Moves the view to show a landmark's plane.
+    pub fn go_to(&mut self, doc: &Doc, p: V) {
+        if let Some(v) = &doc.stack.voxel {
+            if let Plane::Slice(a) = self.plane {
+                self.index[a] = ((p[a] / v.mm[a]).round().max(0.0) as usize).min(doc.stack.dims[a] - 1);
+            } else if let Ok(c) = &doc.fitted {
+                self.angle_deg = c.frame.to_cochlear(p)[1];
+            }
+        }
+    }
+}
+
+/// Plane values: direct voxel copies for stack planes, trilinear resampling for the radial cut.
+pub fn plane_values(stack: &Stack, plane: &Plane, index: [usize; 3], map: &PlaneMap) -> Vec<f32> {
+    let [nx, ny, _] = stack.dims;
+    match plane {
+        Plane::Slice(2) => (0..nx * ny).map(|i| stack.samples.get(index[2] * nx * ny + i)).collect(),
+        Plane::Slice(1) => (0..map.nv).flat_map(|k| (0..nx).map(move |i| (k, i))).map(|(k, i)| stack.samples.get(stack.index(i, index[1], k))).collect(),
+        Plane::Slice(_) => (0..map.nv).flat_map(|k| (0..ny).map(move |j| (k, j))).map(|(k, j)| stack.samples.get(stack.index(index[0], j, k))).collect(),
+        Plane::Radial => section::resample(stack, &Grid { origin: map.origin, du: map.du, dv: map.dv, nu: map.nu, nv: map.nv }),
+    }
+}
+
+/// Window/level to grey pixels: `window` = [black, white] grey values; NaN (outside the stack) dark blue.
+pub fn to_rgba(values: &[f32], window: [f32; 2]) -> Vec<Color32> {
+    let lo = window[0];
+    let s = 255.0 / (window[1] - window[0]).max(f32::EPSILON);
+    values
+        .iter()
+        .map(|&v| {
+            if v.is_nan() {
+                palette::OUTSIDE
+            } else {
+                let g = ((v - lo) * s).clamp(0.0, 255.0) as u8;
+                Color32::from_gray(g)
+            }
+        })
+        .collect()
+}
+
+/// A landmark mark: each kind its own shape and colour.
+pub fn mark(p: &egui::Painter, s: Pos2, kind: Kind, fade: f32, selected: bool, flagged: bool) {
+    let c = palette::kind(kind).gamma_multiply(fade);
+    let r = 5.0;
+    match kind {
+        Kind::Lamina => {
+            p.circle_filled(s, r, c);
+        }
+        Kind::Ligament => {
+            p.rect_filled(Rect::from_center_size(s, vec2(2.0 * r, 2.0 * r)), 1.0, c);
+        }
+        Kind::Window => {
+            p.circle_stroke(s, r + 1.0, Stroke::new(2.5, c));
+        }
+        Kind::AxisBase | Kind::AxisApex => {
+            let pts = vec![s + vec2(0.0, -r - 1.0), s + vec2(r + 1.0, 0.0), s + vec2(0.0, r + 1.0), s + vec2(-r - 1.0, 0.0)];
+            p.add(egui::Shape::convex_polygon(pts, c, Stroke::NONE));
+            let t = if kind == Kind::AxisBase { "b" } else { "a" };
+            p.text(s + vec2(r + 3.0, -r - 3.0), egui::Align2::LEFT_BOTTOM, t, egui::FontId::proportional(11.0), c);
+        }
+    }
+    if flagged {
+        p.circle_stroke(s, r + 5.0, Stroke::new(2.0, palette::FLAG));
+    }
+    if selected {
+        p.circle_stroke(s, r + 3.0, Stroke::new(1.5, Color32::WHITE));
+    }
+}
