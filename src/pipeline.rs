@@ -29,7 +29,7 @@ impl Outcome {
         let cl = &self.centreline;
         let e = &self.estimates;
         format!(
-            "length {:.2} mm over {:.0}° ({:.2} turns), {} sections, {} flagged; basal diameter A {:.2} mm → \
+            "length {:.2} mm over {:.0}° ({:.2} turns), {} sections, {} flagged; basal diameter A {:.2} mm; \
              published estimates: Escudé 2006 {:.2} mm (lateral wall, at this depth), Alexiades 2015 {:.2} mm (organ of Corti) / {:.2} mm (lateral wall)",
             cl.length,
             cl.depth_deg(),

@@ -27,11 +27,11 @@ impl Inspector {
         };
         let (row, g) = (&out.rows[i], &out.geoms[i]);
         ui.horizontal(|ui| {
-            if ui.button("◀").on_hover_text("Previous section").clicked() && i > 0 {
+            if ui.button("<").on_hover_text("Previous section").clicked() && i > 0 {
                 cmds.push(Cmd::SelectRow(Some(i - 1)));
             }
             ui.strong(format!("section {} of {}", i + 1, out.rows.len()));
-            if ui.button("▶").on_hover_text("Next section").clicked() && i + 1 < out.rows.len() {
+            if ui.button(">").on_hover_text("Next section").clicked() && i + 1 < out.rows.len() {
                 cmds.push(Cmd::SelectRow(Some(i + 1)));
             }
         });

@@ -178,7 +178,7 @@ impl Side {
                     }
                     let txt = egui::RichText::new(lm.kind.as_str()).color(palette::kind(lm.kind));
                     ui.label(if flagged.contains(&i) { txt.strikethrough() } else { txt });
-                    ui.label(theta.get(&i).map(|t| format!("{t:.0}°")).unwrap_or_else(|| "—".into()));
+                    ui.label(theta.get(&i).map(|t| format!("{:.0}°", if t.abs() < 0.5 { 0.0 } else { *t })).unwrap_or_else(|| "—".into()));
                     ui.label(c.map(|c| format!("{:.2} / {:.2}", c[0], c[2])).unwrap_or_else(|| "—".into()));
                     ui.end_row();
                 }

@@ -94,15 +94,22 @@ impl View {
                 };
                 let (o, er, ez) = frame.radial_plane(self.angle_deg);
                 let ext = st.extent_mm().ok()?;
-                // radial and axial reach: the farthest stack corner from the origin
-                let mut reach: f64 = 0.0;
+                // the rectangle of the plane that covers the stack: its corners projected
+                let (mut u0, mut u1, mut w0, mut w1) = (f64::INFINITY, f64::NEG_INFINITY, f64::INFINITY, f64::NEG_INFINITY);
                 for c in 0..8 {
                     let p = [if c & 1 == 0 { 0.0 } else { ext[0] }, if c & 2 == 0 { 0.0 } else { ext[1] }, if c & 4 == 0 { 0.0 } else { ext[2] }];
-                    reach = reach.max(v3::dist(p, o));
+                    let d = v3::sub(p, o);
+                    let (u, w) = (v3::dot(d, er), v3::dot(d, ez));
+                    (u0, u1, w0, w1) = (u0.min(u), u1.max(u), w0.min(w), w1.max(w));
                 }
-                let pitch = (v[0].min(v[1]).min(v[2])).max(2.0 * reach / 1024.0);
-                let n = (2.0 * reach / pitch) as usize;
-                PlaneMap { origin: v3::axpy(v3::axpy(o, -reach, er), reach, ez), du: v3::scale(er, pitch), dv: v3::scale(ez, -pitch), nu: n, nv: n }
+                let pitch = (v[0].min(v[1]).min(v[2])).max((u1 - u0).max(w1 - w0) / 1024.0);
+                PlaneMap {
+                    origin: v3::axpy(v3::axpy(o, u0, er), w1, ez),
+                    du: v3::scale(er, pitch),
+                    dv: v3::scale(ez, -pitch),
+                    nu: ((u1 - u0) / pitch) as usize + 1,
+                    nv: ((w1 - w0) / pitch) as usize + 1,
+                }
             }
         })
     }

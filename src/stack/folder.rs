@@ -9,7 +9,12 @@ use std::cmp::Ordering;
 use std::path::{Path, PathBuf};
 
 /// Natural order of names: runs of digits compare by value, the rest by characters.
+/// Letter case only breaks ties.
 pub fn natural_cmp(a: &str, b: &str) -> Ordering {
+    natural_nocase(a, b).then_with(|| a.cmp(b))
+}
+
+fn natural_nocase(a: &str, b: &str) -> Ordering {
     let (mut a, mut b) = (a.as_bytes(), b.as_bytes());
     loop {
         match (a.first(), b.first()) {
@@ -28,7 +33,7 @@ pub fn natural_cmp(a: &str, b: &str) -> Ordering {
                 b = &b[db..];
             }
             (Some(x), Some(y)) => {
-                let ord = x.to_ascii_lowercase().cmp(&y.to_ascii_lowercase()).then(x.cmp(y));
+                let ord = x.to_ascii_lowercase().cmp(&y.to_ascii_lowercase());
                 if ord != Ordering::Equal {
                     return ord;
                 }

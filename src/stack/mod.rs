@@ -327,11 +327,12 @@ pub(crate) fn bin_pair<T: Sample>(a: &[T], b: Option<&[T]>, nx: usize, ny: usize
     }
 }
 
+/// Rounds half to even (as numpy does), then clamps to the type's range.
 pub(crate) fn to_u8(x: f32) -> u8 {
-    x.round().clamp(0.0, 255.0) as u8
+    x.round_ties_even().clamp(0.0, 255.0) as u8
 }
 pub(crate) fn to_u16(x: f32) -> u16 {
-    x.round().clamp(0.0, 65535.0) as u16
+    x.round_ties_even().clamp(0.0, 65535.0) as u16
 }
 pub(crate) fn to_f32(x: f32) -> f32 {
     x

@@ -1,0 +1,184 @@
+//! Stack loading against files written by tifffile (see tests/fixtures/make_fixtures.py), natural
+//! order of slice folders, and the bad-input errors.
+
+mod common;
+use common::fixture;
+use ductline::stack::{self, LoadOptions, Samples, VoxelSize, VoxelSource, natural_cmp};
+use std::path::Path;
+
+fn load(p: &Path) -> ductline::Result<stack::Stack> {
+    stack::load(p, &LoadOptions::default())
+}
+
+/// Each fixture decodes to exactly the array numpy saved beside it (reference: tifffile + numpy).
+#[test]
+fn decodes_like_tifffile() {
+    let manifest: serde_json::Value = serde_json::from_str(&std::fs::read_to_string(fixture("manifest.json")).unwrap()).unwrap();
+    let files = manifest["files"].as_array().unwrap();
+    assert!(files.len() >= 9);
+    for f in files {
+        let name = f["name"].as_str().unwrap();
+        let st = load(&fixture(&format!("tiff/{name}.tif"))).unwrap_or_else(|e| panic!("{name}: {e}"));
+        let shape: Vec<usize> = f["shape"].as_array().unwrap().iter().map(|x| x.as_u64().unwrap() as usize).collect();
+        assert_eq!(st.dims, [shape[2], shape[1], shape[0]], "{name}: dims");
+        let raw = std::fs::read(fixture(&format!("tiff/{name}.raw"))).unwrap();
+        match (&st.samples, f["dtype"].as_str().unwrap()) {
+            (Samples::U8(v), "uint8") => assert_eq!(v.as_slice(), raw.as_slice(), "{name}"),
+            (Samples::U16(v), "uint16") => assert_eq!(v, &common::raw_u16(&format!("tiff/{name}.raw")), "{name}"),
+            (Samples::F32(v), "float32") => {
+                let want: Vec<f32> = raw.chunks_exact(4).map(|c| f32::from_le_bytes([c[0], c[1], c[2], c[3]])).collect();
+                assert_eq!(v, &want, "{name}");
+            }
+            (s, d) => panic!("{name}: sample type {} for numpy {d}", s.type_name()),
+        }
+        if let Some(vox) = f["voxel_um"].as_array() {
+            let want: Vec<f64> = vox.iter().map(|x| x.as_f64().unwrap()).collect();
+            let got = st.voxel.as_ref().unwrap_or_else(|| panic!("{name}: no voxel size")).mm.map(|x| x * 1000.0);
+            for a in 0..3 {
+                assert!((got[a] - want[a]).abs() < 1e-6, "{name}: voxel {got:?} vs {want:?}");
+            }
+        }
+    }
+}
+
+#[test]
+fn voxel_sources_are_kept() {
+    let ome = load(&fixture("tiff/u16_ome.tif")).unwrap();
+    assert_eq!(ome.voxel.unwrap().source, [VoxelSource::Ome, VoxelSource::Ome, VoxelSource::Ome]);
+    let ij = load(&fixture("tiff/u16_imagej.tif")).unwrap();
+    let v = ij.voxel.unwrap();
+    assert_eq!(v.source[0], VoxelSource::TiffResolution);
+    assert_eq!(v.source[2], VoxelSource::DescriptionSpacing);
+    assert!(load(&fixture("tiff/u8_plain.tif")).unwrap().voxel.is_none(), "a plain TIFF has no voxel size");
+    let user = stack::load(&fixture("tiff/u16_ome.tif"), &LoadOptions { voxel: Some(VoxelSize::from_user_um(&[7.0]).unwrap()), ..Default::default() }).unwrap();
+    assert_eq!(user.voxel.unwrap().source[0], VoxelSource::User);
+}
+
+#[test]
+fn sixteen_bit_stays_sixteen_bit() {
+    let st = load(&fixture("tiff/u16_deflate.tif")).unwrap();
+    assert!(matches!(st.samples, Samples::U16(_)));
+    assert_eq!(st.bytes(), st.dims.iter().product::<usize>() * 2);
+}
+
+/// 2×2×2 binning on load equals numpy's block mean (rounded), and doubles the voxel size.
+#[test]
+fn binning_matches_numpy_block_mean() {
+    let opts = LoadOptions { bin: 2, voxel: Some(VoxelSize::from_user_um(&[10.0]).unwrap()), ..Default::default() };
+    let st = stack::load(&fixture("tiff/u16_bin_src.tif"), &opts).unwrap();
+    assert_eq!(st.dims, [6, 5, 2]);
+    let Samples::U16(v) = &st.samples else { panic!("type") };
+    assert_eq!(v, &common::raw_u16("tiff/u16_bin_expected.raw"));
+    assert!((st.voxel.unwrap().mm[0] - 0.02).abs() < 1e-12);
+}
+
+#[test]
+fn slice_folder_in_natural_order() {
+    let st = load(&fixture("slices")).unwrap();
+    assert_eq!(st.dims, [9, 8, 12]);
+    let Samples::U16(v) = &st.samples else { panic!("type") };
+    assert_eq!(v, &common::raw_u16("slices_expected.raw"), "slice_2 must come before slice_10");
+}
+
+#[test]
+fn natural_sort() {
+    let mut names = vec!["slice_10.tif", "slice_2.tif", "slice_1.tif", "Slice_3.tif", "slice_002a.tif", "a", "a0"];
+    names.sort_by(|a, b| natural_cmp(a, b));
+    assert_eq!(names, vec!["a", "a0", "slice_1.tif", "slice_2.tif", "slice_002a.tif", "Slice_3.tif", "slice_10.tif"]);
+}
+
+#[test]
+fn png_slices_and_rgb_become_grey() {
+    let dir = tempfile::tempdir().unwrap();
+    for k in 0..3u8 {
+        let f = std::fs::File::create(dir.path().join(format!("s{k}.png"))).unwrap();
+        let mut enc = png::Encoder::new(std::io::BufWriter::new(f), 4, 2);
+        enc.set_color(png::ColorType::Rgb);
+        enc.set_depth(png::BitDepth::Eight);
+        let mut w = enc.write_header().unwrap();
+        let px: Vec<u8> = (0..8).flat_map(|i| [10 * k + i, 100, 200]).collect();
+        w.write_image_data(&px).unwrap();
+    }
+    let st = load(dir.path()).unwrap();
+    assert_eq!(st.dims, [4, 2, 3]);
+    assert!(!st.warnings.is_empty(), "colour slices warn");
+    // BT.601: 0.299 r + 0.587 g + 0.114 b
+    let want = (0.299f32 * 20.0 + 0.587 * 100.0 + 0.114 * 200.0).round();
+    assert_eq!(st.samples.get(st.index(0, 0, 2)), want);
+}
+
+fn err_of(p: &Path) -> String {
+    match load(p) {
+        Ok(_) => panic!("{} should not load", p.display()),
+        Err(e) => e.to_string(),
+    }
+}
+
+#[test]
+fn bad_inputs_give_one_line_errors() {
+    let dir = tempfile::tempdir().unwrap();
+    // truncated file: names the file and the page
+    let bytes = std::fs::read(fixture("tiff/u16_deflate.tif")).unwrap();
+    let trunc = dir.path().join("trunc.tif");
+    std::fs::write(&trunc, &bytes[..bytes.len() * 2 / 3]).unwrap();
+    let e = err_of(&trunc);
+    assert!(e.contains("trunc.tif") && !e.contains('\n'), "{e}");
+    // not a TIFF at all
+    let junk = dir.path().join("junk.tif");
+    std::fs::write(&junk, b"this is not an image").unwrap();
+    assert!(err_of(&junk).contains("junk.tif"));
+    // unsupported sample format
+    let e = err_of(&fixture("tiff/i16_signed.tif"));
+    assert!(e.contains("unsupported sample format") && e.contains("page 0"), "{e}");
+    // empty folder
+    let empty = dir.path().join("empty");
+    std::fs::create_dir(&empty).unwrap();
+    assert!(err_of(&empty).contains("no TIFF or PNG slices"));
+    // missing file
+    assert!(err_of(&dir.path().join("nope.tif")).contains("nope.tif"));
+    // mixed slice sizes
+    let mixed = dir.path().join("mixed");
+    std::fs::create_dir(&mixed).unwrap();
+    for (k, n) in [(1, 5usize), (2, 5), (3, 6)] {
+        let st = stack::Stack::from_samples([n, 4, 1], Samples::U8(vec![7; n * 4]), None).unwrap();
+        stack::write::write_tiff(&st, &mixed.join(format!("s_{k}.tif")), stack::write::Packing::None, false).unwrap();
+    }
+    let e = err_of(&mixed);
+    assert!(e.contains("s_3.tif") && e.contains("differs"), "{e}");
+    // mixed sample types across the pages of one file: a u8 page, then a u16 page
+    let mixed_type = dir.path().join("mixed_type.tif");
+    {
+        use tiff::encoder::{TiffEncoder, colortype};
+        let mut enc = TiffEncoder::new(std::fs::File::create(&mixed_type).unwrap()).unwrap();
+        enc.write_image::<colortype::Gray8>(3, 2, &[1u8; 6]).unwrap();
+        enc.write_image::<colortype::Gray16>(3, 2, &[1u16; 6]).unwrap();
+    }
+    let e = err_of(&mixed_type);
+    assert!(e.contains("page 1") && e.contains("differs"), "{e}");
+    // zero and negative voxel sizes
+    for bad in [[0.0], [-3.0]] {
+        assert!(VoxelSize::from_user_um(&bad).unwrap_err().to_string().contains("positive"));
+    }
+    // over the memory cap: refused before allocating, with the size and a hint
+    let e = stack::load(&fixture("tiff/u16_lzw.tif"), &LoadOptions { max_bytes: Some(1000), ..Default::default() }).unwrap_err().to_string();
+    assert!(e.contains("GB") && e.contains("bin"), "{e}");
+}
+
+/// Our OME-TIFF writer round-trips through our reader (used by the phantom).
+#[test]
+fn writer_round_trip_with_ome_sizes() {
+    let dir = tempfile::tempdir().unwrap();
+    let v = VoxelSize::from_user_um(&[11.0, 12.0, 13.5]).unwrap();
+    let data: Vec<u16> = (0..(7 * 5 * 3)).map(|i| (i * 613 % 65535) as u16).collect();
+    let st = stack::Stack::from_samples([7, 5, 3], Samples::U16(data.clone()), Some(v)).unwrap();
+    for (packing, big) in [(stack::write::Packing::None, false), (stack::write::Packing::Deflate, true), (stack::write::Packing::Lzw, false)] {
+        let p = dir.path().join("rt.tif");
+        stack::write::write_tiff(&st, &p, packing, big).unwrap();
+        let back = load(&p).unwrap();
+        assert_eq!(back.dims, [7, 5, 3]);
+        let Samples::U16(b) = back.samples else { panic!() };
+        assert_eq!(b, data);
+        let mm = back.voxel.unwrap().mm;
+        assert!((mm[2] - 0.0135).abs() < 1e-12 && (mm[1] - 0.012).abs() < 1e-12);
+    }
+}
