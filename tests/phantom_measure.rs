@@ -1,0 +1,164 @@
+//! The phantom's truth against closed forms, the sampler against scipy, and the whole pipeline's
+//! accuracy against phantoms with analytic truth.
+
+mod common;
+use common::{errors, quantile};
+use ductline::centreline::FitSettings;
+use ductline::cochlea::Greenwood;
+use ductline::landmarks::Kind;
+use ductline::measure::MeasureSettings;
+use ductline::phantom::{self, Mat, PhantomSpec};
+use ductline::pipeline;
+use ductline::progress::Progress;
+use ductline::stack::{self, LoadOptions};
+use std::f64::consts::PI;
+
+/// In a radial plane, with one partition thickness t, the scala vestibuli is the upper half of
+/// the lumen ellipse (a, b) minus the strip 0 < z < t/2:
+/// π·a·b/2 − a·b·(u·√(1−u²) + asin u), u = t/(2b) (handbook: area of an ellipse segment).
+#[test]
+fn phantom_radial_plane_matches_half_ellipse_minus_strip() {
+    let spec = PhantomSpec { shelf_thickness_mm: 0.02, membrane_thickness_mm: 0.02, ..Default::default() };
+    for deg in [60.0, 400.0, 800.0] {
+        let t = f64::to_radians(deg);
+        let d = spec.duct(t);
+        let pitch = 0.002;
+        let (mut sv, mut st) = (0usize, 0usize);
+        let (nr, nz) = ((2.4 * d.a / pitch) as i64, (2.4 * d.b / pitch) as i64);
+        for i in -nr / 2..nr / 2 {
+            for j in -nz / 2..nz / 2 {
+                let r = d.rc + (i as f64 + 0.5) * pitch;
+                let z = d.zc + (j as f64 + 0.5) * pitch;
+                match spec.material([r * t.cos(), r * t.sin(), z]).0 {
+                    Mat::Sv => sv += 1,
+                    Mat::St => st += 1,
+                    _ => {}
+                }
+            }
+        }
+        let u = 0.01 / d.b;
+        let want = PI * d.a * d.b / 2.0 - d.a * d.b * (u * (1.0 - u * u).sqrt() + u.asin());
+        for got in [sv, st].map(|n| n as f64 * pitch * pitch) {
+            assert!(((got - want) / want).abs() < 0.005, "{deg}°: {got} vs {want}");
+        }
+    }
+}
+
+/// The phantom's analytic length (adaptive quadrature) against a fine polyline (independent).
+#[test]
+fn phantom_length_against_polyline() {
+    let spec = PhantomSpec::default();
+    let n = 200_000;
+    let mut poly = 0.0;
+    let mut prev = spec.midline(0.0);
+    for k in 1..=n {
+        let p = spec.midline(spec.theta_max() * k as f64 / n as f64);
+        poly += ductline::frame::v3::dist(p, prev);
+        prev = p;
+    }
+    assert!(((spec.length() - poly) / poly).abs() < 1e-6);
+}
+
+/// Trilinear sampling equals scipy.ndimage.map_coordinates(order=1) at 400 random points
+/// (fixture written by tests/fixtures/make_fixtures.py).
+#[test]
+fn sampler_matches_scipy_map_coordinates() {
+    let st = stack::load(&common::fixture("sampler_volume.tif"), &LoadOptions::default()).unwrap();
+    let text = std::fs::read_to_string(common::fixture("sampler_points.csv")).unwrap();
+    let mut n = 0;
+    ductline::with_samples!(&st.samples, data => {
+        for line in text.lines().skip(1) {
+            let f: Vec<f64> = line.split(',').map(|x| x.parse().unwrap()).collect();
+            let got = ductline::section::trilinear_idx(data, st.dims, [f[0], f[1], f[2]]) as f64;
+            assert!((got - f[3]).abs() < 1e-3 * f[3].abs().max(1.0), "{line}: {got}");
+            n += 1;
+        }
+    });
+    assert_eq!(n, 400);
+    // outside the voxel centres: NaN, never a made-up value
+    ductline::with_samples!(&st.samples, data => assert!(ductline::section::trilinear_idx(data, st.dims, [-0.1, 1.0, 1.0]).is_nan()));
+}
+
+fn run(spec: &PhantomSpec) -> (phantom::Phantom, pipeline::Outcome) {
+    let ph = phantom::generate(spec, &Progress::new()).unwrap();
+    let out = pipeline::run(&ph.stack, &ph.landmarks, &FitSettings::default(), &MeasureSettings::default(), &[], &Greenwood::preset("human").unwrap(), &Progress::new()).unwrap();
+    (ph, out)
+}
+
+fn check(spec: &PhantomSpec, area_median: f64, area_p95: Option<f64>, voxel_frac: Option<f64>) {
+    let (ph, out) = run(spec);
+    // fitted length within 0.3 % of the analytic length, depth within 2°
+    assert!(((out.centreline.length - ph.length_mm) / ph.length_mm).abs() < 0.003, "length {} vs {}", out.centreline.length, ph.length_mm);
+    assert!((out.centreline.depth_deg() - spec.theta_max().to_degrees()).abs() < 2.0);
+    let e = errors(&out.rows, &ph.truth, 30.0);
+    assert!(e.rows > 250, "rows {}", e.rows);
+    assert!(e.flagged * 50 <= e.rows, "{} of {} sections flagged", e.flagged, e.rows);
+    for (name, v) in [("SV", &e.sv), ("ST", &e.st)] {
+        assert!(v.len() + e.flagged >= e.rows);
+        let (m, p) = (quantile(v, 0.5), quantile(v, 0.95));
+        eprintln!("{name}: median {:.3} %, p95 {:.3} %", 100.0 * m, 100.0 * p);
+        assert!(m < area_median, "{name} area median error {:.3} %", 100.0 * m);
+        if let Some(lim) = area_p95 {
+            assert!(p < lim, "{name} area p95 error {:.3} %", 100.0 * p);
+        }
+    }
+    if let Some(f) = voxel_frac {
+        let vox = spec.voxel_um.iter().cloned().fold(0.0, f64::max) / 1000.0;
+        for (name, v) in [("width", &e.width), ("wall", &e.wall)] {
+            let m = quantile(v, 0.5);
+            eprintln!("{name}: median {:.2} µm", 1000.0 * m);
+            assert!(m < f * vox, "{name} median error {:.1} µm", 1000.0 * m);
+        }
+    }
+}
+
+/// At 40 µm: areas within 1 % median and 2.5 % at the 95th percentile; width and wall within
+/// 0.3 voxel median (sections ≥ 30° from either end).
+#[test]
+fn accuracy_40um() {
+    check(&PhantomSpec { voxel_um: [40.0; 3], ..Default::default() }, 0.01, Some(0.025), Some(0.3));
+}
+
+/// At 80 µm: areas within 2 % median.
+#[test]
+fn accuracy_80um() {
+    check(&PhantomSpec { voxel_um: [80.0; 3], ..Default::default() }, 0.02, None, None);
+}
+
+/// A tilted, left-handed phantom with anisotropic voxels: the same tolerances as at 40 µm.
+#[test]
+fn accuracy_tilted_left_anisotropic() {
+    check(&PhantomSpec { voxel_um: [40.0, 40.0, 50.0], tilt_deg: [18.0, -11.0], left: true, seed: 5, ..Default::default() }, 0.01, Some(0.025), Some(0.3));
+}
+
+/// A landmark pushed 0.3 mm off the partition is flagged (not dropped), and so are the sections near it.
+#[test]
+fn injected_outlier_is_flagged() {
+    let spec = PhantomSpec { voxel_um: [80.0; 3], landmark_noise_mm: 0.01, ..Default::default() };
+    let mut ph = phantom::generate(&spec, &Progress::new()).unwrap();
+    let i = ph.landmarks.iter().enumerate().filter(|(_, l)| l.kind == Kind::Ligament).nth(30).unwrap().0;
+    ph.landmarks[i].p[2] += 0.3;
+    let cl = pipeline::fit(&ph.landmarks, &FitSettings::default()).unwrap();
+    let flagged: Vec<usize> = cl.flagged().iter().map(|f| f.0).collect();
+    assert_eq!(flagged, vec![i], "only the moved landmark is flagged");
+    let (_, rows) = ductline::measure::measure(&ph.stack, &cl, &MeasureSettings { step_mm: 0.5, ..Default::default() }, &[], &Greenwood::preset("human").unwrap(), &Progress::new()).unwrap();
+    assert!(rows.iter().any(|r| r.flags.contains(&ductline::measure::Flag::Outlier)));
+}
+
+/// A section excluded by the user is blank and flagged; a cancelled run stops with Cancelled.
+#[test]
+fn overrides_and_cancel() {
+    let spec = PhantomSpec { voxel_um: [80.0; 3], ..Default::default() };
+    let ph = phantom::generate(&spec, &Progress::new()).unwrap();
+    let cl = pipeline::fit(&ph.landmarks, &FitSettings::default()).unwrap();
+    let ms = MeasureSettings { step_mm: 1.0, ..Default::default() };
+    let ov = ductline::measure::Override { s_mm: 5.0, exclude: true, ..Default::default() };
+    let gw = Greenwood::preset("human").unwrap();
+    let (_, rows) = ductline::measure::measure(&ph.stack, &cl, &ms, &[ov], &gw, &Progress::new()).unwrap();
+    let r = rows.iter().find(|r| (r.s_mm - 5.0).abs() < 1e-9).unwrap();
+    assert!(r.sv.area.is_none() && r.flags.contains(&ductline::measure::Flag::Excluded));
+    assert!(rows.iter().filter(|r| r.flags.contains(&ductline::measure::Flag::Excluded)).count() == 1);
+    let p = Progress::new();
+    p.cancel();
+    assert!(matches!(ductline::measure::measure(&ph.stack, &cl, &ms, &[], &gw, &p), Err(ductline::Error::Cancelled)));
+}
