@@ -1,0 +1,167 @@
+//! The real `ductline` binary driven end to end in a temporary folder.
+
+mod common;
+use std::path::Path;
+use std::process::{Command, Output};
+
+fn ductline(args: &[&str]) -> Output {
+    Command::new(env!("CARGO_BIN_EXE_ductline")).args(args).output().expect("run ductline")
+}
+
+fn s(p: &Path) -> &str {
+    p.to_str().unwrap()
+}
+
+fn stderr(o: &Output) -> String {
+    String::from_utf8_lossy(&o.stderr).to_string()
+}
+
+/// The last stderr line of a failed run: one line, starting with "error:".
+fn failure(o: &Output) -> String {
+    assert!(!o.status.success(), "should fail: {}", stderr(o));
+    let e = stderr(o);
+    let last = e.lines().last().unwrap_or("").to_string();
+    assert!(last.starts_with("error: "), "{e}");
+    assert!(!e.contains("panicked"), "{e}");
+    last
+}
+
+fn read_csv(p: &Path) -> (Vec<String>, Vec<Vec<String>>) {
+    let text = std::fs::read_to_string(p).unwrap();
+    let mut lines = text.lines();
+    let head = lines.next().unwrap().split(',').map(String::from).collect();
+    (head, lines.map(|l| l.split(',').map(String::from).collect()).collect())
+}
+
+/// Parses a binary STL into triangles of exact f32 vertices.
+fn stl(p: &Path) -> Vec<[[u32; 3]; 3]> {
+    let b = std::fs::read(p).unwrap();
+    let n = u32::from_le_bytes(b[80..84].try_into().unwrap()) as usize;
+    assert_eq!(b.len(), 84 + 50 * n);
+    (0..n)
+        .map(|t| {
+            let base = 84 + 50 * t + 12;
+            std::array::from_fn(|v| std::array::from_fn(|c| u32::from_le_bytes(b[base + 12 * v + 4 * c..base + 12 * v + 4 * c + 4].try_into().unwrap())))
+        })
+        .collect()
+}
+
+#[test]
+fn phantom_measure_end_to_end() {
+    let dir = tempfile::tempdir().unwrap();
+    let ph = dir.path().join("ph");
+    let o = ductline(&["phantom", s(&ph), "--voxel-um", "80", "--seed", "3"]);
+    assert!(o.status.success(), "{}", stderr(&o));
+    for f in ["phantom.tif", "landmarks.csv", "truth.csv", "truth.json", "phantom.ductline.json"] {
+        assert!(ph.join(f).exists(), "{f}");
+    }
+    let o = ductline(&["inspect", s(&ph.join("phantom.tif"))]);
+    let text = String::from_utf8_lossy(&o.stdout);
+    assert!(o.status.success() && text.contains("uint16") && text.contains("80.0000 × 80.0000 × 80.0000 µm (OME-XML)"), "{text}");
+
+    let (table, json, stl_dir) = (dir.path().join("t.csv"), dir.path().join("t.json"), dir.path().join("stl"));
+    let o = ductline(&["measure", "--stack", s(&ph.join("phantom.tif")), "--landmarks", s(&ph.join("landmarks.csv")), "--out", s(&table), "--json", s(&json), "--stl", s(&stl_dir)]);
+    assert!(o.status.success(), "{}", stderr(&o));
+    let err = stderr(&o);
+    assert!(err.contains("length") && err.contains("Escudé") && err.contains("Alexiades"), "summary: {err}");
+
+    // columns exactly as DESIGN.md, in order
+    let (head, rows) = read_csv(&table);
+    assert_eq!(head, ductline::export::COLUMNS.map(String::from).to_vec());
+    assert_eq!(head.join(","), "s_mm,angle_deg,x_mm,y_mm,z_mm,radius_mm,height_mm,curvature_radius_mm,cf_hz,sv_area_mm2,st_area_mm2,partition_width_mm,wall_mm,flags");
+    assert!(rows.len() > 300 && rows.iter().all(|r| r.len() == 14));
+    // uniform step in s
+    let s_col: Vec<f64> = rows.iter().map(|r| r[0].parse().unwrap()).collect();
+    assert!(s_col.windows(2).all(|w| ((w[1] - w[0]) - 0.1).abs() < 1e-6));
+    // values within the 80 µm tolerance of the truth (areas 2 % median), sections ≥ 30° from the ends
+    let (_, truth) = read_csv(&ph.join("truth.csv"));
+    let truth: Vec<ductline::phantom::TruthRow> = truth
+        .iter()
+        .map(|t| {
+            let f: Vec<f64> = t.iter().map(|x| x.parse().unwrap()).collect();
+            ductline::phantom::TruthRow { angle_deg: f[0], s_mm: f[1], sv_area_mm2: f[2], st_area_mm2: f[3], partition_width_mm: f[4], wall_mm: f[5] }
+        })
+        .collect();
+    let tmax = truth.last().unwrap().angle_deg;
+    let mut errs = [vec![], vec![]];
+    for r in &rows {
+        let a: f64 = r[1].parse().unwrap();
+        if a < 30.0 || a > tmax - 30.0 {
+            continue;
+        }
+        for (k, col) in [(0usize, 9usize), (1, 10)] {
+            if let Ok(v) = r[col].parse::<f64>() {
+                let t = common::truth_at(&truth, a, if k == 0 { |x: &ductline::phantom::TruthRow| x.sv_area_mm2 } else { |x: &ductline::phantom::TruthRow| x.st_area_mm2 });
+                errs[k].push((v - t).abs() / t);
+            }
+        }
+    }
+    for e in &errs {
+        assert!(e.len() > 300);
+        assert!(common::quantile(e, 0.5) < 0.02);
+    }
+
+    // the JSON loads with no custom code and carries the metadata
+    let j: serde_json::Value = serde_json::from_str(&std::fs::read_to_string(&json).unwrap()).unwrap();
+    let m = &j["metadata"];
+    for key in ["version", "caution", "stack", "voxel_mm", "voxel_source", "frame", "species", "frequency_map", "smoothing", "step_mm", "units", "materials"] {
+        assert!(!m[key].is_null(), "metadata.{key}");
+    }
+    assert_eq!(j["rows"].as_array().unwrap().len(), rows.len());
+    assert_eq!(m["frame"]["handedness"], "right");
+    assert!(m["materials"]["note"].as_str().unwrap().contains("common-practice"));
+
+    // surfaces: closed (every edge in exactly two triangles)
+    for name in ["scala_vestibuli.stl", "scala_tympani.stl"] {
+        let tris = stl(&stl_dir.join(name));
+        let mut edges = std::collections::HashMap::new();
+        for t in &tris {
+            for (a, b) in [(t[0], t[1]), (t[1], t[2]), (t[2], t[0])] {
+                let key = if a < b { (a, b) } else { (b, a) };
+                *edges.entry(key).or_insert(0) += 1;
+            }
+        }
+        assert!(edges.values().all(|&n| n == 2), "{name}: open or non-manifold edges");
+    }
+
+    // the project the phantom wrote measures to the same table
+    let t2 = dir.path().join("t2.csv");
+    let o = ductline(&["measure", s(&ph.join("phantom.ductline.json")), "--out", s(&t2)]);
+    assert!(o.status.success(), "{}", stderr(&o));
+    assert_eq!(std::fs::read(&table).unwrap(), std::fs::read(&t2).unwrap());
+}
+
+#[test]
+fn failures_exit_non_zero_with_one_line() {
+    let dir = tempfile::tempdir().unwrap();
+    let out = dir.path().join("t.csv");
+    // missing stack
+    let lm = dir.path().join("l.csv");
+    std::fs::write(&lm, "kind,x_mm,y_mm,z_mm\nlamina,1,1,1\n").unwrap();
+    let e = failure(&ductline(&["measure", "--stack", "/no/such/stack.tif", "--landmarks", s(&lm), "--out", s(&out)]));
+    assert!(e.contains("/no/such/stack.tif"), "{e}");
+    // a bad landmark file: the line is named
+    let stack = common::fixture("tiff/u16_ome.tif");
+    std::fs::write(&lm, "kind,x_mm,y_mm,z_mm\nlamina,0.1,0.1,0.01\nspiral,0.1,0.1,0.01\n").unwrap();
+    let e = failure(&ductline(&["measure", "--stack", s(&stack), "--landmarks", s(&lm), "--out", s(&out)]));
+    assert!(e.contains("l.csv") && e.contains("line 3") && e.contains("spiral"), "{e}");
+    std::fs::write(&lm, "kind,x_mm,y_mm\nlamina,0.1,0.1\n").unwrap();
+    assert!(failure(&ductline(&["measure", "--stack", s(&stack), "--landmarks", s(&lm), "--out", s(&out)])).contains("z_mm"));
+    std::fs::write(&lm, "kind,x_mm,y_mm,z_mm\nlamina,0.1,zero,0.01\n").unwrap();
+    assert!(failure(&ductline(&["measure", "--stack", s(&stack), "--landmarks", s(&lm), "--out", s(&out)])).contains("not a number"));
+    std::fs::write(&lm, "kind,x_mm,y_mm,z_mm\nlamina,50,0.1,0.01\n").unwrap();
+    assert!(failure(&ductline(&["measure", "--stack", s(&stack), "--landmarks", s(&lm), "--out", s(&out)])).contains("outside the stack"));
+    // a stack with no voxel size
+    std::fs::write(&lm, "kind,x_mm,y_mm,z_mm\nlamina,1,1,1\n").unwrap();
+    let e = failure(&ductline(&["measure", "--stack", s(&common::fixture("tiff/u8_plain.tif")), "--landmarks", s(&lm), "--out", s(&out)]));
+    assert!(e.contains("voxel size") && e.contains("--voxel-um"), "{e}");
+    // too few landmarks (with a voxel size given)
+    std::fs::write(&lm, "kind,x_mm,y_mm,z_mm\nlamina,0.5,0.5,0.1\n").unwrap();
+    let e = failure(&ductline(&["measure", "--stack", s(&common::fixture("tiff/u8_plain.tif")), "--voxel-um", "50", "--landmarks", s(&lm), "--out", s(&out)]));
+    assert!(e.contains("axis_base") || e.contains("at least"), "{e}");
+    assert!(!out.exists(), "no table is written on failure");
+    // bad voxel size and bad species
+    assert!(failure(&ductline(&["inspect", s(&stack), "--voxel-um", "0"])).contains("positive"));
+    let e = failure(&ductline(&["measure", "--stack", s(&stack), "--landmarks", s(&lm), "--out", s(&out), "--species", "dragon"]));
+    assert!(e.contains("dragon"), "{e}");
+}
