@@ -1,1 +1,151 @@
+//! The app driven with egui_kittest (no display, no GPU): queries by role and label.
 
+use super::{Cmd, DuctApp, sample_path};
+use ductline::landmarks::Kind;
+use egui::Role;
+use egui_kittest::Harness;
+use egui_kittest::kittest::Queryable;
+use std::path::PathBuf;
+use std::time::Duration;
+
+fn harness(open: Option<PathBuf>) -> Harness<'static, DuctApp> {
+    Harness::builder().with_size(egui::vec2(1500.0, 950.0)).build_ui_state(|ui, app: &mut DuctApp| app.frame_ui(ui), DuctApp::new(open, None))
+}
+
+/// Steps the UI until `cond` holds (background work finishes on its own threads).
+fn wait(h: &mut Harness<'static, DuctApp>, what: &str, cond: impl Fn(&DuctApp) -> bool) {
+    for _ in 0..1200 {
+        h.step();
+        if cond(h.state()) {
+            h.step();
+            return;
+        }
+        std::thread::sleep(Duration::from_millis(50));
+    }
+    panic!("timed out waiting for {what}; status: {}", h.state().status);
+}
+
+fn count(h: &Harness<'static, DuctApp>) -> usize {
+    h.state().doc.as_ref().map(|d| d.lms.items.len()).unwrap_or(0)
+}
+
+#[test]
+fn open_sample_place_undo_redo() {
+    let mut h = harness(Some(sample_path()));
+    wait(&mut h, "the sample", |a| a.doc.is_some());
+    assert!(h.state().doc.as_ref().unwrap().fitted.is_ok(), "the sample's landmarks fit");
+    h.get_by_label("Tracing view");
+    h.get_by_role_and_label(Role::Image, "Plan map");
+    h.get_by_role_and_label(Role::RadioButton, "ligament").click();
+    h.step();
+    assert_eq!(h.state().view.as_ref().unwrap().active, Kind::Ligament);
+    let n0 = count(&h);
+    h.get_by_label("Tracing view").click();
+    h.step();
+    h.step();
+    assert_eq!(count(&h), n0 + 1, "a click places a landmark");
+    assert_eq!(h.state().doc.as_ref().unwrap().lms.items.last().unwrap().kind, Kind::Ligament);
+    assert!(h.state().doc.as_ref().unwrap().dirty);
+    h.key_press_modifiers(egui::Modifiers::COMMAND, egui::Key::Z);
+    h.step();
+    assert_eq!(count(&h), n0, "ctrl+Z undoes");
+    h.key_press_modifiers(egui::Modifiers::COMMAND | egui::Modifiers::SHIFT, egui::Key::Z);
+    h.step();
+    assert_eq!(count(&h), n0 + 1, "ctrl+shift+Z redoes");
+    // the Edit menu does the same
+    h.get_by_role_and_label(Role::Button, "Edit").click();
+    h.step();
+    h.step();
+    h.get_by_label_contains("Undo").click();
+    h.step();
+    h.step();
+    assert_eq!(count(&h), n0);
+}
+
+#[test]
+fn measure_then_profile_and_inspector() {
+    let mut h = harness(Some(sample_path()));
+    wait(&mut h, "the sample", |a| a.doc.is_some());
+    h.get_by_role_and_label(Role::Button, "Fit & measure").click();
+    h.step();
+    assert!(h.state().busy(), "measuring runs in the background");
+    wait(&mut h, "the measurement", |a| a.doc.as_ref().is_some_and(|d| d.outcome.is_some()));
+    let rows = h.state().doc.as_ref().unwrap().outcome.as_ref().unwrap().rows.len();
+    assert!(rows > 300);
+    h.get_by_label("Duct profile");
+    h.get_by_role_and_label(Role::Image, "Section image");
+    h.get_by_label_contains(&format!("section 1 of {rows}"));
+    h.get_by_role_and_label(Role::Button, ">").click();
+    h.step();
+    h.step();
+    h.get_by_label_contains(&format!("section 2 of {rows}"));
+    // a click in the profile plot picks the nearest section
+    let title = h.get_by_label("Duct profile").rect();
+    let pos = title.center() + egui::vec2(400.0, 130.0);
+    h.hover_at(pos);
+    h.step();
+    for pressed in [true, false] {
+        h.event(egui::Event::PointerButton { pos, button: egui::PointerButton::Primary, pressed, modifiers: Default::default() });
+        h.step();
+    }
+    h.step();
+    let sel = h.state().selected_row.unwrap();
+    assert!(sel > 10, "the click selected a section along the profile, got {sel}");
+    // exclude it: an override the next measure applies
+    h.get_by_role_and_label(Role::CheckBox, "exclude").click();
+    h.step();
+    let doc = h.state().doc.as_ref().unwrap();
+    assert_eq!(doc.overrides.len(), 1);
+    assert!(doc.overrides[0].exclude && doc.stale);
+}
+
+#[test]
+fn a_bad_file_is_an_error_not_a_crash() {
+    let dir = tempfile::tempdir().unwrap();
+    let bad = dir.path().join("broken.tif");
+    std::fs::write(&bad, b"II*\0garbage").unwrap();
+    let mut h = harness(Some(bad));
+    wait(&mut h, "the load to fail", |a| !a.busy());
+    assert!(h.state().doc.is_none());
+    assert!(h.state().status.contains("broken.tif"), "{}", h.state().status);
+    h.get_by_label_contains("broken.tif");
+}
+
+/// Unsaved edits reach the autosave file within 30 s and are offered back at the next start.
+#[test]
+fn autosave_and_recovery() {
+    let dir = tempfile::tempdir().unwrap();
+    let src = sample_path();
+    for f in ["phantom.tif", "phantom.ductline.json"] {
+        std::fs::copy(src.parent().unwrap().join(f), dir.path().join(f)).unwrap();
+    }
+    let prj = dir.path().join("phantom.ductline.json");
+    let mut h = harness(Some(prj.clone()));
+    wait(&mut h, "the project", |a| a.doc.is_some());
+    assert!(h.state().recovery.is_none());
+    let n0 = count(&h);
+    h.get_by_label("Tracing view").click();
+    h.step();
+    assert_eq!(count(&h), n0 + 1);
+    let auto = h.state().doc.as_ref().unwrap().autosave_path();
+    h.step();
+    assert!(!auto.exists(), "not before 30 s");
+    h.state_mut().last_autosave -= Duration::from_secs(31);
+    h.step();
+    assert!(auto.exists(), "autosaved after 30 s");
+    drop(h);
+    // a new session on the same project offers the recovery
+    let mut h = harness(Some(prj.clone()));
+    wait(&mut h, "the project", |a| a.doc.is_some());
+    assert_eq!(count(&h), n0, "the saved project is unchanged");
+    assert!(h.state().recovery.is_some());
+    h.get_by_role_and_label(Role::Button, "Recover").click();
+    h.step();
+    assert_eq!(count(&h), n0 + 1, "the unsaved landmark is back");
+    // saving writes the project atomically and removes the side file
+    h.state_mut().apply(Cmd::Save);
+    h.step();
+    assert!(!auto.exists());
+    let saved = ductline::project::Project::load(&prj).unwrap();
+    assert_eq!(saved.landmarks.len(), n0 + 1);
+}
