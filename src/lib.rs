@@ -21,6 +21,7 @@ pub mod export;
 pub mod project;
 pub mod phantom;
 pub mod pipeline;
+pub mod display;
 pub mod progress;
 
 pub use error::{Error, Result};

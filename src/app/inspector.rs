@@ -71,7 +71,7 @@ impl Inspector {
             let vals = section::resample(&doc.stack, &grid);
             let lv = row.levels;
             let span = (lv[1] - lv[0]).abs().max(1.0);
-            let img = egui::ColorImage::new([grid.nu, grid.nv], super::tracing::to_rgba(&vals, [lv[0] - 0.25 * span, lv[1] + 0.25 * span]));
+            let img = super::tracing::to_image([grid.nu, grid.nv], &vals, [lv[0] - 0.25 * span, lv[1] + 0.25 * span]);
             self.tex = Some((key, ui.ctx().load_texture("section", img, egui::TextureOptions::LINEAR)));
         }
         let side = ui.available_width().min(ui.available_height()).max(100.0);

@@ -33,7 +33,6 @@ pub mod palette {
     use egui::Color32;
     pub const VIEW_BG: Color32 = Color32::from_rgb(18, 22, 28);
     pub const PANEL_BG: Color32 = Color32::from_rgb(24, 29, 36);
-    pub const OUTSIDE: Color32 = Color32::from_rgb(14, 20, 44);
     pub const LAMINA: Color32 = Color32::from_rgb(232, 163, 61);
     pub const LIGAMENT: Color32 = Color32::from_rgb(43, 179, 163);
     pub const AXIS: Color32 = Color32::from_rgb(156, 124, 240);

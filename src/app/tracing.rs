@@ -135,7 +135,7 @@ impl View {
         let tex_key = format!("{key} {:?}", doc.window);
         if self.tex.as_ref().map(|t| &t.0) != Some(&tex_key) {
             let (_, m, vals) = self.cache.as_ref().expect("cache filled above");
-            let img = egui::ColorImage::new([m.nu, m.nv], to_rgba(vals, doc.window));
+            let img = to_image([m.nu, m.nv], vals, doc.window);
             self.tex = Some((tex_key, ui.ctx().load_texture("tracing-plane", img, egui::TextureOptions::NEAREST)));
         }
         let avail = ui.available_size();
@@ -306,32 +306,19 @@ impl View {
     }
 }
 
-/// Plane values: direct voxel copies for stack planes, trilinear resampling for the radial cut.
+/// Plane values: whole voxel planes for stack planes, trilinear resampling for the radial cut.
 pub fn plane_values(stack: &Stack, plane: &Plane, index: [usize; 3], map: &PlaneMap) -> Vec<f32> {
-    let [nx, ny, _] = stack.dims;
     match plane {
-        Plane::Slice(2) => (0..nx * ny).map(|i| stack.samples.get(index[2] * nx * ny + i)).collect(),
-        Plane::Slice(1) => (0..map.nv).flat_map(|k| (0..nx).map(move |i| (k, i))).map(|(k, i)| stack.samples.get(stack.index(i, index[1], k))).collect(),
-        Plane::Slice(_) => (0..map.nv).flat_map(|k| (0..ny).map(move |j| (k, j))).map(|(k, j)| stack.samples.get(stack.index(index[0], j, k))).collect(),
+        Plane::Slice(a) => ductline::display::plane(stack, *a, index[*a]),
         Plane::Radial => section::resample(stack, &Grid { origin: map.origin, du: map.du, dv: map.dv, nu: map.nu, nv: map.nv }),
     }
 }
 
-/// Window/level to grey pixels: `window` = [black, white] grey values; NaN (outside the stack) dark blue.
-pub fn to_rgba(values: &[f32], window: [f32; 2]) -> Vec<Color32> {
-    let lo = window[0];
-    let s = 255.0 / (window[1] - window[0]).max(f32::EPSILON);
-    values
-        .iter()
-        .map(|&v| {
-            if v.is_nan() {
-                palette::OUTSIDE
-            } else {
-                let g = ((v - lo) * s).clamp(0.0, 255.0) as u8;
-                Color32::from_gray(g)
-            }
-        })
-        .collect()
+/// A texture image of plane values through the window (see [`ductline::display::window_level`]).
+pub fn to_image(size: [usize; 2], values: &[f32], window: [f32; 2]) -> egui::ColorImage {
+    let mut rgba = vec![];
+    ductline::display::window_level(values, window, &mut rgba);
+    egui::ColorImage::from_rgba_unmultiplied(size, &rgba)
 }
 
 /// A landmark mark: each kind its own shape and colour.
