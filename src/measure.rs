@@ -244,7 +244,7 @@ fn section_row(stack: &Stack, cl: &Centreline, g: &SectionGeom, s: &MeasureSetti
     }
     let line = Line { p: lam, n };
     let mid = [0.5 * (lam[0] + lig[0]), 0.5 * (lam[1] + lig[1])];
-    let mut half = (0.75 * g.width()).max(10.0 * vmax).min(s.capture_mm);
+    let mut half = (1.5 * g.width()).max(10.0 * vmax).min(s.capture_mm);
     let levels_given = ov.and_then(|o| o.levels).or(s.levels);
     loop {
         let img = sample_section(stack, g, half, pitch);
@@ -361,64 +361,58 @@ pub fn otsu(values: &[f32]) -> Option<f32> {
 /// square neighbourhood of radius `r` lies wholly in their class).
 fn find_levels(img: &Img, r: usize) -> Option<[f32; 2]> {
     let t = otsu(&img.v)?;
-    let n = img.n as isize;
-    let (mut dark, mut bright) = (vec![], vec![]);
-    let r = r as isize;
-    for b in r..n - r {
-        for a in r..n - r {
-            let x = img.v[(b * n + a) as usize];
-            if !x.is_finite() {
-                continue;
-            }
-            let cls = x < t;
-            let mut same = true;
-            'w: for db in -r..=r {
-                for da in -r..=r {
-                    let y = img.v[((b + db) * n + a + da) as usize];
-                    if !y.is_finite() || (y < t) != cls {
-                        same = false;
-                        break 'w;
-                    }
-                }
-            }
-            if same {
-                if cls { dark.push(x) } else { bright.push(x) }
-            }
-        }
-    }
-    if dark.len() < 4 || bright.len() < 4 {
+    let dark: Vec<bool> = img.v.iter().map(|x| x.is_finite() && *x < t).collect();
+    let bright: Vec<bool> = img.v.iter().map(|x| x.is_finite() && *x >= t).collect();
+    let pick = |m: &[bool]| -> Vec<f32> { interior(m, img.n, r).iter().zip(&img.v).filter(|(i, _)| **i).map(|(_, v)| *v).collect() };
+    let (mut d, mut b) = (pick(&dark), pick(&bright));
+    if d.len() < 4 || b.len() < 4 {
         return None;
     }
-    let med = |v: &mut Vec<f32>| {
-        v.sort_by(f32::total_cmp);
-        v[v.len() / 2]
-    };
-    Some([med(&mut dark), med(&mut bright)])
+    Some([median_f32(&mut d), median_f32(&mut b)])
+}
+
+fn median_f32(v: &mut [f32]) -> f32 {
+    let m = v.len() / 2;
+    *v.select_nth_unstable_by(m, f32::total_cmp).1
+}
+
+/// Pixels whose whole (2r+1)² square lies in `mask` and inside the n×n image (an erosion),
+/// by an integral image: O(n²) whatever r.
+fn interior(mask: &[bool], n: usize, r: usize) -> Vec<bool> {
+    let w = n + 1;
+    let mut sum = vec![0u32; w * w];
+    for b in 0..n {
+        let mut row = 0u32;
+        for a in 0..n {
+            row += mask[b * n + a] as u32;
+            sum[(b + 1) * w + a + 1] = sum[b * w + a + 1] + row;
+        }
+    }
+    let full = ((2 * r + 1) * (2 * r + 1)) as u32;
+    let mut out = vec![false; n * n];
+    for b in r..n.saturating_sub(r) {
+        for a in r..n - r {
+            let (a0, a1, b0, b1) = (a - r, a + r + 1, b - r, b + r + 1);
+            let c = sum[b1 * w + a1] + sum[b0 * w + a0] - sum[b0 * w + a1] - sum[b1 * w + a0];
+            out[b * n + a] = c == full;
+        }
+    }
+    out
 }
 
 /// Median of the interior pixels (at least `erode` pixels from any non-region pixel) of both
 /// scalae grown at threshold `thr`; None when neither has interior pixels.
 fn lumen_level(img: &Img, line: &Line, mid: [f64; 2], thr: f32, vmax: f64, width: f64, erode: usize) -> Option<f32> {
-    let n = img.n as isize;
-    let e = erode as isize;
     let mut vals = vec![];
     for side in [1.0, -1.0] {
         let Some(seed) = find_seed(img, line, mid, side, thr, vmax, width) else { continue };
         let r = grow(img, seed, line, side, thr);
-        for b in e..n - e {
-            for a in e..n - e {
-                let i = (b * n + a) as usize;
-                if r.mask[i] && (-e..=e).all(|db| (-e..=e).all(|da| r.mask[((b + db) * n + a + da) as usize])) {
-                    vals.push(img.v[i]);
-                }
-            }
-        }
+        vals.extend(interior(&r.mask, img.n, erode).iter().zip(&img.v).filter(|(i, _)| **i).map(|(_, v)| *v));
     }
     if vals.len() < 4 {
         return None;
     }
-    vals.sort_by(f32::total_cmp);
-    Some(vals[vals.len() / 2])
+    Some(median_f32(&mut vals))
 }
 
 /// A dark pixel on the given side of the partition, a little way off its midpoint, whose 3×3

@@ -158,14 +158,39 @@ pub fn resample_into(stack: &Stack, g: &Grid, out: &mut [f32]) {
     let inv = vox.mm.map(|x| 1.0 / x);
     let to_idx = |p: V| [p[0] * inv[0], p[1] * inv[1], p[2] * inv[2]];
     let (o, du, dv) = (to_idx(g.origin), to_idx(g.du), to_idx(g.dv));
+    let dims = stack.dims;
+    // strictly inside the last voxel centre on every axis: the fast path needs no checks
+    let inside = |p: V| (0..3).all(|a| dims[a] >= 2 && p[a] >= 0.0 && p[a] < (dims[a] - 1) as f64);
     with_samples!(&stack.samples, data => {
         for b in 0..g.nv {
             let row = v3::axpy(o, b as f64, dv);
-            for a in 0..g.nu {
-                out[b * g.nu + a] = trilinear_idx(data, stack.dims, v3::axpy(row, a as f64, du));
+            let line = &mut out[b * g.nu..(b + 1) * g.nu];
+            if g.nu > 0 && inside(row) && inside(v3::axpy(row, (g.nu - 1) as f64, du)) {
+                // the row lies wholly inside (the box is convex)
+                for (a, px) in line.iter_mut().enumerate() {
+                    *px = trilinear_inside(data, dims, v3::axpy(row, a as f64, du));
+                }
+            } else {
+                for (a, px) in line.iter_mut().enumerate() {
+                    *px = trilinear_idx(data, dims, v3::axpy(row, a as f64, du));
+                }
             }
         }
     })
+}
+
+/// [`trilinear_idx`] for indices known to satisfy 0 ≤ x < n − 1 on every axis (n ≥ 2).
+#[inline(always)]
+fn trilinear_inside<T: Sample>(data: &[T], dims: [usize; 3], x: [f64; 3]) -> f32 {
+    let (i, j, k) = (x[0] as usize, x[1] as usize, x[2] as usize);
+    let (fx, fy, fz) = ((x[0] - i as f64) as f32, (x[1] - j as f64) as f32, (x[2] - k as f64) as f32);
+    let (sy, sz) = (dims[0], dims[0] * dims[1]);
+    let b = k * sz + j * sy + i;
+    let c = &data[b..b + sz + sy + 2];
+    let lerp = |a: f32, b: f32, t: f32| a + (b - a) * t;
+    let y0 = lerp(lerp(c[0].f(), c[1].f(), fx), lerp(c[sy].f(), c[sy + 1].f(), fx), fy);
+    let y1 = lerp(lerp(c[sz].f(), c[sz + 1].f(), fx), lerp(c[sz + sy].f(), c[sz + sy + 1].f(), fx), fy);
+    lerp(y0, y1, fz)
 }
 
 /// A square grid of half-size `half` (mm) and `pitch` (mm) centred on the section, rows offset by

@@ -63,7 +63,9 @@ fn phantom_length_against_polyline() {
 /// (fixture written by tests/fixtures/make_fixtures.py).
 #[test]
 fn sampler_matches_scipy_map_coordinates() {
-    let st = stack::load(&common::fixture("sampler_volume.tif"), &LoadOptions::default()).unwrap();
+    // 1 mm voxels, so stack millimetres are voxel indices
+    let one = ductline::stack::VoxelSize::from_user_um(&[1000.0]).unwrap();
+    let st = stack::load(&common::fixture("sampler_volume.tif"), &LoadOptions { voxel: Some(one), ..Default::default() }).unwrap();
     let text = std::fs::read_to_string(common::fixture("sampler_points.csv")).unwrap();
     let mut n = 0;
     ductline::with_samples!(&st.samples, data => {
@@ -71,6 +73,10 @@ fn sampler_matches_scipy_map_coordinates() {
             let f: Vec<f64> = line.split(',').map(|x| x.parse().unwrap()).collect();
             let got = ductline::section::trilinear_idx(data, st.dims, [f[0], f[1], f[2]]) as f64;
             assert!((got - f[3]).abs() < 1e-3 * f[3].abs().max(1.0), "{line}: {got}");
+            // the row-wise fast path of plane resampling gives the same value
+            let g = ductline::section::Grid { origin: [f[0], f[1], f[2]], du: [1e-3, 0.0, 0.0], dv: [0.0, 0.0, 0.0], nu: 1, nv: 1 };
+            let fast = ductline::section::resample(&st, &g)[0] as f64;
+            assert!((fast - f[3]).abs() < 1e-3 * f[3].abs().max(1.0), "{line}: resample {fast}");
             n += 1;
         }
     });

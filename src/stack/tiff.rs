@@ -176,8 +176,39 @@ fn next(path: &Path, page: usize, dec: &mut Dec) -> Result<()> {
     dec.next_image().map_err(|e| Error::page(path, page, format!("cannot reach page: {e}")))
 }
 
+/// Where an uncompressed grey page keeps its samples as one contiguous run of `len` bytes in
+/// native byte order (offset in the file); None when any of that does not hold.
+fn raw_run(dec: &mut Dec, len: usize) -> Option<u64> {
+    use tiff::decoder::ChunkType;
+    use tiff::tags::ByteOrder;
+    let tag = |dec: &mut Dec, t: Tag| dec.find_tag_unsigned::<u32>(t).ok().flatten();
+    if tag(dec, Tag::Compression).unwrap_or(1) != 1 || tag(dec, Tag::SamplesPerPixel).unwrap_or(1) != 1 || dec.get_chunk_type() != ChunkType::Strip {
+        return None;
+    }
+    let little = matches!(dec.byte_order(), ByteOrder::LittleEndian);
+    if little != cfg!(target_endian = "little") {
+        return None;
+    }
+    let offs = dec.get_tag_u64_vec(Tag::StripOffsets).ok()?;
+    let counts = dec.get_tag_u64_vec(Tag::StripByteCounts).ok()?;
+    if offs.len() != counts.len() || offs.is_empty() || counts.iter().sum::<u64>() != len as u64 {
+        return None;
+    }
+    let contiguous = offs.windows(2).zip(&counts).all(|(w, c)| w[1] == w[0] + c);
+    contiguous.then_some(offs[0])
+}
+
 fn read_page<T: Sample>(path: &Path, page: usize, dec: &mut Dec, kind: Kind, out: &mut [T], conv: fn(f32) -> T) -> Result<()> {
     let perr = |e: tiff::TiffError| Error::page(path, page, format!("cannot decode (truncated or corrupt?): {e}"));
+    // uncompressed pages: one positioned read straight into the buffer
+    #[cfg(unix)]
+    if !matches!(kind, Kind::Rgb { .. }) {
+        let bytes: &mut [u8] = bytemuck::cast_slice_mut(out);
+        if let Some(off) = raw_run(dec, bytes.len()) {
+            use std::os::unix::fs::FileExt;
+            return dec.inner().get_ref().read_exact_at(bytes, off).map_err(|e| Error::page(path, page, format!("cannot read (truncated?): {e}")));
+        }
+    }
     match kind {
         Kind::Rgb { channels, .. } => {
             let img = dec.read_image().map_err(perr)?;
