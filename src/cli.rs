@@ -197,8 +197,8 @@ pub fn measure(a: MeasureArgs) -> Result<()> {
             (prj.stack_path(p), prj)
         }
         (None, Some(s), Some(l)) => {
-            let mut prj = project::Project::new(s, &a.out)?;
-            prj.landmarks = landmarks::read_csv(l, None)?;
+            // settings only: no project file is written, so the stack needs no fingerprint
+            let prj = project::Project { landmarks: landmarks::read_csv(l, None)?, ..project::Project::unsaved(s) };
             (s.clone(), prj)
         }
         _ => bail!("measure needs either a PROJECT file or both --stack and --landmarks"),

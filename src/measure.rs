@@ -194,6 +194,8 @@ struct Img {
     n: usize,
     pitch: f64,
     start: f64,
+    /// Per pixel: on the apical (positive) side of the partition line.
+    apical: Vec<bool>,
 }
 
 impl Img {
@@ -247,7 +249,7 @@ fn section_row(stack: &Stack, cl: &Centreline, g: &SectionGeom, s: &MeasureSetti
     let mut half = (1.5 * g.width()).max(10.0 * vmax).min(s.capture_mm);
     let levels_given = ov.and_then(|o| o.levels).or(s.levels);
     loop {
-        let img = sample_section(stack, g, half, pitch);
+        let img = sample_section(stack, g, &line, half, pitch);
         let levels = match levels_given {
             Some(l) => Some(l),
             None => find_levels(&img, (1.5 * vmax / pitch).ceil() as usize),
@@ -285,13 +287,13 @@ fn section_row(stack: &Stack, cl: &Centreline, g: &SectionGeom, s: &MeasureSetti
                 missing = true;
                 continue;
             };
-            let r = grow(&img, seed, &line, side, thr);
+            let r = grow(&img, seed, side, thr);
             if r.touches_border && half < s.capture_mm {
                 grow_more = true;
                 break;
             }
             open |= r.touches_border || r.touches_nan;
-            let (area, field, centroid) = fraction_area(&img, &r.mask, &line, side, thr, fluid, bone, band);
+            let (area, field, centroid) = fraction_area(&img, &r.mask, side, thr, fluid, bone, band);
             scalae[k] = Scala { area: Some(area), outline: outline(&img, &field, centroid), centroid, seed: Some(img.uv(seed)) };
         }
         if grow_more {
@@ -320,10 +322,12 @@ fn section_row(stack: &Stack, cl: &Centreline, g: &SectionGeom, s: &MeasureSetti
     }
 }
 
-fn sample_section(stack: &Stack, g: &SectionGeom, half: f64, pitch: f64) -> Img {
+fn sample_section(stack: &Stack, g: &SectionGeom, line: &Line, half: f64, pitch: f64) -> Img {
     let grid = section::section_grid(g, half, pitch);
     let start = -(grid.nu as f64 - 1.0) * 0.5 * pitch;
-    Img { v: section::resample(stack, &grid), n: grid.nu, pitch, start }
+    let mut img = Img { v: section::resample(stack, &grid), n: grid.nu, pitch, start, apical: vec![] };
+    img.apical = (0..img.v.len()).map(|i| line.side(img.uv(i)) > 0.0).collect();
+    img
 }
 
 /// Otsu's threshold (Otsu 1979) over finite values: the cut maximizing between-class variance.
@@ -406,7 +410,7 @@ fn lumen_level(img: &Img, line: &Line, mid: [f64; 2], thr: f32, vmax: f64, width
     let mut vals = vec![];
     for side in [1.0, -1.0] {
         let Some(seed) = find_seed(img, line, mid, side, thr, vmax, width) else { continue };
-        let r = grow(img, seed, line, side, thr);
+        let r = grow(img, seed, side, thr);
         vals.extend(interior(&r.mask, img.n, erode).iter().zip(&img.v).filter(|(i, _)| **i).map(|(_, v)| *v));
     }
     if vals.len() < 4 {
@@ -426,7 +430,7 @@ fn find_seed(img: &Img, line: &Line, mid: [f64; 2], side: f64, thr: f32, vmax: f
         let q = [mid[0] + side * d * line.n[0], mid[1] + side * d * line.n[1]];
         if let Some(i) = img.index(q) {
             let (a, b) = (i % n, i / n);
-            if a > 0 && b > 0 && a + 1 < n && b + 1 < n && line.side(img.uv(i)) * side > 0.0 {
+            if a > 0 && b > 0 && a + 1 < n && b + 1 < n && img.apical[i] == (side > 0.0) {
                 let all = (0..3).all(|db| (0..3).all(|da| dark((b + db - 1) * n + a + da - 1)));
                 if all {
                     return Some(i);
@@ -445,7 +449,7 @@ struct Region {
 }
 
 /// 4-connected flood fill from `seed` over dark pixels on one side of the partition line.
-fn grow(img: &Img, seed: usize, line: &Line, side: f64, thr: f32) -> Region {
+fn grow(img: &Img, seed: usize, side: f64, thr: f32) -> Region {
     let n = img.n;
     let mut mask = vec![false; n * n];
     let mut stack = vec![seed];
@@ -465,7 +469,7 @@ fn grow(img: &Img, seed: usize, line: &Line, side: f64, thr: f32) -> Region {
                 touches_nan = true;
                 return;
             }
-            if x < thr && line.side(img.uv(j)) * side > 0.0 {
+            if x < thr && img.apical[j] == (side > 0.0) {
                 mask[j] = true;
                 stack.push(j);
             }
@@ -489,10 +493,10 @@ fn grow(img: &Img, seed: usize, line: &Line, side: f64, thr: f32) -> Region {
 /// Partial-volume area (mm²) of a grown region and its edge band; also the per-pixel fluid
 /// fraction field (0 outside) and the fraction-weighted centroid.
 #[allow(clippy::too_many_arguments)]
-fn fraction_area(img: &Img, mask: &[bool], line: &Line, side: f64, thr: f32, fluid: f32, bone: f32, band: usize) -> (f64, Vec<f32>, [f64; 2]) {
+fn fraction_area(img: &Img, mask: &[bool], side: f64, thr: f32, fluid: f32, bone: f32, band: usize) -> (f64, Vec<f32>, [f64; 2]) {
     let n = img.n as isize;
     let k = band as isize;
-    let same = |i: usize| line.side(img.uv(i)) * side > 0.0;
+    let same = |i: usize| img.apical[i] == (side > 0.0);
     let other_dark = |i: usize| !mask[i] && img.v[i].is_finite() && img.v[i] < thr && same(i);
     let mut cand = vec![false; mask.len()];
     for i in 0..mask.len() {

@@ -64,17 +64,22 @@ pub struct Project {
 impl Project {
     /// A new project for a stack at `stack_path`, to be saved at `project_path`.
     pub fn new(stack_path: &Path, project_path: &Path) -> Result<Project> {
-        Ok(Project {
+        Ok(Project { stack: stack_ref(stack_path, project_path)?, ..Project::unsaved(stack_path) })
+    }
+
+    /// Default settings for a stack, with no fingerprint (for runs that save no project).
+    pub fn unsaved(stack_path: &Path) -> Project {
+        Project {
             format: "ductline-project".into(),
             version: FORMAT_VERSION,
-            stack: stack_ref(stack_path, project_path)?,
+            stack: StackRef { path: stack_path.to_string_lossy().to_string(), bytes: 0, hash: String::new() },
             voxel_um: None,
             species: "human".into(),
             landmarks: vec![],
             fit: FitSettings::default(),
             measure: MeasureSettings::default(),
             overrides: vec![],
-        })
+        }
     }
 
     /// The stack path resolved against the project file's folder.
