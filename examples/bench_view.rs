@@ -10,7 +10,7 @@ fn main() {
     let n = 2048;
     let slices = 8;
     let data: Vec<u16> = (0..n * n * slices).map(|i| ((i * 2654435761usize) >> 16) as u16).collect();
-    let st = Stack::from_samples([n, n, slices], Samples::U16(data), None).unwrap();
+    let st = Stack::from_samples([n, n, slices], Samples::U16(data.into()), None).unwrap();
     let mut rgba = vec![];
     let mut times = vec![];
     for r in 0..40 {

@@ -26,6 +26,12 @@ pub enum Cmd {
         /// Voxel size in µm: one value (isotropic) or X,Y,Z.
         #[arg(long, value_name = "X[,Y,Z]")]
         voxel_um: Option<String>,
+        /// Bin 2×2×2 or 4×4×4 while loading.
+        #[arg(long, default_value_t = 1)]
+        bin: usize,
+        /// Load only a sub-volume, in voxel indices of the whole stack (half-open ranges).
+        #[arg(long, value_name = "I0:I1,J0:J1,K0:K1")]
+        crop: Option<String>,
     },
     /// Write a synthetic cochlea: phantom.tif, landmarks.csv, truth.csv, truth.json.
     Phantom {
@@ -82,10 +88,28 @@ pub enum Cmd {
         /// Species preset of the frequency map (human, cat, guinea-pig, chinchilla, macaque, gerbil, mouse).
         #[arg(long)]
         species: Option<String>,
-        /// Bin 2×2×2 while loading.
+        /// Bin 2×2×2 or 4×4×4 while loading (coordinates stay those of the whole stack).
         #[arg(long, default_value_t = 1)]
         bin: usize,
+        /// Load only a sub-volume, in voxel indices of the whole stack (half-open ranges).
+        #[arg(long, value_name = "I0:I1,J0:J1,K0:K1")]
+        crop: Option<String>,
     },
+}
+
+/// Parses `I0:I1,J0:J1,K0:K1`.
+pub fn crop_arg(s: &Option<String>) -> Result<Option<[[usize; 2]; 3]>> {
+    let Some(s) = s else { return Ok(None) };
+    let parts: Vec<&str> = s.split(',').collect();
+    if parts.len() != 3 {
+        bail!("--crop needs three ranges I0:I1,J0:J1,K0:K1, got '{s}'");
+    }
+    let mut out = [[0usize; 2]; 3];
+    for (a, p) in parts.iter().enumerate() {
+        let (lo, hi) = p.split_once(':').with_context(|| format!("--crop: '{p}' is not a range LO:HI"))?;
+        out[a] = [lo.trim().parse().with_context(|| format!("--crop: '{lo}' is not a whole number"))?, hi.trim().parse().with_context(|| format!("--crop: '{hi}' is not a whole number"))?];
+    }
+    Ok(Some(out))
 }
 
 fn parse_list(s: &str, what: &str) -> Result<Vec<f64>> {
@@ -132,8 +156,8 @@ fn with_progress<T>(label: &'static str, f: impl FnOnce(&Progress) -> T) -> T {
     out
 }
 
-pub fn inspect(path: &Path, voxel: Option<String>) -> Result<()> {
-    let opts = LoadOptions { voxel: voxel_arg(&voxel)?, ..Default::default() };
+pub fn inspect(path: &Path, voxel: Option<String>, bin: usize, crop: Option<String>) -> Result<()> {
+    let opts = LoadOptions { voxel: voxel_arg(&voxel)?, bin, crop: crop_arg(&crop)?, ..Default::default() };
     let st = with_progress("loading", |p| stack::load_with_progress(path, &opts, p))?;
     let (lo, hi) = st.value_range();
     println!("file:        {}", path.display());
@@ -144,7 +168,12 @@ pub fn inspect(path: &Path, voxel: Option<String>) -> Result<()> {
         None => println!("voxel size:  unknown (give --voxel-um)"),
     }
     println!("value range: {lo} … {hi}");
-    println!("memory:      {} bytes ({:.1} MB)", st.bytes(), st.bytes() as f64 / 1e6);
+    let how = if st.samples.is_mapped() { "memory-mapped from the file, read on demand" } else { "in memory" };
+    println!("memory:      {} bytes ({:.1} MB), {how}", st.bytes(), st.bytes() as f64 / 1e6);
+    if st.origin_vox != [0.0; 3] {
+        let o = st.origin_mm();
+        println!("origin:      first voxel centre at ({:.4}, {:.4}, {:.4}) mm of the whole stack", o[0], o[1], o[2]);
+    }
     for w in &st.warnings {
         eprintln!("warning: {w}");
     }
@@ -185,6 +214,7 @@ pub struct MeasureArgs {
     pub voxel_um: Option<String>,
     pub species: Option<String>,
     pub bin: usize,
+    pub crop: Option<String>,
 }
 
 pub fn measure(a: MeasureArgs) -> Result<()> {
@@ -214,7 +244,7 @@ pub fn measure(a: MeasureArgs) -> Result<()> {
         Some(v) => Some(v),
         None => prj.voxel_um.map(|um| VoxelSize::from_user_um(&um)).transpose()?,
     };
-    let opts = LoadOptions { voxel, bin: a.bin, ..Default::default() };
+    let opts = LoadOptions { voxel, bin: a.bin, crop: crop_arg(&a.crop)?, ..Default::default() };
     let st = with_progress("loading", |p| stack::load_with_progress(&stack_path, &opts, p))?;
     for w in &st.warnings {
         eprintln!("warning: {w}");

@@ -605,7 +605,6 @@ fn outline(img: &Img, field: &[f32], c: [f64; 2]) -> Vec<[f64; 2]> {
 #[allow(clippy::too_many_arguments)]
 fn wall(stack: &Stack, g: &SectionGeom, mid: [f64; 2], dir: [f64; 2], pitch: f64, capture: f64, thr: f32, bone: f32) -> Option<f64> {
     let vox = stack.voxel.as_ref()?;
-    let inv = vox.mm.map(|x| 1.0 / x);
     let h = 0.5 * pitch;
     let steps = ((capture + 1.0) / h) as usize;
     let normal = [-dir[1], dir[0]];
@@ -614,7 +613,7 @@ fn wall(stack: &Stack, g: &SectionGeom, mid: [f64; 2], dir: [f64; 2], pitch: f64
         let mut acc = 0.0f32;
         for o in [-2.0, -1.0, 1.0, 2.0] {
             let q = [mid[0] + d * dir[0] + o * pitch * normal[0], mid[1] + d * dir[1] + o * pitch * normal[1]];
-            acc += section::trilinear(data, stack.dims, inv, g.from_plane(q));
+            acc += section::trilinear_idx(data, stack.dims, stack.to_index(g.from_plane(q)));
         }
         acc / 4.0
     }).collect());

@@ -367,10 +367,10 @@ pub fn generate(spec: &PhantomSpec, progress: &Progress) -> Result<Phantom> {
             noisy(k, v);
             progress.add(1);
         });
-        if spec.bits == 8 { Samples::U8(vol.iter().map(|x| *x as u8).collect()) } else { Samples::U16(vol.iter().map(|x| *x as u16).collect()) }
+        if spec.bits == 8 { Samples::U8(vol.iter().map(|x| *x as u8).collect::<Vec<_>>().into()) } else { Samples::U16(vol.iter().map(|x| *x as u16).collect::<Vec<_>>().into()) }
     };
     drop(vol);
-    let voxel = VoxelSize { mm: vox, source: std::array::from_fn(|_| VoxelSource::User) };
+    let voxel = VoxelSize::new(vox, std::array::from_fn(|_| VoxelSource::User));
     let stack = Stack::from_samples(dims, samples, Some(voxel))?;
     let landmarks = landmarks(spec, &pl);
     let truth = truth(spec);

@@ -102,13 +102,6 @@ pub struct Grid {
     pub nv: usize,
 }
 
-/// Trilinear value at a stack point (mm); NaN outside the voxel centres' box.
-/// `inv` is 1/voxel size per axis (1/mm).
-#[inline]
-pub fn trilinear<T: Sample>(data: &[T], dims: [usize; 3], inv: [f64; 3], p: V) -> f32 {
-    trilinear_idx(data, dims, [p[0] * inv[0], p[1] * inv[1], p[2] * inv[2]])
-}
-
 /// Trilinear value at continuous voxel indices (i, j, k); NaN outside [0, n−1] on any axis.
 #[inline]
 pub fn trilinear_idx<T: Sample>(data: &[T], dims: [usize; 3], x: [f64; 3]) -> f32 {
@@ -156,8 +149,8 @@ pub fn resample(stack: &Stack, g: &Grid) -> Vec<f32> {
 pub fn resample_into(stack: &Stack, g: &Grid, out: &mut [f32]) {
     let Some(vox) = &stack.voxel else { return };
     let inv = vox.mm.map(|x| 1.0 / x);
-    let to_idx = |p: V| [p[0] * inv[0], p[1] * inv[1], p[2] * inv[2]];
-    let (o, du, dv) = (to_idx(g.origin), to_idx(g.du), to_idx(g.dv));
+    let step = |d: V| [d[0] * inv[0], d[1] * inv[1], d[2] * inv[2]];
+    let (o, du, dv) = (stack.to_index(g.origin), step(g.du), step(g.dv));
     let dims = stack.dims;
     // strictly inside the last voxel centre on every axis: the fast path needs no checks
     let inside = |p: V| (0..3).all(|a| dims[a] >= 2 && p[a] >= 0.0 && p[a] < (dims[a] - 1) as f64);

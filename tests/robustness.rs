@@ -68,7 +68,7 @@ proptest! {
         let mut x = seed.wrapping_mul(6364136223846793005).wrapping_add(1);
         let data: Vec<u16> = (0..nx * ny * nz).map(|_| { x = x.wrapping_mul(6364136223846793005).wrapping_add(1442695040888963407); (x >> 48) as u16 }).collect();
         let vox = ductline::stack::VoxelSize::from_user_um(&[50.0]).unwrap();
-        let st = ductline::stack::Stack::from_samples([nx, ny, nz], ductline::stack::Samples::U16(data), Some(vox)).unwrap();
+        let st = ductline::stack::Stack::from_samples([nx, ny, nz], ductline::stack::Samples::U16(data.into()), Some(vox)).unwrap();
         let f = Frame::new([1.0, 1.0, 0.1], [1.0, 1.0, 0.5], [1.8, 1.0, 0.1], Handedness::Right).unwrap();
         let mut lms = vec![
             Landmark { kind: Kind::AxisBase, p: [1.0, 1.0, 0.1] },
@@ -109,7 +109,7 @@ fn nan_voxels_are_flagged_not_reported() {
             }
         }
     }
-    let st = ductline::stack::Stack::from_samples(ph.stack.dims, ductline::stack::Samples::F32(f), ph.stack.voxel.clone()).unwrap();
+    let st = ductline::stack::Stack::from_samples(ph.stack.dims, ductline::stack::Samples::F32(f.into()), ph.stack.voxel.clone()).unwrap();
     let out = ductline::pipeline::run(&st, &ph.landmarks, &FitSettings::default(), &MeasureSettings { step_mm: 0.25, ..Default::default() }, &[], &ductline::cochlea::Greenwood::preset("human").unwrap(), &ductline::progress::Progress::new()).unwrap();
     let open = out.rows.iter().filter(|r| r.flags.contains(&ductline::measure::Flag::Open)).count();
     assert!(open > 0, "sections through the hole are flagged open");

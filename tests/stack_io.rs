@@ -23,11 +23,11 @@ fn decodes_like_tifffile() {
         assert_eq!(st.dims, [shape[2], shape[1], shape[0]], "{name}: dims");
         let raw = std::fs::read(fixture(&format!("tiff/{name}.raw"))).unwrap();
         match (&st.samples, f["dtype"].as_str().unwrap()) {
-            (Samples::U8(v), "uint8") => assert_eq!(v.as_slice(), raw.as_slice(), "{name}"),
+            (Samples::U8(v), "uint8") => assert_eq!(&v[..], raw.as_slice(), "{name}"),
             (Samples::U16(v), "uint16") => assert_eq!(v, &common::raw_u16(&format!("tiff/{name}.raw")), "{name}"),
             (Samples::F32(v), "float32") => {
                 let want: Vec<f32> = raw.chunks_exact(4).map(|c| f32::from_le_bytes([c[0], c[1], c[2], c[3]])).collect();
-                assert_eq!(v, &want, "{name}");
+                assert_eq!(&v[..], &want[..], "{name}");
             }
             (s, d) => panic!("{name}: sample type {} for numpy {d}", s.type_name()),
         }
@@ -140,7 +140,7 @@ fn bad_inputs_give_one_line_errors() {
     let mixed = dir.path().join("mixed");
     std::fs::create_dir(&mixed).unwrap();
     for (k, n) in [(1, 5usize), (2, 5), (3, 6)] {
-        let st = stack::Stack::from_samples([n, 4, 1], Samples::U8(vec![7; n * 4]), None).unwrap();
+        let st = stack::Stack::from_samples([n, 4, 1], Samples::U8(vec![7; n * 4].into()), None).unwrap();
         stack::write::write_tiff(&st, &mixed.join(format!("s_{k}.tif")), stack::write::Packing::None, false).unwrap();
     }
     let e = err_of(&mixed);
@@ -170,7 +170,7 @@ fn writer_round_trip_with_ome_sizes() {
     let dir = tempfile::tempdir().unwrap();
     let v = VoxelSize::from_user_um(&[11.0, 12.0, 13.5]).unwrap();
     let data: Vec<u16> = (0..(7 * 5 * 3)).map(|i| (i * 613 % 65535) as u16).collect();
-    let st = stack::Stack::from_samples([7, 5, 3], Samples::U16(data.clone()), Some(v)).unwrap();
+    let st = stack::Stack::from_samples([7, 5, 3], Samples::U16(data.clone().into()), Some(v)).unwrap();
     for (packing, big) in [(stack::write::Packing::None, false), (stack::write::Packing::Deflate, true), (stack::write::Packing::Lzw, false)] {
         let p = dir.path().join("rt.tif");
         stack::write::write_tiff(&st, &p, packing, big).unwrap();
@@ -180,5 +180,93 @@ fn writer_round_trip_with_ome_sizes() {
         assert_eq!(b, data);
         let mm = back.voxel.unwrap().mm;
         assert!((mm[2] - 0.0135).abs() < 1e-12 && (mm[1] - 0.012).abs() < 1e-12);
+    }
+}
+
+/// Which fixtures are memory-mapped (pages back to back, uncompressed), and mapped values equal
+/// the copied ones.
+#[test]
+fn memory_mapped_equals_copied() {
+    let mut mapped = 0;
+    for name in ["u8_plain", "u16_bigtiff", "f32_plain", "u16_ome", "u16_deflate", "u16_tiled"] {
+        let p = fixture(&format!("tiff/{name}.tif"));
+        let m = stack::load(&p, &LoadOptions::default()).unwrap();
+        let c = stack::load(&p, &LoadOptions { map: false, ..Default::default() }).unwrap();
+        assert!(!c.samples.is_mapped());
+        mapped += m.samples.is_mapped() as usize;
+        assert_eq!(m.dims, c.dims);
+        for i in (0..c.samples.len()).step_by(7) {
+            assert_eq!(m.samples.get(i).to_bits(), c.samples.get(i).to_bits(), "{name} at {i}");
+        }
+        if name.contains("deflate") || name.contains("tiled") {
+            assert!(!m.samples.is_mapped(), "{name}: compressed or tiled pages are never mapped");
+        }
+    }
+    assert!(mapped >= 2, "tifffile writes uncompressed pages back to back: {mapped} mapped");
+}
+
+/// A crop keeps the stack's coordinates: each cropped voxel has the value and the millimetre
+/// position of the same voxel in the whole stack.
+#[test]
+fn crop_keeps_values_and_coordinates() {
+    let v = Some(VoxelSize::from_user_um(&[10.0, 12.0, 15.0]).unwrap());
+    let p = fixture("tiff/u16_lzw.tif");
+    let full = stack::load(&p, &LoadOptions { voxel: v.clone(), ..Default::default() }).unwrap();
+    let crop = [[5, 30], [3, 20], [1, 4]];
+    let c = stack::load(&p, &LoadOptions { voxel: v, crop: Some(crop), ..Default::default() }).unwrap();
+    assert_eq!(c.dims, [25, 17, 3]);
+    for (i, j, k) in [(0, 0, 0), (24, 16, 2), (7, 3, 1)] {
+        let (fi, fj, fk) = (i + crop[0][0], j + crop[1][0], k + crop[2][0]);
+        assert_eq!(c.samples.get(c.index(i, j, k)), full.samples.get(full.index(fi, fj, fk)));
+        let (a, b) = (c.to_mm([i as f64, j as f64, k as f64]), full.to_mm([fi as f64, fj as f64, fk as f64]));
+        assert!((0..3).all(|x| (a[x] - b[x]).abs() < 1e-12), "{a:?} vs {b:?}");
+    }
+    let q = full.to_mm([12.3, 9.7, 2.2]);
+    assert!((c.sample_mm(q) - full.sample_mm(q)).abs() < 1e-3);
+    assert!(!c.contains_mm(full.to_mm([1.0, 1.0, 1.0])));
+    let e = stack::load(&p, &LoadOptions { crop: Some([[0, 99], [0, 5], [0, 1]]), ..Default::default() }).unwrap_err();
+    assert!(e.to_string().contains("crop"), "{e}");
+}
+
+/// Binning 2 and 4 averages blocks of the whole stack and puts each binned voxel at the centre of
+/// its block, in the whole stack's millimetres; a crop and a bin combine.
+#[test]
+fn binning_keeps_coordinates() {
+    let v = Some(VoxelSize::from_user_um(&[10.0]).unwrap());
+    let p = fixture("tiff/u16_tiled.tif"); // 50 × 40 × 3
+    let full = stack::load(&p, &LoadOptions { voxel: v.clone(), ..Default::default() }).unwrap();
+    for (b, crop) in [(2usize, None), (4, None), (2, Some([[6usize, 30usize], [4, 36], [1, 3]]))] {
+        let st = stack::load(&p, &LoadOptions { voxel: v.clone(), bin: b, crop, ..Default::default() }).unwrap();
+        let c0 = crop.map(|c| c.map(|r| r[0])).unwrap_or([0; 3]);
+        for (i, j, k) in [(0usize, 0usize, 0usize), (3, 2, 0)] {
+            if i >= st.dims[0] || j >= st.dims[1] || k >= st.dims[2] {
+                continue;
+            }
+            // the block's mean and centre in the whole stack
+            let (mut sum, mut n, mut centre) = (0.0f64, 0.0, [0.0f64; 3]);
+            for dk in 0..b {
+                let fk = c0[2] + b * k + dk;
+                if fk >= full.dims[2] || crop.is_some_and(|c| fk >= c[2][1]) {
+                    continue;
+                }
+                for dj in 0..b {
+                    for di in 0..b {
+                        let f = [c0[0] + b * i + di, c0[1] + b * j + dj, fk];
+                        sum += full.samples.get(full.index(f[0], f[1], f[2])) as f64;
+                        n += 1.0;
+                        let m = full.to_mm(f.map(|x| x as f64));
+                        centre = [centre[0] + m[0], centre[1] + m[1], centre[2] + m[2]];
+                    }
+                }
+            }
+            let got = st.samples.get(st.index(i, j, k)) as f64;
+            assert!((got - (sum / n).round()).abs() <= 0.5, "bin {b}: {got} vs {}", sum / n);
+            let at = st.to_mm([i as f64, j as f64, k as f64]);
+            if n as usize == b * b * b {
+                for a in 0..3 {
+                    assert!((at[a] - centre[a] / n).abs() < 1e-12, "bin {b}: centre {at:?} vs {:?}", centre.map(|c| c / n));
+                }
+            }
+        }
     }
 }

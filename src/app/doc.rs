@@ -89,9 +89,8 @@ impl Doc {
     }
 
     pub fn set_voxel(&mut self, v: VoxelSize) {
-        let mut st = (*self.stack).clone();
-        st.voxel = Some(v);
-        self.stack = Arc::new(st);
+        // a copy only when a background job still holds the stack (memory maps are shared)
+        Arc::make_mut(&mut self.stack).voxel = Some(v);
         self.user_voxel = true;
         self.dirty = true;
         self.outcome = None;

@@ -322,17 +322,19 @@ impl DuctApp {
                 }
             }
             Cmd::Recover => {
-                if let (Some(path), Some(doc)) = (self.recovery.take(), self.doc.as_mut()) {
+                if let (Some(path), Some(doc)) = (self.recovery.take(), self.doc.take()) {
                     match Project::load(&path) {
                         Ok(p) => {
                             let keep = doc.project_path.clone();
-                            let stack = (*doc.stack).clone();
-                            let mut d = Doc::new(stack, doc.stack_path.clone()).with_project(p, keep);
+                            let mut d = doc.with_project(p, keep);
                             d.dirty = true;
-                            *doc = d;
+                            self.doc = Some(d);
                             self.status = format!("recovered unsaved work from {}", path.display());
                         }
-                        Err(e) => self.status = format!("error: {e}"),
+                        Err(e) => {
+                            self.doc = Some(doc);
+                            self.status = format!("error: {e}");
+                        }
                     }
                 }
             }

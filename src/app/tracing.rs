@@ -83,21 +83,22 @@ impl View {
         let st = &doc.stack;
         let v = st.voxel.as_ref()?.mm;
         let [nx, ny, nz] = st.dims;
+        let [i, j, k] = self.index.map(|x| x as f64);
         Some(match self.plane {
-            Plane::Slice(2) => PlaneMap { origin: [0.0, 0.0, self.index[2] as f64 * v[2]], du: [v[0], 0.0, 0.0], dv: [0.0, v[1], 0.0], nu: nx, nv: ny },
-            Plane::Slice(1) => PlaneMap { origin: [0.0, self.index[1] as f64 * v[1], 0.0], du: [v[0], 0.0, 0.0], dv: [0.0, 0.0, v[2]], nu: nx, nv: nz },
-            Plane::Slice(_) => PlaneMap { origin: [self.index[0] as f64 * v[0], 0.0, 0.0], du: [0.0, v[1], 0.0], dv: [0.0, 0.0, v[2]], nu: ny, nv: nz },
+            Plane::Slice(2) => PlaneMap { origin: st.to_mm([0.0, 0.0, k]), du: [v[0], 0.0, 0.0], dv: [0.0, v[1], 0.0], nu: nx, nv: ny },
+            Plane::Slice(1) => PlaneMap { origin: st.to_mm([0.0, j, 0.0]), du: [v[0], 0.0, 0.0], dv: [0.0, 0.0, v[2]], nu: nx, nv: nz },
+            Plane::Slice(_) => PlaneMap { origin: st.to_mm([i, 0.0, 0.0]), du: [0.0, v[1], 0.0], dv: [0.0, 0.0, v[2]], nu: ny, nv: nz },
             Plane::Radial => {
                 let frame = match &doc.fitted {
                     Ok(c) => c.frame.clone(),
                     Err(_) => ductline::landmarks::frame_from(&doc.lms.items).ok()?,
                 };
                 let (o, er, ez) = frame.radial_plane(self.angle_deg);
-                let ext = st.extent_mm().ok()?;
+                let (lo, hi) = st.bounds_mm().ok()?;
                 // the rectangle of the plane that covers the stack: its corners projected
                 let (mut u0, mut u1, mut w0, mut w1) = (f64::INFINITY, f64::NEG_INFINITY, f64::INFINITY, f64::NEG_INFINITY);
                 for c in 0..8 {
-                    let p = [if c & 1 == 0 { 0.0 } else { ext[0] }, if c & 2 == 0 { 0.0 } else { ext[1] }, if c & 4 == 0 { 0.0 } else { ext[2] }];
+                    let p = [if c & 1 == 0 { lo[0] } else { hi[0] }, if c & 2 == 0 { lo[1] } else { hi[1] }, if c & 4 == 0 { lo[2] } else { hi[2] }];
                     let d = v3::sub(p, o);
                     let (u, w) = (v3::dot(d, er), v3::dot(d, ez));
                     (u0, u1, w0, w1) = (u0.min(u), u1.max(u), w0.min(w), w1.max(w));
@@ -193,8 +194,7 @@ impl View {
         let nearest = |pos: Pos2| screen_lms.iter().filter(|(_, s)| s.distance(pos) < 9.0).min_by(|a, b| a.1.distance(pos).total_cmp(&b.1.distance(pos))).map(|x| x.0);
         if let Some(pos) = resp.hover_pos() {
             let p = to_stack(pos);
-            let inv = doc.stack.voxel.as_ref().map(|v| v.mm.map(|x| 1.0 / x)).unwrap_or([1.0; 3]);
-            let value = ductline::with_samples!(&doc.stack.samples, d => section::trilinear(d, doc.stack.dims, inv, p));
+            let value = doc.stack.sample_mm(p);
             let cochlear = doc.fitted.as_ref().ok().map(|c| c.frame.to_cochlear(p));
             self.hover = Some(Hover { p, cochlear, value });
         } else {
@@ -296,9 +296,9 @@ impl View {
 
     /// Moves the view to show a landmark's plane.
     pub fn go_to(&mut self, doc: &Doc, p: V) {
-        if let Some(v) = &doc.stack.voxel {
+        if doc.stack.voxel.is_some() {
             if let Plane::Slice(a) = self.plane {
-                self.index[a] = ((p[a] / v.mm[a]).round().max(0.0) as usize).min(doc.stack.dims[a] - 1);
+                self.index[a] = (doc.stack.to_index(p)[a].round().max(0.0) as usize).min(doc.stack.dims[a] - 1);
             } else if let Ok(c) = &doc.fitted {
                 self.angle_deg = c.frame.to_cochlear(p)[1];
             }

@@ -82,7 +82,7 @@ fn slice_header(p: &Path) -> Result<(usize, usize, Kind, Option<VoxelSize>)> {
         };
         let voxel = info.pixel_dims.filter(|d| d.unit == png::Unit::Meter && d.xppu > 0 && d.yppu > 0).map(|d| {
             let (x, y) = (1000.0 / d.xppu as f64, 1000.0 / d.yppu as f64);
-            VoxelSize { mm: [x, y, x], source: [VoxelSource::PngPhys, VoxelSource::PngPhys, VoxelSource::AssumedIsotropic] }
+            VoxelSize::new([x, y, x], [VoxelSource::PngPhys, VoxelSource::PngPhys, VoxelSource::AssumedIsotropic])
         });
         Ok((info.width as usize, info.height as usize, kind, voxel))
     } else {
@@ -144,42 +144,44 @@ pub(super) fn load(dir: &Path, opts: &LoadOptions, progress: &Progress) -> Resul
     let files = slice_files(dir)?;
     let (nx, ny, kind, voxel) = check_all(&files)?;
     let b = opts.bin;
-    let dims = [nx / b, ny / b, files.len().div_ceil(b)];
+    let crop = super::crop_box(dir, opts.crop, [nx, ny, files.len()])?;
+    let size = crop.map(|r| r[1] - r[0]);
+    let dims = [size[0] / b, size[1] / b, size[2].div_ceil(b)];
     if dims.contains(&0) {
         return Err(Error::format(dir, "stack too small to bin"));
     }
     super::check_memory(dir, (dims.iter().product::<usize>() * kind_bytes(kind)) as u64, opts.max_bytes)?;
+    let files = &files[crop[2][0]..crop[2][1]];
     progress.start(files.len() as u64);
+    let xy = [crop[0], crop[1]];
     let samples = match kind_name(kind) {
-        "uint8" => Samples::U8(decode(&files, nx, ny, b, super::to_u8, progress)?),
-        "uint16" => Samples::U16(decode(&files, nx, ny, b, super::to_u16, progress)?),
-        _ => Samples::F32(decode(&files, nx, ny, b, super::to_f32, progress)?),
+        "uint8" => Samples::U8(decode(files, nx, ny, xy, b, super::to_u8, progress)?.into()),
+        "uint16" => Samples::U16(decode(files, nx, ny, xy, b, super::to_u16, progress)?.into()),
+        _ => Samples::F32(decode(files, nx, ny, xy, b, super::to_f32, progress)?.into()),
     };
     let mut warnings = vec![];
     if let Kind::Rgb { .. } = kind {
         warnings.push(format!("{}: colour slices turned into grey (BT.601 luma)", dir.display()));
     }
-    Ok(Stack { dims, samples, voxel, path: dir.to_path_buf(), warnings })
+    Ok(Stack { dims, samples, voxel, origin_vox: [0.0; 3], path: dir.to_path_buf(), warnings })
 }
 
-fn decode<T: Sample>(files: &[PathBuf], nx: usize, ny: usize, bin: usize, conv: fn(f32) -> T, progress: &Progress) -> Result<Vec<T>> {
-    let out_slice = (nx / bin) * (ny / bin);
+/// Decodes the slices in parallel, one output slice at a time from `bin` files (cropped, binned).
+fn decode<T: Sample>(files: &[PathBuf], nx: usize, ny: usize, crop: [[usize; 2]; 2], bin: usize, conv: fn(f32) -> T, progress: &Progress) -> Result<Vec<T>> {
+    let out_slice = ((crop[0][1] - crop[0][0]) / bin) * ((crop[1][1] - crop[1][0]) / bin);
     let mut out = vec![T::zeroed(); out_slice * files.len().div_ceil(bin)];
     out.par_chunks_mut(out_slice).enumerate().try_for_each(|(k, slice)| -> Result<()> {
         progress.check()?;
-        if bin == 1 {
-            read_slice(&files[k], slice, conv)?;
-        } else {
-            let mut a = vec![T::zeroed(); nx * ny];
-            read_slice(&files[2 * k], &mut a, conv)?;
-            let bpage = files.get(2 * k + 1).map(|f| {
+        let group = &files[k * bin..((k + 1) * bin).min(files.len())];
+        let pages = group
+            .iter()
+            .map(|f| {
                 let mut v = vec![T::zeroed(); nx * ny];
                 read_slice(f, &mut v, conv).map(|_| v)
-            });
-            let bpage = bpage.transpose()?;
-            super::bin_pair(&a, bpage.as_deref(), nx, ny, slice, conv);
-        }
-        progress.add(bin as u64);
+            })
+            .collect::<Result<Vec<_>>>()?;
+        super::assemble(&pages, nx, crop, bin, slice, conv);
+        progress.add(group.len() as u64);
         Ok(())
     })?;
     Ok(out)

@@ -45,12 +45,57 @@ impl Sample for f32 {
     }
 }
 
+/// Voxel storage: an owned buffer, or a read-only memory map of an uncompressed file whose pages
+/// lie back to back (the operating system reads pages on demand). Dereferences to a slice.
+#[derive(Clone)]
+pub enum Buf<T: Sample> {
+    Owned(Vec<T>),
+    Mapped { map: std::sync::Arc<memmap2::Mmap>, offset: usize, len: usize },
+}
+
+impl<T: Sample> std::ops::Deref for Buf<T> {
+    type Target = [T];
+    fn deref(&self) -> &[T] {
+        match self {
+            Buf::Owned(v) => v,
+            Buf::Mapped { map, offset, len } => bytemuck::cast_slice(&map[*offset..*offset + len * std::mem::size_of::<T>()]),
+        }
+    }
+}
+
+impl<T: Sample> From<Vec<T>> for Buf<T> {
+    fn from(v: Vec<T>) -> Self {
+        Buf::Owned(v)
+    }
+}
+
+impl<T: Sample + PartialEq> PartialEq<Vec<T>> for Buf<T> {
+    fn eq(&self, other: &Vec<T>) -> bool {
+        **self == other[..]
+    }
+}
+
+impl<T: Sample> std::fmt::Debug for Buf<T> {
+    fn fmt(&self, f: &mut std::fmt::Formatter<'_>) -> std::fmt::Result {
+        match self {
+            Buf::Owned(v) => write!(f, "Owned({} samples)", v.len()),
+            Buf::Mapped { len, offset, .. } => write!(f, "Mapped({len} samples at byte {offset})"),
+        }
+    }
+}
+
+impl<T: Sample> Buf<T> {
+    pub fn is_mapped(&self) -> bool {
+        matches!(self, Buf::Mapped { .. })
+    }
+}
+
 /// The voxel buffer, x fastest, then y, then z; kept in the file's own sample type.
 #[derive(Clone, Debug)]
 pub enum Samples {
-    U8(Vec<u8>),
-    U16(Vec<u16>),
-    F32(Vec<f32>),
+    U8(Buf<u8>),
+    U16(Buf<u16>),
+    F32(Buf<f32>),
 }
 
 /// Runs `$body` with `$v` bound to the typed sample slice of a [`Samples`].
@@ -74,13 +119,17 @@ impl Samples {
         }
     }
     pub fn bytes(&self) -> usize {
-        with_samples!(self, v => std::mem::size_of_val(v.as_slice()))
+        with_samples!(self, v => std::mem::size_of_val(&v[..]))
     }
     pub fn len(&self) -> usize {
         with_samples!(self, v => v.len())
     }
     pub fn is_empty(&self) -> bool {
         self.len() == 0
+    }
+    /// True when the voxels are a memory map of the file rather than a copy.
+    pub fn is_mapped(&self) -> bool {
+        with_samples!(self, v => v.is_mapped())
     }
     /// One voxel by linear index, widened to f32.
     #[inline]
@@ -124,9 +173,17 @@ impl VoxelSource {
 pub struct VoxelSize {
     pub mm: [f64; 3],
     pub source: [VoxelSource; 3],
+    /// The file's own voxel size before binning (equal to `mm` when not binned).
+    #[serde(default)]
+    pub original_mm: [f64; 3],
 }
 
 impl VoxelSize {
+    /// A voxel size (mm) read from a file, not binned.
+    pub fn new(mm: [f64; 3], source: [VoxelSource; 3]) -> Self {
+        VoxelSize { mm, source, original_mm: mm }
+    }
+
     /// A user-given size in µm (one value = isotropic). Errors on zero, negative or non-finite sizes.
     pub fn from_user_um(um: &[f64]) -> Result<Self> {
         let v = match um.len() {
@@ -139,7 +196,8 @@ impl VoxelSize {
                 return Err(Error::invalid(format!("voxel size must be positive, got {x} µm")));
             }
         }
-        Ok(VoxelSize { mm: v.map(|x| x / 1000.0), source: std::array::from_fn(|_| VoxelSource::User) })
+        let mm = v.map(|x| x / 1000.0);
+        Ok(VoxelSize { mm, source: std::array::from_fn(|_| VoxelSource::User), original_mm: mm })
     }
     /// Smallest side (mm).
     pub fn min(&self) -> f64 {
@@ -163,15 +221,19 @@ impl VoxelSize {
 pub struct LoadOptions {
     /// User voxel size; overrides the file's metadata.
     pub voxel: Option<VoxelSize>,
-    /// Bin 2×2×2 (average) while loading: 1 = none, 2 = 2×2×2.
+    /// Bin b×b×b (average) while loading: 1 = none, 2 or 4.
     pub bin: usize,
+    /// Load only voxels i0..i1, j0..j1, k0..k1 (half-open, original indices) of a larger stack.
+    pub crop: Option<[[usize; 2]; 3]>,
+    /// Memory-map uncompressed stacks whose pages lie back to back instead of copying them.
+    pub map: bool,
     /// Refuse stacks whose decoded size exceeds this many bytes (also capped by available memory).
     pub max_bytes: Option<u64>,
 }
 
 impl Default for LoadOptions {
     fn default() -> Self {
-        LoadOptions { voxel: None, bin: 1, max_bytes: None }
+        LoadOptions { voxel: None, bin: 1, crop: None, map: true, max_bytes: None }
     }
 }
 
@@ -183,6 +245,9 @@ pub struct Stack {
     pub samples: Samples,
     /// None when neither the file nor the user gave one.
     pub voxel: Option<VoxelSize>,
+    /// Where voxel (0, 0, 0) of this buffer lies, in voxels of the original file: non-zero after
+    /// cropping or binning, so coordinates stay those of the whole stack (see [`Stack::origin_mm`]).
+    pub origin_vox: [f64; 3],
     /// The file or folder it was read from.
     pub path: PathBuf,
     /// Non-fatal remarks made while loading (e.g. RGB turned into grey).
@@ -195,7 +260,7 @@ impl Stack {
         if dims.iter().product::<usize>() != samples.len() {
             return Err(Error::invalid(format!("buffer holds {} samples, dims {:?} need {}", samples.len(), dims, dims.iter().product::<usize>())));
         }
-        Ok(Stack { dims, samples, voxel, path: PathBuf::new(), warnings: vec![] })
+        Ok(Stack { dims, samples, voxel, origin_vox: [0.0; 3], path: PathBuf::new(), warnings: vec![] })
     }
 
     /// The voxel size, or a clear error when none is known.
@@ -203,6 +268,34 @@ impl Stack {
         self.voxel.as_ref().ok_or_else(|| {
             Error::format(&self.path, "no voxel size in the file; give it with --voxel-um X[,Y,Z]")
         })
+    }
+
+    /// Stack-frame position (mm) of voxel (0, 0, 0)'s centre: zero unless cropped or binned.
+    /// `origin_vox` counts voxels of the original file, whose size is this voxel size / bin.
+    pub fn origin_mm(&self) -> [f64; 3] {
+        match &self.voxel {
+            Some(v) => std::array::from_fn(|a| self.origin_vox[a] * v.original_mm[a]),
+            None => [0.0; 3],
+        }
+    }
+
+    /// Continuous voxel indices of a stack-frame point (mm).
+    #[inline]
+    pub fn to_index(&self, p: [f64; 3]) -> [f64; 3] {
+        let (Some(v), o) = (&self.voxel, self.origin_mm()) else { return [f64::NAN; 3] };
+        std::array::from_fn(|a| (p[a] - o[a]) / v.mm[a])
+    }
+
+    /// Stack-frame position (mm) of voxel (i, j, k)'s centre (fractional indices allowed).
+    pub fn to_mm(&self, idx: [f64; 3]) -> [f64; 3] {
+        let (Some(v), o) = (&self.voxel, self.origin_mm()) else { return [f64::NAN; 3] };
+        std::array::from_fn(|a| o[a] + idx[a] * v.mm[a])
+    }
+
+    /// Trilinear value at a stack-frame point (mm); NaN outside the voxel centres.
+    pub fn sample_mm(&self, p: [f64; 3]) -> f32 {
+        let x = self.to_index(p);
+        with_samples!(&self.samples, d => crate::section::trilinear_idx(d, self.dims, x))
     }
 
     /// Linear index of voxel (i, j, k).
@@ -222,19 +315,19 @@ impl Stack {
             .reduce(|| (f32::INFINITY, f32::NEG_INFINITY), |a, b| (a.0.min(b.0), a.1.max(b.1))))
     }
 
-    /// Stack extent (mm) along each axis: the position of the last voxel centre.
-    pub fn extent_mm(&self) -> Result<[f64; 3]> {
-        let v = self.voxel()?;
-        Ok(std::array::from_fn(|a| (self.dims[a] as f64 - 1.0) * v.mm[a]))
+    /// Stack-frame positions (mm) of the first and the last voxel centre.
+    pub fn bounds_mm(&self) -> Result<([f64; 3], [f64; 3])> {
+        self.voxel()?;
+        Ok((self.to_mm([0.0; 3]), self.to_mm(self.dims.map(|n| n as f64 - 1.0))))
     }
 
     /// True when a stack-frame point (mm) lies within half a voxel of the voxel centres.
     pub fn contains_mm(&self, p: [f64; 3]) -> bool {
-        let Some(v) = &self.voxel else { return false };
-        (0..3).all(|a| {
-            let x = p[a] / v.mm[a];
-            x >= -0.5 && x <= self.dims[a] as f64 - 0.5
-        })
+        if self.voxel.is_none() {
+            return false;
+        }
+        let x = self.to_index(p);
+        (0..3).all(|a| x[a] >= -0.5 && x[a] <= self.dims[a] as f64 - 0.5)
     }
 
     /// Bytes held by the voxel buffer.
@@ -250,8 +343,8 @@ pub fn load(path: &Path, opts: &LoadOptions) -> Result<Stack> {
 
 /// [`load`] reporting progress per page and honouring cancel.
 pub fn load_with_progress(path: &Path, opts: &LoadOptions, progress: &crate::progress::Progress) -> Result<Stack> {
-    if opts.bin != 1 && opts.bin != 2 {
-        return Err(Error::invalid(format!("binning must be 1 or 2, got {}", opts.bin)));
+    if ![1, 2, 4].contains(&opts.bin) {
+        return Err(Error::invalid(format!("binning must be 1, 2 or 4, got {}", opts.bin)));
     }
     let meta = std::fs::metadata(path).map_err(|e| Error::io(path, e))?;
     let mut stack = if meta.is_dir() {
@@ -262,10 +355,13 @@ pub fn load_with_progress(path: &Path, opts: &LoadOptions, progress: &crate::pro
     if let Some(v) = &opts.voxel {
         stack.voxel = Some(v.clone());
     }
-    if opts.bin == 2 {
-        if let Some(v) = &mut stack.voxel {
-            v.mm = v.mm.map(|x| x * 2.0);
-        }
+    // voxel (0,0,0) of a b-binned, cropped buffer covers original voxels c..c+b−1: its centre
+    let b = opts.bin as f64;
+    let c = opts.crop.map(|c| c.map(|r| r[0] as f64)).unwrap_or([0.0; 3]);
+    stack.origin_vox = std::array::from_fn(|a| c[a] + (b - 1.0) / 2.0);
+    if let Some(v) = &mut stack.voxel {
+        v.original_mm = v.mm;
+        v.mm = v.mm.map(|x| x * b);
     }
     Ok(stack)
 }
@@ -309,17 +405,18 @@ pub fn available_memory() -> Option<u64> {
     Some(kb * 1024)
 }
 
-/// Averages pairs of decoded pages 2×2×2 into one output slice of half the width and height.
-pub(crate) fn bin_pair<T: Sample>(a: &[T], b: Option<&[T]>, nx: usize, ny: usize, out: &mut [T], conv: fn(f32) -> T) {
-    let (bx, by) = (nx / 2, ny / 2);
+/// Averages b×b×b blocks of `pages` (b decoded pages of nx×ny, fewer at the end of a stack)
+/// into one output slice of (nx/b)×(ny/b).
+pub(crate) fn bin_block<T: Sample>(pages: &[&[T]], nx: usize, ny: usize, b: usize, out: &mut [T], conv: fn(f32) -> T) {
+    let (bx, by) = (nx / b, ny / b);
+    let n = (pages.len() * b * b) as f32;
     for j in 0..by {
         for i in 0..bx {
             let mut sum = 0.0f32;
-            let mut n = 0.0f32;
-            for page in [Some(a), b].into_iter().flatten() {
-                for (dj, di) in [(0, 0), (0, 1), (1, 0), (1, 1)] {
-                    sum += page[(2 * j + dj) * nx + 2 * i + di].f();
-                    n += 1.0;
+            for page in pages {
+                for dj in 0..b {
+                    let row = &page[(b * j + dj) * nx + b * i..][..b];
+                    sum += row.iter().map(|x| x.f()).sum::<f32>();
                 }
             }
             out[j * bx + i] = conv(sum / n);
@@ -327,7 +424,43 @@ pub(crate) fn bin_pair<T: Sample>(a: &[T], b: Option<&[T]>, nx: usize, ny: usize
     }
 }
 
-/// Rounds half to even (as numpy does), then clamps to the type's range.
+/// Turns up to `bin` decoded full pages (nx wide) into one output slice: crop, then bin.
+pub(crate) fn assemble<T: Sample>(pages: &[Vec<T>], nx: usize, crop: [[usize; 2]; 2], bin: usize, out: &mut [T], conv: fn(f32) -> T) {
+    if bin == 1 {
+        return crop_page(&pages[0], nx, crop, out);
+    }
+    let (cw, ch) = (crop[0][1] - crop[0][0], crop[1][1] - crop[1][0]);
+    let cropped: Vec<Vec<T>> = pages
+        .iter()
+        .map(|p| {
+            let mut v = vec![T::zeroed(); cw * ch];
+            crop_page(p, nx, crop, &mut v);
+            v
+        })
+        .collect();
+    let refs: Vec<&[T]> = cropped.iter().map(|v| &v[..]).collect();
+    bin_block(&refs, cw, ch, bin, out, conv);
+}
+
+/// Copies the crop rectangle (columns i0..i1, rows j0..j1) of a full nx-wide page.
+pub(crate) fn crop_page<T: Sample>(page: &[T], nx: usize, c: [[usize; 2]; 2], out: &mut [T]) {
+    let w = c[0][1] - c[0][0];
+    for (r, j) in (c[1][0]..c[1][1]).enumerate() {
+        out[r * w..(r + 1) * w].copy_from_slice(&page[j * nx + c[0][0]..j * nx + c[0][1]]);
+    }
+}
+
+/// Checks a crop box against the stack's dimensions; the full box when there is none.
+pub(crate) fn crop_box(path: &Path, crop: Option<[[usize; 2]; 3]>, dims: [usize; 3]) -> Result<[[usize; 2]; 3]> {
+    let c = crop.unwrap_or(dims.map(|n| [0, n]));
+    for a in 0..3 {
+        if c[a][0] >= c[a][1] || c[a][1] > dims[a] {
+            return Err(Error::format(path, format!("crop {}..{} on axis {} does not fit the stack's {} voxels", c[a][0], c[a][1], ["i", "j", "k"][a], dims[a])));
+        }
+    }
+    Ok(c)
+}
+
 pub(crate) fn to_u8(x: f32) -> u8 {
     x.round_ties_even().clamp(0.0, 255.0) as u8
 }

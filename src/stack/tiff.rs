@@ -75,10 +75,23 @@ fn page_kind(path: &Path, page: usize, dec: &mut Dec) -> Result<(usize, usize, K
     Ok((w as usize, h as usize, kind))
 }
 
-/// Walks every page's directory (no pixel data) and checks they agree. Returns (nx, ny, pages, kind).
-fn walk(path: &Path) -> Result<(Dec, usize, usize, usize, Kind)> {
+/// What walking the page directories tells.
+struct Walk {
+    dec: Dec,
+    nx: usize,
+    ny: usize,
+    pages: usize,
+    kind: Kind,
+    /// Byte offset of each page's samples when every page is one uncompressed run.
+    raw: Option<Vec<u64>>,
+}
+
+/// Walks every page's directory (no pixel data) and checks they agree.
+fn walk(path: &Path) -> Result<Walk> {
     let mut dec = open(path)?;
     let (nx, ny, kind) = page_kind(path, 0, &mut dec)?;
+    let page_bytes = nx * ny * kind.bytes();
+    let mut raw = raw_run(&mut dec, page_bytes).map(|o| vec![o]);
     let mut pages = 1;
     let mut walker = open(path)?;
     while walker.more_images() {
@@ -90,34 +103,53 @@ fn walk(path: &Path) -> Result<(Dec, usize, usize, usize, Kind)> {
         if k != kind {
             return Err(Error::page(path, pages, format!("sample type {} differs from the first page's {}", k.name(), kind.name())));
         }
+        if let Some(r) = &mut raw {
+            match raw_run(&mut walker, page_bytes) {
+                Some(o) => r.push(o),
+                None => raw = None,
+            }
+        }
         pages += 1;
     }
-    Ok((dec, nx, ny, pages, kind))
+    Ok(Walk { dec, nx, ny, pages, kind, raw })
 }
 
 pub(super) fn header(path: &Path) -> Result<super::Header> {
-    let (mut dec, nx, ny, nz, kind) = walk(path)?;
-    let voxel = voxel_from_tags(&mut dec);
-    Ok(super::Header { dims: [nx, ny, nz], sample: kind.name(), bytes_per_sample: kind.bytes(), voxel })
+    let mut w = walk(path)?;
+    let voxel = voxel_from_tags(&mut w.dec);
+    Ok(super::Header { dims: [w.nx, w.ny, w.pages], sample: w.kind.name(), bytes_per_sample: w.kind.bytes(), voxel })
+}
+
+/// Maps the file when its pages' samples lie back to back, aligned, in native order.
+fn try_map<T: Sample>(path: &Path, w: &Walk) -> Option<super::Buf<T>> {
+    let raw = w.raw.as_ref()?;
+    let page = (w.nx * w.ny * std::mem::size_of::<T>()) as u64;
+    let base = raw[0];
+    if base % std::mem::align_of::<T>() as u64 != 0 || raw.iter().enumerate().any(|(k, o)| *o != base + k as u64 * page) {
+        return None;
+    }
+    let file = File::open(path).ok()?;
+    // SAFETY: the map is read-only; like every viewer that maps its input, ductline assumes the
+    // file is not truncated or rewritten by another program while it is open.
+    let map = unsafe { memmap2::Mmap::map(&file) }.ok()?;
+    let len = w.nx * w.ny * w.pages;
+    if (map.len() as u64) < base + page * w.pages as u64 {
+        return None;
+    }
+    Some(super::Buf::Mapped { map: std::sync::Arc::new(map), offset: base as usize, len })
 }
 
 pub(super) fn load(path: &Path, opts: &LoadOptions, progress: &Progress) -> Result<Stack> {
-    let (mut dec, nx, ny, nz, kind) = walk(path)?;
-    let voxel = voxel_from_tags(&mut dec);
-    drop(dec);
+    let mut w = walk(path)?;
+    let voxel = voxel_from_tags(&mut w.dec);
+    let (nx, ny, nz, kind) = (w.nx, w.ny, w.pages, w.kind);
     let b = opts.bin;
-    let dims = [nx / b, ny / b, nz.div_ceil(b)];
+    let crop = super::crop_box(path, opts.crop, [nx, ny, nz])?;
+    let size = crop.map(|r| r[1] - r[0]);
+    let dims = [size[0] / b, size[1] / b, size[2].div_ceil(b)];
     if dims.contains(&0) {
         return Err(Error::format(path, "stack too small to bin"));
     }
-    let bytes = (dims.iter().product::<usize>() * kind.bytes()) as u64;
-    super::check_memory(path, bytes, opts.max_bytes)?;
-    progress.start(nz as u64);
-    let samples = match kind {
-        Kind::Gray8 | Kind::Rgb { bits: 8, .. } => Samples::U8(decode::<u8>(path, [nx, ny, nz], kind, b, super::to_u8, progress)?),
-        Kind::Gray16 | Kind::Rgb { .. } => Samples::U16(decode::<u16>(path, [nx, ny, nz], kind, b, super::to_u16, progress)?),
-        Kind::GrayF32 => Samples::F32(decode::<f32>(path, [nx, ny, nz], kind, b, super::to_f32, progress)?),
-    };
     let mut warnings = vec![];
     if let Kind::Rgb { .. } = kind {
         warnings.push(format!("{}: colour pages turned into grey (BT.601 luma)", path.display()));
@@ -127,43 +159,68 @@ pub(super) fn load(path: &Path, opts: &LoadOptions, progress: &Progress) -> Resu
             warnings.push(format!("{}: the file gives no slice spacing; assumed equal to the pixel width", path.display()));
         }
     }
-    Ok(Stack { dims, samples, voxel, path: path.to_path_buf(), warnings })
+    let whole = b == 1 && opts.crop.is_none();
+    if opts.map && whole {
+        let mapped = match kind {
+            Kind::Gray8 => try_map::<u8>(path, &w).map(Samples::U8),
+            Kind::Gray16 => try_map::<u16>(path, &w).map(Samples::U16),
+            Kind::GrayF32 => try_map::<f32>(path, &w).map(Samples::F32),
+            Kind::Rgb { .. } => None,
+        };
+        if let Some(samples) = mapped {
+            progress.start(1);
+            progress.add(1);
+            return Ok(Stack { dims, samples, voxel, origin_vox: [0.0; 3], path: path.to_path_buf(), warnings });
+        }
+    }
+    drop(w);
+    let bytes = (dims.iter().product::<usize>() * kind.bytes()) as u64;
+    super::check_memory(path, bytes, opts.max_bytes)?;
+    progress.start(size[2] as u64);
+    let samples = match kind {
+        Kind::Gray8 | Kind::Rgb { bits: 8, .. } => Samples::U8(decode::<u8>(path, [nx, ny], kind, b, crop, super::to_u8, progress)?.into()),
+        Kind::Gray16 | Kind::Rgb { .. } => Samples::U16(decode::<u16>(path, [nx, ny], kind, b, crop, super::to_u16, progress)?.into()),
+        Kind::GrayF32 => Samples::F32(decode::<f32>(path, [nx, ny], kind, b, crop, super::to_f32, progress)?.into()),
+    };
+    Ok(Stack { dims, samples, voxel, origin_vox: [0.0; 3], path: path.to_path_buf(), warnings })
 }
 
-/// Decodes all pages into one buffer, page groups in parallel (each group with its own file handle).
-/// With `bin` = 2, pairs of pages are averaged 2×2×2 into one output slice.
-fn decode<T: Sample>(path: &Path, [nx, ny, nz]: [usize; 3], kind: Kind, bin: usize, conv: fn(f32) -> T, progress: &Progress) -> Result<Vec<T>> {
-    let out_slice = (nx / bin) * (ny / bin);
-    let out_nz = nz.div_ceil(bin);
+/// Decodes pages into one buffer, page groups in parallel (each group with its own file handle).
+/// Each output slice comes from `bin` pages, cropped to `crop` and averaged b×b×b.
+#[allow(clippy::too_many_arguments)]
+fn decode<T: Sample>(path: &Path, [nx, ny]: [usize; 2], kind: Kind, bin: usize, crop: [[usize; 2]; 3], conv: fn(f32) -> T, progress: &Progress) -> Result<Vec<T>> {
+    let size = crop.map(|r| r[1] - r[0]);
+    let out_slice = (size[0] / bin) * (size[1] / bin);
+    let out_nz = size[2].div_ceil(bin);
     let mut out = vec![T::zeroed(); out_slice * out_nz];
+    let direct = bin == 1 && size[0] == nx && size[1] == ny;
+    let xy = [crop[0], crop[1]];
     let threads = rayon::current_num_threads().max(1);
     // output slices per group: several groups a thread so uneven pages balance out
     let per = out_nz.div_ceil(threads * 4).max(1);
     out.par_chunks_mut(out_slice * per).enumerate().try_for_each(|(g, chunk)| -> Result<()> {
-        let first_out = g * per;
-        let first_page = first_out * bin;
+        let mut page = crop[2][0] + g * per * bin;
         let mut dec = open(path)?;
-        dec.seek_to_image(first_page).map_err(|e| Error::page(path, first_page, format!("cannot reach page: {e}")))?;
-        let mut page = first_page;
-        let mut tmp_a = vec![T::zeroed(); if bin == 1 { 0 } else { nx * ny }];
-        let mut tmp_b = tmp_a.clone();
-        for slice in chunk.chunks_mut(out_slice) {
+        dec.seek_to_image(page).map_err(|e| Error::page(path, page, format!("cannot reach page: {e}")))?;
+        let mut tmp: Vec<Vec<T>> = if direct { vec![] } else { (0..bin).map(|_| vec![T::zeroed(); nx * ny]).collect() };
+        let n_slices = chunk.len() / out_slice;
+        for (s, slice) in chunk.chunks_mut(out_slice).enumerate() {
             progress.check()?;
-            if bin == 1 {
+            let n_here = bin.min(crop[2][1] - page);
+            if direct {
                 read_page(path, page, &mut dec, kind, slice, conv)?;
-                page += 1;
             } else {
-                read_page(path, page, &mut dec, kind, &mut tmp_a, conv)?;
-                let have_b = page + 1 < nz;
-                if have_b {
-                    next(path, page + 1, &mut dec)?;
-                    read_page(path, page + 1, &mut dec, kind, &mut tmp_b, conv)?;
+                for p in 0..n_here {
+                    if p > 0 {
+                        next(path, page + p, &mut dec)?;
+                    }
+                    read_page(path, page + p, &mut dec, kind, &mut tmp[p], conv)?;
                 }
-                super::bin_pair(&tmp_a, if have_b { Some(&tmp_b[..]) } else { None }, nx, ny, slice, conv);
-                page += 2;
+                super::assemble(&tmp[..n_here], nx, xy, bin, slice, conv);
             }
-            progress.add(bin as u64);
-            if page < nz && page < (first_out + per) * bin {
+            page += n_here;
+            progress.add(n_here as u64);
+            if s + 1 < n_slices {
                 next(path, page, &mut dec)?;
             }
         }
@@ -259,7 +316,7 @@ fn voxel_from_tags(dec: &mut Dec) -> Option<VoxelSize> {
         Some(s) => (s * z_unit, VoxelSource::DescriptionSpacing),
         None => (x, VoxelSource::AssumedIsotropic),
     };
-    Some(VoxelSize { mm: [x, y, z], source: [VoxelSource::TiffResolution, VoxelSource::TiffResolution, zsrc] })
+    Some(VoxelSize::new([x, y, z], [VoxelSource::TiffResolution, VoxelSource::TiffResolution, zsrc]))
 }
 
 /// Physical sizes from an OME-XML description (units default to µm as the OME schema says).
@@ -274,8 +331,8 @@ pub(crate) fn voxel_from_ome(desc: &str) -> Option<VoxelSize> {
     };
     let (x, y) = (get("X")?, get("Y")?);
     Some(match get("Z") {
-        Some(z) => VoxelSize { mm: [x, y, z], source: [VoxelSource::Ome, VoxelSource::Ome, VoxelSource::Ome] },
-        None => VoxelSize { mm: [x, y, x], source: [VoxelSource::Ome, VoxelSource::Ome, VoxelSource::AssumedIsotropic] },
+        Some(z) => VoxelSize::new([x, y, z], [VoxelSource::Ome, VoxelSource::Ome, VoxelSource::Ome]),
+        None => VoxelSize::new([x, y, x], [VoxelSource::Ome, VoxelSource::Ome, VoxelSource::AssumedIsotropic]),
     })
 }
 
