@@ -1,0 +1,74 @@
+//! Opens a large stack (memory-mapped when uncompressed), times view updates and reports the peak
+//! resident memory against the stack's bytes. Optionally measures 400 sections.
+//!
+//!     cargo run --release --example bench_large -- STACK.tif --voxel-um 19.5 [LANDMARKS.csv]
+
+use ductline::centreline::FitSettings;
+use ductline::cochlea::Greenwood;
+use ductline::frame::v3;
+use ductline::measure::MeasureSettings;
+use ductline::progress::Progress;
+use ductline::section::{self, Grid};
+use ductline::stack::{self, LoadOptions, VoxelSize};
+use std::time::Instant;
+
+fn rss(field: &str) -> f64 {
+    let s = std::fs::read_to_string("/proc/self/status").unwrap_or_default();
+    s.lines().find(|l| l.starts_with(field)).and_then(|l| l.split_whitespace().nth(1)).and_then(|v| v.parse::<f64>().ok()).unwrap_or(0.0) * 1024.0
+}
+
+fn ms(t: Instant) -> f64 {
+    t.elapsed().as_secs_f64() * 1e3
+}
+
+fn main() {
+    let a: Vec<String> = std::env::args().collect();
+    let path = std::path::PathBuf::from(&a[1]);
+    let vox: f64 = a.get(3).and_then(|s| s.parse().ok()).unwrap_or(19.5);
+    let t = Instant::now();
+    let st = stack::load(&path, &LoadOptions { voxel: Some(VoxelSize::from_user_um(&[vox]).unwrap()), ..Default::default() }).unwrap();
+    println!("open {:?} ({:.2} GB, mapped: {}) in {:.1} ms", st.dims, st.bytes() as f64 / 1e9, st.samples.is_mapped(), ms(t));
+    let window = [15000.0, 60000.0];
+    let mut rgba = vec![];
+    let [nx, ny, nz] = st.dims;
+    for (axis, name) in [(2, "k plane"), (1, "j plane"), (0, "i plane")] {
+        let mut times = vec![];
+        for r in 0..8 {
+            let idx = (st.dims[axis] / 9) * (r + 1);
+            let t = Instant::now();
+            let p = ductline::display::plane(&st, axis, idx);
+            ductline::display::window_level(&p, window, &mut rgba);
+            times.push(ms(t));
+        }
+        times.sort_by(f64::total_cmp);
+        println!("{name}: median {:.1} ms, worst {:.1} ms", times[4], times[7]);
+    }
+    // the radial cut as the app makes it: at most 1024 samples a side
+    let (lo, hi) = st.bounds_mm().unwrap();
+    let centre = v3::scale(v3::add(lo, hi), 0.5);
+    let reach = v3::dist(lo, hi) / 2.0;
+    let pitch = (st.voxel.as_ref().unwrap().min()).max(2.0 * reach / 1024.0);
+    let n = (2.0 * reach / pitch) as usize;
+    let mut times = vec![];
+    for r in 0..8 {
+        let t0 = r as f64 * 0.4;
+        let er = [t0.cos(), t0.sin(), 0.0];
+        let g = Grid { origin: v3::axpy(v3::axpy(centre, -reach, er), reach, [0.0, 0.0, 1.0]), du: v3::scale(er, pitch), dv: [0.0, 0.0, -pitch], nu: n, nv: n };
+        let t = Instant::now();
+        let vals = section::resample(&st, &g);
+        ductline::display::window_level(&vals, window, &mut rgba);
+        times.push(ms(t));
+    }
+    times.sort_by(f64::total_cmp);
+    println!("radial cut {n}×{n}: median {:.1} ms, worst {:.1} ms", times[4], times[7]);
+    println!("after viewing: peak RSS {:.2} GB = {:.3} × stack ({nx}×{ny}×{nz})", rss("VmHWM:") / 1e9, rss("VmHWM:") / st.bytes() as f64);
+    if let Some(lm) = a.get(4) {
+        let items = ductline::landmarks::read_csv(std::path::Path::new(lm), Some(&st)).unwrap();
+        let cl = ductline::pipeline::fit(&items, &FitSettings::default()).unwrap();
+        let ms_ = MeasureSettings { step_mm: cl.length / 400.0, ..Default::default() };
+        let t = Instant::now();
+        let (_, rows) = ductline::measure::measure(&st, &cl, &ms_, &[], &Greenwood::preset("human").unwrap(), &Progress::new()).unwrap();
+        let sound = rows.iter().filter(|r| r.sound()).count();
+        println!("measure: {} sections ({sound} sound) in {:.2} s; peak RSS {:.2} GB", rows.len(), t.elapsed().as_secs_f64(), rss("VmHWM:") / 1e9);
+    }
+}
