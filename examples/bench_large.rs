@@ -61,6 +61,44 @@ fn main() {
     }
     times.sort_by(f64::total_cmp);
     println!("radial cut {n}×{n}: median {:.1} ms, worst {:.1} ms", times[4], times[7]);
+    // what the app shows: the overview when zoomed out, the visible window at full resolution when zoomed in
+    let b = 4;
+    let t = Instant::now();
+    let ov = ductline::display::overview(&st, b);
+    println!("overview {b}×{b}×{b} {:?} ({:.0} MB) built in {:.1} s", ov.dims, ov.bytes() as f64 / 1e6, t.elapsed().as_secs_f64());
+    for (axis, name) in [(2, "k"), (1, "j"), (0, "i")] {
+        let t = Instant::now();
+        for r in 0..8 {
+            let p = ductline::display::plane(&ov, axis, (ov.dims[axis] / 9) * (r + 1));
+            ductline::display::window_level(&p, window, &mut rgba);
+        }
+        println!("zoomed out, {name} plane from the overview: {:.2} ms", ms(t) / 8.0);
+    }
+    let opitch = ov.voxel.as_ref().unwrap().min().max(2.0 * reach / 1024.0);
+    let on = (2.0 * reach / opitch) as usize;
+    let t = Instant::now();
+    for r in 0..8 {
+        let t0 = r as f64 * 0.4;
+        let er = [t0.cos(), t0.sin(), 0.0];
+        let g = Grid { origin: v3::axpy(v3::axpy(centre, -reach, er), reach, [0.0, 0.0, 1.0]), du: v3::scale(er, opitch), dv: [0.0, 0.0, -opitch], nu: on, nv: on };
+        ductline::display::window_level(&section::resample(&ov, &g), window, &mut rgba);
+    }
+    println!("zoomed out, radial cut {on}×{on} from the overview: {:.2} ms", ms(t) / 8.0);
+    for zoom in [2usize, 4] {
+        for (axis, name, nu, nv) in [(2, "k", nx, ny), (1, "j", nx, nz), (0, "i", ny, nz)] {
+            let (wu, wv) = (nu / zoom, nv / zoom);
+            let mut worst: f64 = 0.0;
+            let t = Instant::now();
+            for r in 0..8 {
+                let t1 = Instant::now();
+                let (u0, v0) = ((nu - wu) * r / 8, (nv - wv) * r / 8);
+                let p = ductline::display::plane_window(&st, axis, (st.dims[axis] / 9) * (r + 1), [u0, u0 + wu], [v0, v0 + wv]);
+                ductline::display::window_level(&p, window, &mut rgba);
+                worst = worst.max(ms(t1));
+            }
+            println!("zoom {zoom}, {name} plane window {wu}×{wv} at full resolution: mean {:.1} ms, worst {worst:.1} ms", ms(t) / 8.0);
+        }
+    }
     println!("after viewing: peak RSS {:.2} GB = {:.3} × stack ({nx}×{ny}×{nz})", rss("VmHWM:") / 1e9, rss("VmHWM:") / st.bytes() as f64);
     if let Some(lm) = a.get(4) {
         let items = ductline::landmarks::read_csv(std::path::Path::new(lm), Some(&st)).unwrap();

@@ -12,14 +12,68 @@ pub const OUTSIDE_RGBA: [u8; 4] = [14, 20, 44, 255];
 /// row-major with the lower remaining axis fastest: (i, j) for k, (i, k) for j, (j, k) for i.
 pub fn plane(stack: &Stack, axis: usize, index: usize) -> Vec<f32> {
     let [nx, ny, nz] = stack.dims;
-    with_samples!(&stack.samples, v => plane_of(v, [nx, ny, nz], axis, index))
+    let (nu, nv) = match axis {
+        2 => (nx, ny),
+        1 => (nx, nz),
+        _ => (ny, nz),
+    };
+    plane_window(stack, axis, index, [0, nu], [0, nv])
 }
 
-fn plane_of<T: Sample>(v: &[T], [nx, ny, nz]: [usize; 3], axis: usize, index: usize) -> Vec<f32> {
-    match axis {
-        2 => v[index * nx * ny..(index + 1) * nx * ny].par_iter().map(|s| s.f()).collect(),
-        1 => (0..nz).flat_map(|k| (0..nx).map(move |i| (k * ny + index) * nx + i)).map(|i| v[i].f()).collect(),
-        _ => (0..nz).flat_map(|k| (0..ny).map(move |j| (k * ny + j) * nx + index)).map(|i| v[i].f()).collect(),
+/// The part [u0, u1) × [v0, v1) of a plane (in its own row/column numbering, as [`plane`]).
+/// Rows are gathered in parallel; only the voxels shown are touched, which keeps zoomed-in views
+/// of memory-mapped stacks fast.
+pub fn plane_window(stack: &Stack, axis: usize, index: usize, u: [usize; 2], v: [usize; 2]) -> Vec<f32> {
+    let [nx, ny, _] = stack.dims;
+    let w = u[1] - u[0];
+    let mut out = vec![0f32; w * (v[1] - v[0])];
+    with_samples!(&stack.samples, d => out.par_chunks_mut(w.max(1)).enumerate().for_each(|(r, row)| {
+        let b = v[0] + r;
+        // (start of the row, step between its samples) in the buffer
+        let (start, step) = match axis {
+            2 => ((index * ny + b) * nx + u[0], 1),
+            1 => ((b * ny + index) * nx + u[0], 1),
+            _ => ((b * ny + u[0]) * nx + index, nx),
+        };
+        for (a, px) in row.iter_mut().enumerate() {
+            *px = sample_f(d, start + a * step);
+        }
+    }));
+    out
+}
+
+#[inline]
+fn sample_f<T: Sample>(d: &[T], i: usize) -> f32 {
+    d[i].f()
+}
+
+/// A b×b×b block-averaged copy of the stack (an overview for zoomed-out display), in memory,
+/// with coordinates kept (its voxel (0,0,0) sits at the centre of the first block).
+pub fn overview(stack: &Stack, b: usize) -> Stack {
+    let [nx, ny, nz] = stack.dims;
+    let dims = [(nx / b).max(1), (ny / b).max(1), nz.div_ceil(b)];
+    let slice = dims[0] * dims[1];
+    let b_xy = b.min(nx).min(ny);
+    let mut out = vec![0f32; slice * dims[2]];
+    with_samples!(&stack.samples, d => out.par_chunks_mut(slice).enumerate().for_each(|(k, o)| {
+        let pages: Vec<&[_]> = (k * b..((k + 1) * b).min(nz)).map(|p| &d[p * nx * ny..(p + 1) * nx * ny]).collect();
+        crate::stack::bin_block(&pages, nx, ny, b_xy, o, |x| x);
+    }));
+    let voxel = stack.voxel.clone().map(|mut v| {
+        v.mm = v.mm.map(|x| x * b as f64);
+        v
+    });
+    let scale: [f64; 3] = match &stack.voxel {
+        Some(v) => std::array::from_fn(|a| v.mm[a] / v.original_mm[a]),
+        None => [1.0; 3],
+    };
+    Stack {
+        dims,
+        samples: crate::stack::Samples::F32(out.into()),
+        voxel,
+        origin_vox: std::array::from_fn(|a| stack.origin_vox[a] + (b as f64 - 1.0) / 2.0 * scale[a]),
+        path: stack.path.clone(),
+        warnings: vec![],
     }
 }
 

@@ -31,6 +31,8 @@ pub struct Doc {
     pub window: [f32; 2],
     /// The voxel size was given by the user (kept in the project).
     pub user_voxel: bool,
+    /// A block-averaged copy for zoomed-out views of large stacks (built in the background).
+    pub overview: Option<Arc<Stack>>,
 }
 
 impl Doc {
@@ -53,6 +55,7 @@ impl Doc {
             range,
             window,
             user_voxel: false,
+            overview: None,
         };
         d.refit();
         d
@@ -91,12 +94,27 @@ impl Doc {
     pub fn set_voxel(&mut self, v: VoxelSize) {
         // a copy only when a background job still holds the stack (memory maps are shared)
         Arc::make_mut(&mut self.stack).voxel = Some(v);
+        self.overview = None;
         self.user_voxel = true;
         self.dirty = true;
         self.outcome = None;
     }
 
-    /// Where unsaved work is kept every 30 s: beside the project, or beside the stack.
+    /// The overview's block size for a stack: none under 512 MB, else the smallest power of two that
+/// brings it (as f32) under 256 MB.
+pub fn overview_factor(stack: &Stack) -> Option<usize> {
+    let bytes = stack.samples.len() as f64 * 4.0;
+    if stack.bytes() < (512 << 20) {
+        return None;
+    }
+    let mut b = 2;
+    while bytes / (b * b * b) as f64 > (256 << 20) as f64 {
+        b *= 2;
+    }
+    Some(b)
+}
+
+/// Where unsaved work is kept every 30 s: beside the project, or beside the stack.
     pub fn autosave_path(&self) -> PathBuf {
         autosave_path(self.project_path.as_deref(), &self.stack_path)
     }

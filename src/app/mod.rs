@@ -116,6 +116,7 @@ pub struct DuctApp {
     pub selected_row: Option<usize>,
     load: Option<Job<Result<Loaded, String>>>,
     run: Option<Job<Result<Outcome, String>>>,
+    overview: Option<Job<Stack>>,
     dialog: Option<(Pending, Receiver<Option<PathBuf>>)>,
     pub status: String,
     show_help: bool,
@@ -165,6 +166,7 @@ impl DuctApp {
             selected_row: None,
             load: None,
             run: None,
+            overview: None,
             dialog: None,
             status: "Ready. Open a stack, slice folder or project (ctrl+O, or drop it here).".into(),
             show_help: false,
@@ -205,6 +207,14 @@ impl DuctApp {
                 }
                 (Err(e), _) => self.status = format!("measure stopped: {e}"),
                 _ => {}
+            }
+        }
+        if let Some(ov) = self.overview.as_ref().and_then(|j| j.poll()) {
+            self.overview = None;
+            if let Some(doc) = &mut self.doc {
+                if doc.stack.dims.iter().zip(ov.dims).all(|(a, b)| b <= *a) {
+                    doc.overview = Some(std::sync::Arc::new(ov));
+                }
             }
         }
         if let Some((what, rx)) = &self.dialog {
@@ -250,6 +260,10 @@ impl DuctApp {
             self.recovery = Some(auto);
         }
         self.view = Some(tracing::View::new(&doc.stack));
+        if let Some(b) = Doc::overview_factor(&doc.stack) {
+            let st = doc.stack.clone();
+            self.overview = Some(Job::spawn("overview", move |_| ductline::display::overview(&st, b)));
+        }
         self.doc = Some(doc);
         self.selected_row = None;
         self.status = msg;

@@ -149,3 +149,26 @@ fn autosave_and_recovery() {
     let saved = ductline::project::Project::load(&prj).unwrap();
     assert_eq!(saved.landmarks.len(), n0 + 1);
 }
+
+/// Zoomed in, only the visible part of the plane is sampled, and clicks still land on the same
+/// stack point as at the default zoom.
+#[test]
+fn zoomed_views_sample_only_what_shows() {
+    let mut h = harness(Some(sample_path()));
+    wait(&mut h, "the sample", |a| a.doc.is_some());
+    h.get_by_label("Tracing view").click();
+    h.step();
+    h.step();
+    let p1 = h.state().doc.as_ref().unwrap().lms.items.last().unwrap().p;
+    let full = h.state().view.as_ref().unwrap().plane_map(h.state().doc.as_ref().unwrap()).unwrap();
+    h.state_mut().view.as_mut().unwrap().zoom = 4.0;
+    h.step();
+    h.step();
+    let shown = h.state().view.as_ref().unwrap().sampled().unwrap();
+    assert!(shown.0 < full.nu / 2 && shown.1 < full.nv / 2, "sampled {shown:?} of {}×{}", full.nu, full.nv);
+    h.get_by_label("Tracing view").click();
+    h.step();
+    h.step();
+    let p2 = h.state().doc.as_ref().unwrap().lms.items.last().unwrap().p;
+    assert!(ductline::frame::v3::dist(p1, p2) < 0.07, "{p1:?} vs {p2:?}");
+}

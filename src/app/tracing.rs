@@ -80,10 +80,21 @@ impl View {
 
     /// The plane geometry for the current view; None for the radial cut before a frame exists.
     pub fn plane_map(&self, doc: &Doc) -> Option<PlaneMap> {
-        let st = &doc.stack;
+        self.plane_map_on(doc, &doc.stack)
+    }
+
+    /// The index of the current stack plane in `st` (the stack itself or its overview).
+    fn index_on(&self, doc: &Doc, st: &Stack) -> [usize; 3] {
+        let p = doc.stack.to_mm(self.index.map(|x| x as f64));
+        let x = st.to_index(p);
+        std::array::from_fn(|a| (x[a].round().max(0.0) as usize).min(st.dims[a] - 1))
+    }
+
+    /// The plane geometry on the voxel grid of `st` (the stack or its overview).
+    fn plane_map_on(&self, doc: &Doc, st: &Stack) -> Option<PlaneMap> {
         let v = st.voxel.as_ref()?.mm;
         let [nx, ny, nz] = st.dims;
-        let [i, j, k] = self.index.map(|x| x as f64);
+        let [i, j, k] = self.index_on(doc, st).map(|x| x as f64);
         Some(match self.plane {
             Plane::Slice(2) => PlaneMap { origin: st.to_mm([0.0, 0.0, k]), du: [v[0], 0.0, 0.0], dv: [0.0, v[1], 0.0], nu: nx, nv: ny },
             Plane::Slice(1) => PlaneMap { origin: st.to_mm([0.0, j, 0.0]), du: [v[0], 0.0, 0.0], dv: [0.0, 0.0, v[2]], nu: nx, nv: nz },
@@ -127,10 +138,45 @@ impl View {
             ui.centered_and_justified(|ui| ui.label("The radial cut needs the frame: place axis_base, axis_apex and window first."));
             return cmds;
         };
-        let key = self.key(&map);
+        let avail = ui.available_size();
+        let (rect, resp) = ui.allocate_exact_size(avail, Sense::click_and_drag());
+        resp.widget_info(|| egui::WidgetInfo::labeled(egui::Role::Image, true, "Tracing view"));
+        let w_mm = map.nu as f32 * v3::norm(map.du) as f32;
+        let h_mm = map.nv as f32 * v3::norm(map.dv) as f32;
+        let scale = (rect.width() / w_mm).min(rect.height() / h_mm) * self.zoom;
+        let img_rect = Rect::from_center_size(rect.center() + self.pan, vec2(w_mm * scale, h_mm * scale));
+        // what to sample: the overview when zoomed out, else only the visible part at full resolution
+        let (src, src_map) = match (&doc.overview, self.zoom < 2.0) {
+            (Some(ov), true) => (ov.clone(), self.plane_map_on(doc, ov).unwrap_or_else(|| map.clone())),
+            _ => {
+                let frac = |x: f32, lo: f32, w: f32, n: usize| (((x - lo) / w) * n as f32).clamp(0.0, n as f32);
+                let a0 = frac(rect.min.x, img_rect.min.x, img_rect.width(), map.nu).floor() as usize;
+                let a1 = frac(rect.max.x, img_rect.min.x, img_rect.width(), map.nu).ceil() as usize;
+                let b0 = frac(rect.min.y, img_rect.min.y, img_rect.height(), map.nv).floor() as usize;
+                let b1 = frac(rect.max.y, img_rect.min.y, img_rect.height(), map.nv).ceil() as usize;
+                let sub = PlaneMap { origin: map.point(a0 as f64, b0 as f64), du: map.du, dv: map.dv, nu: a1.saturating_sub(a0).max(1), nv: b1.saturating_sub(b0).max(1) };
+                (doc.stack.clone(), sub)
+            }
+        };
+        let key = format!("{} {}×{}", self.key(&src_map), src_map.nu, src_map.nv);
         if self.cache.as_ref().map(|c| &c.0) != Some(&key) {
-            let vals = plane_values(&doc.stack, &self.plane, self.index, &map);
-            self.cache = Some((key.clone(), map.clone(), vals));
+            let vals = match self.plane {
+                Plane::Slice(a) => {
+                    // where the sampled window starts in the numbering of its own stack's plane
+                    let whole = self.plane_map_on(doc, &src).unwrap_or_else(|| src_map.clone());
+                    let (u0, v0, _) = whole.project(src_map.origin);
+                    let (u0, v0) = (u0.round().max(0.0) as usize, v0.round().max(0.0) as usize);
+                    let (nu, nv) = ((u0 + src_map.nu).min(whole.nu), (v0 + src_map.nv).min(whole.nv));
+                    let vals = ductline::display::plane_window(&src, a, self.index_on(doc, &src)[a], [u0, nu], [v0, nv]);
+                    let m = PlaneMap { nu: nu - u0, nv: nv - v0, ..src_map.clone() };
+                    self.cache = Some((key.clone(), m, vals));
+                    None
+                }
+                Plane::Radial => Some(section::resample(&src, &Grid { origin: src_map.origin, du: src_map.du, dv: src_map.dv, nu: src_map.nu, nv: src_map.nv })),
+            };
+            if let Some(vals) = vals {
+                self.cache = Some((key.clone(), src_map.clone(), vals));
+            }
             self.tex = None;
         }
         let tex_key = format!("{key} {:?}", doc.window);
@@ -139,17 +185,14 @@ impl View {
             let img = to_image([m.nu, m.nv], vals, doc.window);
             self.tex = Some((tex_key, ui.ctx().load_texture("tracing-plane", img, egui::TextureOptions::NEAREST)));
         }
-        let avail = ui.available_size();
-        let (rect, resp) = ui.allocate_exact_size(avail, Sense::click_and_drag());
-        resp.widget_info(|| egui::WidgetInfo::labeled(egui::Role::Image, true, "Tracing view"));
-        let w_mm = map.nu as f32 * v3::norm(map.du) as f32;
-        let h_mm = map.nv as f32 * v3::norm(map.dv) as f32;
-        let scale = (rect.width() / w_mm).min(rect.height() / h_mm) * self.zoom;
-        let img_rect = Rect::from_center_size(rect.center() + self.pan, vec2(w_mm * scale, h_mm * scale));
         let painter = ui.painter_at(rect);
         painter.rect_filled(rect, 0.0, palette::VIEW_BG);
-        if let Some((_, tex)) = &self.tex {
-            painter.image(tex.id(), img_rect, Rect::from_min_max(pos2(0.0, 0.0), pos2(1.0, 1.0)), Color32::WHITE);
+        if let (Some((_, tex)), Some((_, m, _))) = (&self.tex, &self.cache) {
+            // the sampled grid's outer edges, placed in the full plane's pixel numbering
+            let (a0, b0, _) = map.project(m.point(-0.5, -0.5));
+            let (a1, b1, _) = map.project(m.point(m.nu as f64 - 0.5, m.nv as f64 - 0.5));
+            let at = |a: f64, b: f64| pos2(img_rect.min.x + ((a + 0.5) / map.nu as f64) as f32 * img_rect.width(), img_rect.min.y + ((b + 0.5) / map.nv as f64) as f32 * img_rect.height());
+            painter.image(tex.id(), Rect::from_two_pos(at(a0, b0), at(a1, b1)), Rect::from_min_max(pos2(0.0, 0.0), pos2(1.0, 1.0)), Color32::WHITE);
         }
         let to_screen = |a: f64, b: f64| pos2(img_rect.min.x + ((a + 0.5) / map.nu as f64) as f32 * img_rect.width(), img_rect.min.y + ((b + 0.5) / map.nv as f64) as f32 * img_rect.height());
         let to_stack = |p: Pos2| map.point(((p.x - img_rect.min.x) / img_rect.width()) as f64 * map.nu as f64 - 0.5, ((p.y - img_rect.min.y) / img_rect.height()) as f64 * map.nv as f64 - 0.5);
@@ -252,6 +295,11 @@ impl View {
         cmds
     }
 
+    /// Size (columns, rows) of the plane part sampled for the last frame.
+    pub fn sampled(&self) -> Option<(usize, usize)> {
+        self.cache.as_ref().map(|c| (c.1.nu, c.1.nv))
+    }
+
     /// One step of the wheel: next slice, or 2° of angle on the radial cut.
     pub fn step(&mut self, dir: i32, doc: &Doc) {
         match self.plane {
@@ -303,14 +351,6 @@ impl View {
                 self.angle_deg = c.frame.to_cochlear(p)[1];
             }
         }
-    }
-}
-
-/// Plane values: whole voxel planes for stack planes, trilinear resampling for the radial cut.
-pub fn plane_values(stack: &Stack, plane: &Plane, index: [usize; 3], map: &PlaneMap) -> Vec<f32> {
-    match plane {
-        Plane::Slice(a) => ductline::display::plane(stack, *a, index[*a]),
-        Plane::Radial => section::resample(stack, &Grid { origin: map.origin, du: map.du, dv: map.dv, nu: map.nu, nv: map.nv }),
     }
 }
 

@@ -407,7 +407,7 @@ pub fn available_memory() -> Option<u64> {
 
 /// Averages b×b×b blocks of `pages` (b decoded pages of nx×ny, fewer at the end of a stack)
 /// into one output slice of (nx/b)×(ny/b).
-pub(crate) fn bin_block<T: Sample>(pages: &[&[T]], nx: usize, ny: usize, b: usize, out: &mut [T], conv: fn(f32) -> T) {
+pub(crate) fn bin_block<T: Sample, U: Sample>(pages: &[&[T]], nx: usize, ny: usize, b: usize, out: &mut [U], conv: fn(f32) -> U) {
     let (bx, by) = (nx / b, ny / b);
     let n = (pages.len() * b * b) as f32;
     for j in 0..by {
