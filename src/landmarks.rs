@@ -71,11 +71,10 @@ pub fn parse_csv(text: &str, path: &Path, stack: Option<&Stack>) -> Result<Vec<L
             let s = f[idx[a + 1]];
             p[a] = s.parse::<f64>().ok().filter(|x| x.is_finite()).ok_or_else(|| Error::line(path, n, format!("'{s}' in column {} is not a number", want[a + 1])))?;
         }
-        if let Some(st) = stack {
-            if st.voxel.is_some() && !st.contains_mm(p) {
+        if let Some(st) = stack
+            && st.voxel.is_some() && !st.contains_mm(p) {
                 return Err(Error::line(path, n, format!("point ({:.3}, {:.3}, {:.3}) mm lies outside the stack", p[0], p[1], p[2])));
             }
-        }
         out.push(Landmark { kind, p });
     }
     Ok(out)

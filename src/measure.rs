@@ -269,12 +269,11 @@ fn section_row(stack: &Stack, cl: &Centreline, g: &SectionGeom, s: &MeasureSetti
         let erode = (vmax / pitch).ceil() as usize;
         // The dark class may hold other dark matter (soft tissue, air) besides fluid: take the fluid
         // level from the interior of the scalae themselves, then segment again.
-        if levels_given.is_none() {
-            if let Some(f) = lumen_level(&img, &line, mid, thr, vmax, g.width(), erode) {
+        if levels_given.is_none()
+            && let Some(f) = lumen_level(&img, &line, mid, thr, vmax, g.width(), erode) {
                 row.levels = [f, bone];
                 thr = 0.5 * (f + bone);
             }
-        }
         let [fluid, bone] = row.levels;
         let mut grow_more = false;
         let mut open = false;

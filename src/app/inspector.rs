@@ -102,15 +102,14 @@ impl Inspector {
         painter.line_segment([to_screen(a), to_screen(b)], Stroke::new(2.0, palette::CENTRE));
         painter.circle_filled(to_screen(a), 4.0, palette::LAMINA);
         painter.circle_filled(to_screen(b), 4.0, palette::LIGAMENT);
-        if self.seed_mode && resp.clicked() {
-            if let Some(p) = resp.interact_pointer_pos() {
+        if self.seed_mode && resp.clicked()
+            && let Some(p) = resp.interact_pointer_pos() {
                 let q = from_screen(p);
                 let above = (q[0] - a[0]) * (-d[1]) + (q[1] - a[1]) * d[0];
                 let above = if d[0] >= 0.0 { above > 0.0 } else { above < 0.0 };
                 let o = if above { Override { seed_sv: Some(q), ..ov } } else { Override { seed_st: Some(q), ..ov } };
                 cmds.push(Cmd::SetOverride(o));
             }
-        }
         resp.on_hover_text("Normal section: apex side up, partition line in yellow-green, SV and ST outlines");
         cmds
     }

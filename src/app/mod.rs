@@ -211,14 +211,13 @@ impl DuctApp {
         }
         if let Some(ov) = self.overview.as_ref().and_then(|j| j.poll()) {
             self.overview = None;
-            if let Some(doc) = &mut self.doc {
-                if doc.stack.dims.iter().zip(ov.dims).all(|(a, b)| b <= *a) {
+            if let Some(doc) = &mut self.doc
+                && doc.stack.dims.iter().zip(ov.dims).all(|(a, b)| b <= *a) {
                     doc.overview = Some(std::sync::Arc::new(ov));
                 }
-            }
         }
-        if let Some((what, rx)) = &self.dialog {
-            if let Ok(res) = rx.try_recv() {
+        if let Some((what, rx)) = &self.dialog
+            && let Ok(res) = rx.try_recv() {
                 let what = *what;
                 self.dialog = None;
                 if let Some(p) = res {
@@ -232,7 +231,6 @@ impl DuctApp {
                     });
                 }
             }
-        }
     }
 
     fn loaded(&mut self, l: Loaded) {
@@ -476,19 +474,16 @@ impl DuctApp {
                 self.show_help = !self.show_help;
             }
             for (k, kind) in [Key::Num1, Key::Num2, Key::Num3, Key::Num4, Key::Num5].into_iter().zip(Kind::ALL) {
-                if i.consume_key(Modifiers::NONE, k) {
-                    if let Some(v) = &mut self.view {
+                if i.consume_key(Modifiers::NONE, k)
+                    && let Some(v) = &mut self.view {
                         v.active = kind;
                     }
-                }
             }
-            if i.consume_key(Modifiers::NONE, Key::Delete) || i.consume_key(Modifiers::NONE, Key::Backspace) {
-                if let Some(v) = &mut self.view {
-                    if let Some(idx) = v.selected.take() {
+            if (i.consume_key(Modifiers::NONE, Key::Delete) || i.consume_key(Modifiers::NONE, Key::Backspace))
+                && let Some(v) = &mut self.view
+                    && let Some(idx) = v.selected.take() {
                         cmds.push(Cmd::Edit(Edit::Delete { index: idx }));
                     }
-                }
-            }
         });
         cmds
     }
@@ -673,12 +668,11 @@ impl DuctApp {
         for c in cmds {
             let edits = matches!(c, Cmd::Edit(_) | Cmd::Undo | Cmd::Redo | Cmd::Refit | Cmd::ImportLandmarks(_));
             self.apply(c);
-            if edits {
-                if let Some(d) = &mut self.doc {
+            if edits
+                && let Some(d) = &mut self.doc {
                     d.refit();
                     d.dirty = true;
                 }
-            }
         }
         if ctx.input(|i| i.viewport().close_requested()) {
             self.autosave(true);

@@ -63,12 +63,11 @@ pub fn plan_ui(ui: &mut egui::Ui, doc: &Doc, angle_deg: f64) -> Vec<Cmd> {
         super::tracing::mark(&painter, at(q[0], q[1]), *kind, 1.0, false, false);
     }
     painter.line_segment([at(0.0, angle_deg), at(rmax, angle_deg)], Stroke::new(2.0, palette::CUT));
-    if resp.clicked() {
-        if let Some(p) = resp.interact_pointer_pos() {
+    if resp.clicked()
+        && let Some(p) = resp.interact_pointer_pos() {
             let a = (-(p.y - c.y) as f64).atan2((p.x - c.x) as f64).to_degrees();
             cmds.push(Cmd::GoToAngle(a));
         }
-    }
     resp.on_hover_text("Seen along the modiolar axis from the apex. Click an angle to show the radial cut there.");
     cmds
 }

@@ -97,13 +97,12 @@ pub fn profile_ui(ui: &mut egui::Ui, st: &mut ProfileState, rows: &[Row], select
         }
         pui.pointer_coordinate()
     });
-    if resp.response.clicked() {
-        if let Some(p) = resp.inner {
+    if resp.response.clicked()
+        && let Some(p) = resp.inner {
             let best = rows.iter().enumerate().min_by(|a, b| (x_of(a.1, x) - p.x).abs().total_cmp(&(x_of(b.1, x) - p.x).abs())).map(|(i, _)| i);
             if let Some(i) = best {
                 cmds.push(Cmd::SelectRow(Some(i)));
             }
         }
-    }
     cmds
 }

@@ -243,12 +243,11 @@ impl View {
         } else {
             self.hover = None;
         }
-        if resp.drag_started_by(egui::PointerButton::Primary) {
-            if let Some(i) = resp.interact_pointer_pos().and_then(nearest) {
+        if resp.drag_started_by(egui::PointerButton::Primary)
+            && let Some(i) = resp.interact_pointer_pos().and_then(nearest) {
                 self.selected = Some(i);
                 self.drag = Some((i, doc.lms.items[i].p));
             }
-        }
         if resp.dragged() {
             match &mut self.drag {
                 Some((_, to)) => {
@@ -259,13 +258,12 @@ impl View {
                 None => self.pan += resp.drag_delta(),
             }
         }
-        if resp.drag_stopped() {
-            if let Some((i, to)) = self.drag.take() {
+        if resp.drag_stopped()
+            && let Some((i, to)) = self.drag.take() {
                 cmds.push(Cmd::Edit(Edit::Move { index: i, to }));
             }
-        }
-        if resp.clicked() {
-            if let Some(pos) = resp.interact_pointer_pos() {
+        if resp.clicked()
+            && let Some(pos) = resp.interact_pointer_pos() {
                 match nearest(pos) {
                     Some(i) => self.selected = Some(i),
                     None => {
@@ -276,13 +274,11 @@ impl View {
                     }
                 }
             }
-        }
-        if resp.secondary_clicked() {
-            if let Some(i) = resp.interact_pointer_pos().and_then(nearest) {
+        if resp.secondary_clicked()
+            && let Some(i) = resp.interact_pointer_pos().and_then(nearest) {
                 cmds.push(Cmd::Edit(Edit::Delete { index: i }));
                 self.selected = None;
             }
-        }
         if resp.hovered() {
             let (scroll, zoom) = ui.input(|i| (i.smooth_scroll_delta.y, i.zoom_delta()));
             if zoom != 1.0 {
@@ -296,6 +292,7 @@ impl View {
     }
 
     /// Size (columns, rows) of the plane part sampled for the last frame.
+    #[cfg(test)]
     pub fn sampled(&self) -> Option<(usize, usize)> {
         self.cache.as_ref().map(|c| (c.1.nu, c.1.nv))
     }

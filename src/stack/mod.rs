@@ -382,8 +382,8 @@ pub(crate) fn check_memory(path: &Path, bytes: u64, max_bytes: Option<u64>) -> R
         (Some(m), Some(a)) => Some(m.min(a)),
         (m, a) => m.or(a),
     };
-    if let Some(cap) = cap {
-        if bytes > cap {
+    if let Some(cap) = cap
+        && bytes > cap {
             return Err(Error::format(
                 path,
                 format!(
@@ -393,7 +393,6 @@ pub(crate) fn check_memory(path: &Path, bytes: u64, max_bytes: Option<u64>) -> R
                 ),
             ));
         }
-    }
     Ok(())
 }
 

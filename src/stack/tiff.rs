@@ -154,11 +154,10 @@ pub(super) fn load(path: &Path, opts: &LoadOptions, progress: &Progress) -> Resu
     if let Kind::Rgb { .. } = kind {
         warnings.push(format!("{}: colour pages turned into grey (BT.601 luma)", path.display()));
     }
-    if let Some(v) = &voxel {
-        if v.source[2] == VoxelSource::AssumedIsotropic {
+    if let Some(v) = &voxel
+        && v.source[2] == VoxelSource::AssumedIsotropic {
             warnings.push(format!("{}: the file gives no slice spacing; assumed equal to the pixel width", path.display()));
         }
-    }
     let whole = b == 1 && opts.crop.is_none();
     if opts.map && whole {
         let mapped = match kind {
