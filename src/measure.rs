@@ -337,8 +337,9 @@ pub fn otsu(values: &[f32]) -> Option<f32> {
     }
     const B: usize = 256;
     let mut hist = [0f64; B];
+    let k = (B as f32 - 1.0) / (hi - lo);
     for &x in values.iter().filter(|x| x.is_finite()) {
-        hist[(((x - lo) / (hi - lo)) * (B as f32 - 1.0)).round() as usize] += 1.0;
+        hist[((x - lo) * k + 0.5) as usize] += 1.0;
     }
     let total: f64 = hist.iter().sum();
     let sum_all: f64 = hist.iter().enumerate().map(|(i, h)| i as f64 * h).sum();
@@ -576,7 +577,7 @@ fn outline(img: &Img, field: &[f32], c: [f64; 2]) -> Vec<[f64; 2]> {
         let bot = f(i, j + 1) + (f(i + 1, j + 1) - f(i, j + 1)) * fx;
         top + (bot - top) * fy
     };
-    let step = 0.25 * img.pitch;
+    let step = 0.5 * img.pitch;
     let limit = 2.0 * (n as f64) * img.pitch;
     (0..OUTLINE_POINTS)
         .map(|k| {

@@ -64,6 +64,18 @@ impl Inspector {
                 cmds.push(Cmd::ClearOverride(row.s_mm));
             }
         });
+        ui.horizontal(|ui| {
+            let mut fixed = ov.levels.is_some();
+            let mut lv = ov.levels.unwrap_or(row.levels);
+            let c = ui.checkbox(&mut fixed, "fixed levels").on_hover_text("Use these fluid and bone grey levels for this section instead of finding them");
+            let l = ui.label("fluid");
+            let a = ui.add_enabled(fixed, egui::DragValue::new(&mut lv[0]).speed(10.0)).labelled_by(l.id).on_hover_text("Grey level of fluid in this section");
+            let l = ui.label("bone");
+            let b = ui.add_enabled(fixed, egui::DragValue::new(&mut lv[1]).speed(10.0)).labelled_by(l.id).on_hover_text("Grey level of bone in this section");
+            if c.changed() || a.changed() || b.changed() {
+                cmds.push(Cmd::SetOverride(Override { levels: fixed.then_some(lv), ..ov.clone() }));
+            }
+        });
         // the section image
         let key = format!("{}:{:.6}:{:.6}", i, row.s_mm, row.half_mm);
         if row.half_mm > 0.0 && self.tex.as_ref().map(|t| &t.0) != Some(&key) {
