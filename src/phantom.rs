@@ -125,7 +125,7 @@ impl PhantomSpec {
     pub fn duct(&self, t: f64) -> Duct {
         let f = t / self.theta_max();
         let lerp = |v: [f64; 2]| v[0] + (v[1] - v[0]) * f;
-        let rc = self.radius_base_mm * (self.radius_apex_mm / self.radius_base_mm).powf(f);
+        let rc = self.radius_base_mm * (f * (self.radius_apex_mm / self.radius_base_mm).ln()).exp();
         let a = lerp(self.half_width_mm);
         let sf = lerp(self.shelf_fraction);
         Duct { rc, zc: self.rise_per_turn_mm * t / TAU, a, b: lerp(self.half_height_mm), r_lam: rc - a + 2.0 * a * sf, r_lig: rc + a }
@@ -142,8 +142,16 @@ impl PhantomSpec {
         let mut bone: Option<f64> = None;
         let n0 = ((lo - phi) / TAU).floor() as i64 - 1;
         let n1 = ((hi - phi) / TAU).ceil() as i64 + 1;
+        // a turn whose axis height is farther than the tallest capsule can reach is skipped,
+        // keeping its distance in the clearance bound
+        let reach = self.half_height_mm[0].max(self.half_height_mm[1]) + self.wall_mm;
         for n in n0..=n1 {
             let t = phi + TAU * n as f64;
+            let dz_axis = (q[2] - self.rise_per_turn_mm * t / TAU).abs();
+            if dz_axis > reach + 0.05 {
+                clear = clear.min(dz_axis - reach);
+                continue;
+            }
             let d = self.duct(t);
             let cap = self.wall_mm / d.rc;
             if t < lo - cap || t > hi + cap {
@@ -476,19 +484,33 @@ pub fn truth_section(spec: &PhantomSpec, t: f64, pitch: f64) -> (f64, f64, f64, 
     let cu = v3::dot(v3::sub(mid, c), u);
     let (u0, u1) = (cu - 2.0 * duct.a - 0.1, cu + duct.a + 0.1);
     let (w0, w1) = (-duct.b - 0.1, duct.b + 0.1);
-    let (nu, nw) = (((u1 - u0) / pitch) as usize, ((w1 - w0) / pitch) as usize);
+    // cells of 4×4 raster points: a cell whose centre is farther from every boundary than the
+    // cell's half-diagonal is one material throughout, else each of its points is tested
+    const K: usize = 4;
+    let (nu, nw) = (((u1 - u0) / pitch) as usize / K, ((w1 - w0) / pitch) as usize / K);
+    let half_diag = std::f64::consts::SQRT_2 * 0.5 * K as f64 * pitch;
     let (mut sv, mut st) = (0usize, 0usize);
-    for j in 0..nw {
-        let w = w0 + (j as f64 + 0.5) * pitch;
-        for i in 0..nu {
-            let uu = u0 + (i as f64 + 0.5) * pitch;
-            let p = v3::axpy(v3::axpy(c, uu, u), w, v);
-            let (m, tt, _) = spec.material(p);
-            if (tt - t).abs() < PI {
-                match m {
-                    Mat::Sv => sv += 1,
-                    Mat::St => st += 1,
-                    _ => {}
+    let mut count = |m: Mat, tt: f64, n: usize| {
+        if (tt - t).abs() < PI {
+            match m {
+                Mat::Sv => sv += n,
+                Mat::St => st += n,
+                _ => {}
+            }
+        }
+    };
+    for cj in 0..nw {
+        for ci in 0..nu {
+            let at = |i: f64, j: f64| v3::axpy(v3::axpy(c, u0 + i * pitch, u), w0 + j * pitch, v);
+            let (m, tt, clear) = spec.material(at((ci * K) as f64 + 0.5 * K as f64, (cj * K) as f64 + 0.5 * K as f64));
+            if clear > half_diag {
+                count(m, tt, K * K);
+                continue;
+            }
+            for j in 0..K {
+                for i in 0..K {
+                    let (m, tt, _) = spec.material(at((ci * K + i) as f64 + 0.5, (cj * K + j) as f64 + 0.5));
+                    count(m, tt, 1);
                 }
             }
         }
