@@ -36,9 +36,9 @@ pub struct Doc {
 }
 
 impl Doc {
-    pub fn new(stack: Stack, stack_path: PathBuf) -> Doc {
-        let range = stack.value_range();
-        let window = auto_window(&stack);
+    /// A document for a loaded stack; `range` and `window` come from [`looks`] (computed off the
+    /// UI thread, since they read the whole stack).
+    pub fn new(stack: Stack, stack_path: PathBuf, (range, window): ((f32, f32), [f32; 2])) -> Doc {
         let mut d = Doc {
             stack: Arc::new(stack),
             stack_path,
@@ -93,8 +93,12 @@ impl Doc {
 
     pub fn set_voxel(&mut self, v: VoxelSize) {
         // a copy only when a background job still holds the stack (memory maps are shared)
+        // the overview keeps its blocks; its voxels are b times larger
+        if let Some(ov) = &mut self.overview {
+            let b = (self.stack.dims[0] as f64 / ov.dims[0] as f64).round().max(1.0);
+            Arc::make_mut(ov).voxel = Some(VoxelSize { mm: v.mm.map(|x| x * b), ..v.clone() });
+        }
         Arc::make_mut(&mut self.stack).voxel = Some(v);
-        self.overview = None;
         self.user_voxel = true;
         self.dirty = true;
         self.outcome = None;
@@ -128,6 +132,11 @@ pub fn autosave_path(project: Option<&Path>, stack: &Path) -> PathBuf {
             stack.parent().unwrap_or(Path::new(".")).join(format!("{stem}.ductline-autosave.json"))
         }
     }
+}
+
+/// Value range and automatic window of a stack (reads it all: call it off the UI thread).
+pub fn looks(stack: &Stack) -> ((f32, f32), [f32; 2]) {
+    (stack.value_range(), auto_window(stack))
 }
 
 /// Window from the 0.5 and 99.5 percentiles of a sample of the voxels.

@@ -95,6 +95,7 @@ pub struct Loaded {
     stack: Stack,
     stack_path: PathBuf,
     project: Option<(Project, PathBuf)>,
+    looks: ((f32, f32), [f32; 2]),
 }
 
 #[derive(Clone, Copy, Debug)]
@@ -234,7 +235,7 @@ impl DuctApp {
     }
 
     fn loaded(&mut self, l: Loaded) {
-        let mut doc = Doc::new(l.stack, l.stack_path.clone());
+        let mut doc = Doc::new(l.stack, l.stack_path.clone(), l.looks);
         let mut msg = format!("opened {}", l.stack_path.display());
         if let Some((p, path)) = l.project {
             if let Some(w) = p.stack_changed(&path) {
@@ -702,7 +703,8 @@ fn load(p: &Path, max_bytes: Option<u64>, prog: &ductline::progress::Progress) -
     let voxel = project.as_ref().and_then(|(prj, _)| prj.voxel_um).map(|um| VoxelSize::from_user_um(&um)).transpose().map_err(|e| e.to_string())?;
     let opts = LoadOptions { voxel, max_bytes, ..Default::default() };
     let stack = stack::load_with_progress(&stack_path, &opts, prog).map_err(|e| e.to_string())?;
-    Ok(Loaded { stack, stack_path, project })
+    let looks = doc::looks(&stack);
+    Ok(Loaded { stack, stack_path, project, looks })
 }
 
 fn save(doc: &mut Doc, p: &Path) -> Result<String, String> {

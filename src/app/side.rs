@@ -27,7 +27,11 @@ impl Side {
             let st = &doc.stack;
             ui.label(doc.stack_path.file_name().map(|n| n.to_string_lossy().to_string()).unwrap_or_default()).on_hover_text(doc.stack_path.display().to_string());
             ui.label(format!("{} × {} × {} voxels, {}", st.dims[0], st.dims[1], st.dims[2], st.samples.type_name()));
-            ui.label(format!("{:.1} MB in memory, values {:.0} … {:.0}", st.bytes() as f64 / 1e6, doc.range.0, doc.range.1));
+            let how = if st.samples.is_mapped() { "memory-mapped" } else { "in memory" };
+            ui.label(format!("{:.1} MB {how}, values {:.0} … {:.0}", st.bytes() as f64 / 1e6, doc.range.0, doc.range.1));
+            if doc.overview.is_some() {
+                ui.small("zoomed-out views use a block-averaged overview");
+            }
             match &st.voxel {
                 Some(v) => {
                     ui.label(format!("voxel {}", v.describe()));

@@ -135,7 +135,12 @@ impl View {
         let mut cmds = vec![];
         self.toolbar_ui(ui, doc);
         let Some(map) = self.plane_map(doc) else {
-            ui.centered_and_justified(|ui| ui.label("The radial cut needs the frame: place axis_base, axis_apex and window first."));
+            let why = if doc.stack.voxel.is_none() {
+                "Enter the voxel size in the specimen panel to view the stack."
+            } else {
+                "The radial cut needs the frame: place axis_base, axis_apex and window first."
+            };
+            ui.centered_and_justified(|ui| ui.label(why));
             return cmds;
         };
         let avail = ui.available_size();
