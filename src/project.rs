@@ -145,6 +145,13 @@ fn migrate_v1(v: &mut serde_json::Value) {
 
 /// Size and fingerprint of a stack file or slice folder, with its path relative to the project.
 pub fn stack_ref(stack_path: &Path, project_path: &Path) -> Result<StackRef> {
+    let (bytes, hash) = fingerprint(stack_path)?;
+    Ok(StackRef { path: relative(stack_path, project_path), bytes, hash })
+}
+
+/// Bytes on disk and content fingerprint of a stack file or slice folder (reads up to 256 MB a
+/// file, 64 spread 1 MB blocks beyond; a slice folder reads all its files: compute it once).
+pub fn fingerprint(stack_path: &Path) -> Result<(u64, String)> {
     let files: Vec<PathBuf> = if stack_path.is_dir() { crate::stack::folder_files(stack_path)? } else { vec![stack_path.to_path_buf()] };
     let mut h = Fnv::new();
     let mut bytes = 0;
@@ -154,7 +161,7 @@ pub fn stack_ref(stack_path: &Path, project_path: &Path) -> Result<StackRef> {
         h.feed(f.file_name().map(|n| n.to_string_lossy().to_string()).unwrap_or_default().as_bytes());
         fingerprint_file(f, meta.len(), &mut h)?;
     }
-    Ok(StackRef { path: relative(stack_path, project_path), bytes, hash: format!("{:016x}", h.0) })
+    Ok((bytes, format!("{:016x}", h.0)))
 }
 
 fn fingerprint_file(f: &Path, len: u64, h: &mut Fnv) -> Result<()> {
@@ -191,7 +198,7 @@ impl Fnv {
 }
 
 /// `target` relative to the folder of `project`, falling back to the absolute path.
-fn relative(target: &Path, project: &Path) -> String {
+pub fn relative(target: &Path, project: &Path) -> String {
     let abs = |p: &Path| std::path::absolute(p).unwrap_or_else(|_| p.to_path_buf());
     let t = abs(target);
     let base = abs(project.parent().filter(|p| !p.as_os_str().is_empty()).unwrap_or(Path::new(".")));

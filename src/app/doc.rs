@@ -33,6 +33,8 @@ pub struct Doc {
     pub user_voxel: bool,
     /// A block-averaged copy for zoomed-out views of large stacks (built in the background).
     pub overview: Option<Arc<Stack>>,
+    /// Size and fingerprint of the stack on disk, taken once when it was loaded (for saves).
+    pub fingerprint: Option<(u64, String)>,
 }
 
 impl Doc {
@@ -56,6 +58,7 @@ impl Doc {
             window,
             user_voxel: false,
             overview: None,
+            fingerprint: None,
         };
         d.refit();
         d
@@ -75,7 +78,12 @@ impl Doc {
     }
 
     pub fn to_project(&self, project_path: &Path) -> ductline::Result<Project> {
-        let mut p = Project::new(&self.stack_path, project_path)?;
+        let mut p = Project::unsaved(&self.stack_path);
+        let (bytes, hash) = match &self.fingerprint {
+            Some(f) => f.clone(),
+            None => ductline::project::fingerprint(&self.stack_path)?,
+        };
+        p.stack = ductline::project::StackRef { path: ductline::project::relative(&self.stack_path, project_path), bytes, hash };
         p.voxel_um = if self.user_voxel { self.stack.voxel.as_ref().map(|v| v.mm.map(|x| x * 1000.0)) } else { None };
         p.species = self.species.clone();
         p.landmarks = self.lms.items.clone();

@@ -96,6 +96,9 @@ pub struct Loaded {
     stack_path: PathBuf,
     project: Option<(Project, PathBuf)>,
     looks: ((f32, f32), [f32; 2]),
+    fingerprint: Option<(u64, String)>,
+    /// Set when a project's stack changed since it was saved.
+    changed: Option<String>,
 }
 
 #[derive(Clone, Copy, Debug)]
@@ -236,11 +239,12 @@ impl DuctApp {
 
     fn loaded(&mut self, l: Loaded) {
         let mut doc = Doc::new(l.stack, l.stack_path.clone(), l.looks);
+        doc.fingerprint = l.fingerprint;
         let mut msg = format!("opened {}", l.stack_path.display());
+        if let Some(w) = l.changed {
+            msg = format!("warning: {w}");
+        }
         if let Some((p, path)) = l.project {
-            if let Some(w) = p.stack_changed(&path) {
-                msg = format!("warning: {w}");
-            }
             doc = doc.with_project(p, Some(path));
         }
         for w in &doc.stack.warnings {
@@ -704,7 +708,12 @@ fn load(p: &Path, max_bytes: Option<u64>, prog: &ductline::progress::Progress) -
     let opts = LoadOptions { voxel, max_bytes, ..Default::default() };
     let stack = stack::load_with_progress(&stack_path, &opts, prog).map_err(|e| e.to_string())?;
     let looks = doc::looks(&stack);
-    Ok(Loaded { stack, stack_path, project, looks })
+    let fingerprint = ductline::project::fingerprint(&stack_path).ok();
+    let changed = project.as_ref().and_then(|(p, _)| {
+        let same = fingerprint.as_ref().is_some_and(|(b, h)| *b == p.stack.bytes && *h == p.stack.hash);
+        (!same).then(|| format!("{}: the stack changed since the project was saved (size or content differ); check the landmarks", stack_path.display()))
+    });
+    Ok(Loaded { stack, stack_path, project, looks, fingerprint, changed })
 }
 
 fn save(doc: &mut Doc, p: &Path) -> Result<String, String> {
