@@ -130,6 +130,10 @@ pub struct DuctApp {
     recent: Vec<PathBuf>,
     /// Where the recent-files list is kept (None: not kept, as in tests).
     recent_file: Option<PathBuf>,
+    /// Binning (1, 2 or 4) and crop box (`I0:I1,J0:J1,K0:K1`, empty = whole) for the next open.
+    pub load_bin: usize,
+    pub load_crop: String,
+    show_load_opts: bool,
 }
 
 /// The bundled sample project (next to the sources, or below the working folder).
@@ -179,6 +183,9 @@ impl DuctApp {
             last_autosave: Instant::now(),
             recent,
             recent_file,
+            load_bin: 1,
+            load_crop: String::new(),
+            show_load_opts: false,
         };
         if let Some(p) = open {
             app.apply(Cmd::Open(p));
@@ -197,7 +204,13 @@ impl DuctApp {
             self.load = None;
             match res {
                 Ok(l) => self.loaded(l),
-                Err(e) => self.status = format!("error: {e}"),
+                Err(e) => {
+                    // too large to hold: offer binning and cropping
+                    if e.contains("may be used") {
+                        self.show_load_opts = true;
+                    }
+                    self.status = format!("error: {e}");
+                }
             }
         }
         if let Some(res) = self.run.as_ref().and_then(|j| j.poll()) {
@@ -317,8 +330,15 @@ impl DuctApp {
                 }
                 self.remember(&p);
                 self.status = format!("loading {}", p.display());
-                let max = None;
-                self.load = Some(Job::spawn("loading", move |prog| load(&p, max, prog)));
+                let crop = match crate::cli::crop_arg(&Some(self.load_crop.clone()).filter(|c| !c.trim().is_empty())) {
+                    Ok(c) => c,
+                    Err(e) => {
+                        self.status = format!("error: {e}");
+                        return;
+                    }
+                };
+                let opts = LoadOptions { bin: self.load_bin, crop, ..Default::default() };
+                self.load = Some(Job::spawn("loading", move |prog| load(&p, opts, prog)));
             }
             Cmd::OpenDialog => self.ask(Pending::Open),
             Cmd::ImportLandmarksDialog => self.ask(Pending::ImportLandmarks),
@@ -523,6 +543,9 @@ impl DuctApp {
                 if ui.button("Open the bundled sample").clicked() {
                     cmds.push(Cmd::Open(sample_path()));
                 }
+                if ui.button("Load options (binning, crop)…").clicked() {
+                    self.show_load_opts = true;
+                }
                 ui.separator();
                 if ui.button("Save project  (ctrl+S)").clicked() {
                     cmds.push(Cmd::Save);
@@ -609,6 +632,28 @@ impl DuctApp {
             ui.separator();
             ui.colored_label(palette::WARN, ductline::CAUTION);
         });
+        let reopen = self.doc.as_ref().map(|d| d.project_path.clone().unwrap_or_else(|| d.stack_path.clone()));
+        let (mut bin, mut crop) = (self.load_bin, self.load_crop.clone());
+        egui::Window::new("Load options").open(&mut self.show_load_opts).collapsible(false).show(ctx, |ui| {
+            ui.label("For stacks larger than memory, or to work on a part. Coordinates stay those of the whole stack, so landmarks and projects stay valid.");
+            ui.horizontal(|ui| {
+                ui.label("binning");
+                for b in [1usize, 2, 4] {
+                    ui.radio_value(&mut bin, b, if b == 1 { "none".to_string() } else { format!("{b}×{b}×{b}") }).on_hover_text("Average blocks of voxels while loading");
+                }
+            });
+            ui.horizontal(|ui| {
+                let l = ui.label("crop");
+                ui.add(egui::TextEdit::singleline(&mut crop).hint_text("I0:I1,J0:J1,K0:K1 (empty = whole)").desired_width(220.0)).labelled_by(l.id).on_hover_text("Voxel index ranges of the whole stack, end excluded");
+            });
+            if let Some(p) = &reopen {
+                if ui.button("Open again with these").on_hover_text("Reload the current stack or project with these options").clicked() {
+                    cmds.push(Cmd::Open(p.clone()));
+                }
+            }
+            ui.small("They apply to every open until changed.");
+        });
+        (self.load_bin, self.load_crop) = (bin, crop);
         if let Some(p) = &self.recovery {
             let text = format!("Unsaved work from an earlier session was kept in\n{}\nRecover it?", p.display());
             egui::Modal::new(egui::Id::unique("recover")).show(ctx, |ui| {
@@ -696,7 +741,7 @@ impl eframe::App for DuctApp {
 }
 
 /// Loads a stack, or a project and its stack (background thread).
-fn load(p: &Path, max_bytes: Option<u64>, prog: &ductline::progress::Progress) -> Result<Loaded, String> {
+fn load(p: &Path, opts: LoadOptions, prog: &ductline::progress::Progress) -> Result<Loaded, String> {
     let is_project = p.extension().is_some_and(|e| e.eq_ignore_ascii_case("json"));
     let (stack_path, project) = if is_project {
         let prj = Project::load(p).map_err(|e| e.to_string())?;
@@ -705,7 +750,7 @@ fn load(p: &Path, max_bytes: Option<u64>, prog: &ductline::progress::Progress) -
         (p.to_path_buf(), None)
     };
     let voxel = project.as_ref().and_then(|(prj, _)| prj.voxel_um).map(|um| VoxelSize::from_user_um(&um)).transpose().map_err(|e| e.to_string())?;
-    let opts = LoadOptions { voxel, max_bytes, ..Default::default() };
+    let opts = LoadOptions { voxel, ..opts };
     let stack = stack::load_with_progress(&stack_path, &opts, prog).map_err(|e| e.to_string())?;
     let looks = doc::looks(&stack);
     let fingerprint = ductline::project::fingerprint(&stack_path).ok();

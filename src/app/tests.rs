@@ -172,3 +172,22 @@ fn zoomed_views_sample_only_what_shows() {
     let p2 = h.state().doc.as_ref().unwrap().lms.items.last().unwrap().p;
     assert!(ductline::frame::v3::dist(p1, p2) < 0.07, "{p1:?} vs {p2:?}");
 }
+
+/// Binning on load (the Load options window) halves the voxels, keeps the landmarks' stack
+/// coordinates valid (the fit still works) and a bad crop is an error, not a crash.
+#[test]
+fn load_options_bin_and_crop() {
+    let mut app = DuctApp::new(None, None);
+    app.load_bin = 2;
+    let mut h = Harness::builder().with_size(egui::vec2(1500.0, 950.0)).build_ui_state(|ui, app: &mut DuctApp| app.frame_ui(ui), app);
+    h.state_mut().apply(Cmd::Open(sample_path()));
+    wait(&mut h, "the binned sample", |a| a.doc.is_some());
+    let doc = h.state().doc.as_ref().unwrap();
+    assert_eq!(doc.stack.dims, [73, 73, 47]);
+    assert!(doc.fitted.is_ok(), "landmarks in whole-stack mm still fit");
+    h.get_by_label("Tracing view");
+    h.state_mut().load_crop = "0:10,oops".into();
+    h.state_mut().apply(Cmd::Open(sample_path()));
+    h.step();
+    assert!(h.state().status.contains("--crop"), "{}", h.state().status);
+}
