@@ -80,7 +80,8 @@ fn main() {
     for r in 0..8 {
         let t0 = r as f64 * 0.4;
         let er = [t0.cos(), t0.sin(), 0.0];
-        let g = Grid { origin: v3::axpy(v3::axpy(centre, -reach, er), reach, [0.0, 0.0, 1.0]), du: v3::scale(er, opitch), dv: [0.0, 0.0, -opitch], nu: on, nv: on };
+        let g =
+            Grid { origin: v3::axpy(v3::axpy(centre, -reach, er), reach, [0.0, 0.0, 1.0]), du: v3::scale(er, opitch), dv: [0.0, 0.0, -opitch], nu: on, nv: on };
         ductline::display::window_level(&section::resample(&ov, &g), window, &mut rgba);
     }
     println!("zoomed out, radial cut {on}×{on} from the overview: {:.2} ms", ms(t) / 8.0);

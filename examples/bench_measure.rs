@@ -39,14 +39,21 @@ fn main() {
     let ms = MeasureSettings { step_mm: step, ..Default::default() };
     let t = Instant::now();
     let (_, rows) = ductline::measure::measure(&ph.stack, &cl, &ms, &[], &Greenwood::preset("human").unwrap(), &Progress::new()).unwrap();
-    println!("measure: {} sections in {:.3} s ({:.1} ms a section)", rows.len(), t.elapsed().as_secs_f64(), 1e3 * t.elapsed().as_secs_f64() / rows.len() as f64);
+    println!(
+        "measure: {} sections in {:.3} s ({:.1} ms a section)",
+        rows.len(),
+        t.elapsed().as_secs_f64(),
+        1e3 * t.elapsed().as_secs_f64() / rows.len() as f64
+    );
     // the same sections for bench/measure_reference.py (scipy/scikit-image doing the same job)
     if let Some(dir) = std::env::args().nth(2) {
         let secs: Vec<serde_json::Value> = geoms
             .iter()
             .zip(&rows)
-            .map(|(g, r)| serde_json::json!({"centre": g.centre, "u": g.u, "v": g.v, "lamina_uv": r.lamina_uv, "ligament_uv": r.ligament_uv,
-                                           "half_mm": r.half_mm, "pitch_mm": r.pitch_mm, "sv_area_mm2": r.sv.area, "st_area_mm2": r.st.area}))
+            .map(|(g, r)| {
+                serde_json::json!({"centre": g.centre, "u": g.u, "v": g.v, "lamina_uv": r.lamina_uv, "ligament_uv": r.ligament_uv,
+                                           "half_mm": r.half_mm, "pitch_mm": r.pitch_mm, "sv_area_mm2": r.sv.area, "st_area_mm2": r.st.area})
+            })
             .collect();
         let out = serde_json::json!({"voxel_mm": ph.stack.voxel.as_ref().unwrap().mm, "sections": secs, "seconds": t.elapsed().as_secs_f64()});
         std::fs::write(std::path::Path::new(&dir).join("sections.json"), out.to_string()).unwrap();

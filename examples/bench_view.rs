@@ -20,7 +20,13 @@ fn main() {
         times.push(t.elapsed().as_secs_f64() * 1e3);
     }
     times.sort_by(f64::total_cmp);
-    println!("2048² slice → RGBA: median {:.2} ms, best {:.2} ms, worst {:.2} ms ({} threads)", times[times.len() / 2], times[0], times[times.len() - 1], rayon::current_num_threads());
+    println!(
+        "2048² slice → RGBA: median {:.2} ms, best {:.2} ms, worst {:.2} ms ({} threads)",
+        times[times.len() / 2],
+        times[0],
+        times[times.len() - 1],
+        rayon::current_num_threads()
+    );
     let t = Instant::now();
     for _ in 0..20 {
         ductline::display::window_level(&ductline::display::plane(&st, 1, 700), [1000.0, 60000.0], &mut rgba);

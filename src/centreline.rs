@@ -76,7 +76,11 @@ pub fn unwrap_angles(frame: &Frame, pts: &[V]) -> Vec<f64> {
         let a = c[i][1];
         let t = match prev {
             None => {
-                if a < -90.0 { a + 360.0 } else { a }
+                if a < -90.0 {
+                    a + 360.0
+                } else {
+                    a
+                }
             }
             Some(p) => p + wrap180(a - p),
         };
@@ -179,11 +183,7 @@ impl Centreline {
     fn local3(&self, t: f64) -> (V, V, V) {
         let [(r, r1, r2), (z, z1, z2)] = self.rz(t);
         let (s, c) = t.sin_cos();
-        (
-            [r * c, r * s, z],
-            [r1 * c - r * s, r1 * s + r * c, z1],
-            [r2 * c - 2.0 * r1 * s - r * c, r2 * s + 2.0 * r1 * c - r * s, z2],
-        )
+        ([r * c, r * s, z], [r1 * c - r * s, r1 * s + r * c, z1], [r2 * c - 2.0 * r1 * s - r * c, r2 * s + 2.0 * r1 * c - r * s, z2])
     }
 
     /// |dP/dθ| (mm per rad).

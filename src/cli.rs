@@ -107,7 +107,10 @@ pub fn crop_arg(s: &Option<String>) -> Result<Option<[[usize; 2]; 3]>> {
     let mut out = [[0usize; 2]; 3];
     for (a, p) in parts.iter().enumerate() {
         let (lo, hi) = p.split_once(':').with_context(|| format!("--crop: '{p}' is not a range LO:HI"))?;
-        out[a] = [lo.trim().parse().with_context(|| format!("--crop: '{lo}' is not a whole number"))?, hi.trim().parse().with_context(|| format!("--crop: '{hi}' is not a whole number"))?];
+        out[a] = [
+            lo.trim().parse().with_context(|| format!("--crop: '{lo}' is not a whole number"))?,
+            hi.trim().parse().with_context(|| format!("--crop: '{hi}' is not a whole number"))?,
+        ];
     }
     Ok(Some(out))
 }
@@ -181,14 +184,38 @@ pub fn inspect(path: &Path, voxel: Option<String>, bin: usize, crop: Option<Stri
 }
 
 #[allow(clippy::too_many_arguments)]
-pub fn make_phantom(outdir: &Path, voxel_um: &str, turns: f64, noise: f64, blur: f64, tilt: &str, left: bool, bits: u8, step: f64, lnoise: f64, seed: u64) -> Result<()> {
+pub fn make_phantom(
+    outdir: &Path,
+    voxel_um: &str,
+    turns: f64,
+    noise: f64,
+    blur: f64,
+    tilt: &str,
+    left: bool,
+    bits: u8,
+    step: f64,
+    lnoise: f64,
+    seed: u64,
+) -> Result<()> {
     let v = parse_list(voxel_um, "--voxel-um")?;
     let v = VoxelSize::from_user_um(&v)?.mm.map(|x| x * 1000.0);
     let t = parse_list(tilt, "--tilt-deg")?;
     if t.len() != 2 {
         bail!("--tilt-deg needs two angles AX,AY");
     }
-    let spec = phantom::PhantomSpec { voxel_um: v, turns, noise, blur_vox: blur, tilt_deg: [t[0], t[1]], left, bits, landmark_step_deg: step, landmark_noise_mm: lnoise, seed, ..Default::default() };
+    let spec = phantom::PhantomSpec {
+        voxel_um: v,
+        turns,
+        noise,
+        blur_vox: blur,
+        tilt_deg: [t[0], t[1]],
+        left,
+        bits,
+        landmark_step_deg: step,
+        landmark_noise_mm: lnoise,
+        seed,
+        ..Default::default()
+    };
     let ph = with_progress("phantom", |p| phantom::generate(&spec, p))?;
     phantom::write(&ph, outdir)?;
     eprintln!(

@@ -10,7 +10,20 @@ use std::path::Path;
 
 /// Table columns in order (DESIGN.md), units in the names.
 pub const COLUMNS: [&str; 14] = [
-    "s_mm", "angle_deg", "x_mm", "y_mm", "z_mm", "radius_mm", "height_mm", "curvature_radius_mm", "cf_hz", "sv_area_mm2", "st_area_mm2", "partition_width_mm", "wall_mm", "flags",
+    "s_mm",
+    "angle_deg",
+    "x_mm",
+    "y_mm",
+    "z_mm",
+    "radius_mm",
+    "height_mm",
+    "curvature_radius_mm",
+    "cf_hz",
+    "sv_area_mm2",
+    "st_area_mm2",
+    "partition_width_mm",
+    "wall_mm",
+    "flags",
 ];
 
 fn num(x: Option<f64>, digits: usize) -> String {

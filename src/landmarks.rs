@@ -63,18 +63,23 @@ pub fn parse_csv(text: &str, path: &Path, stack: Option<&Stack>) -> Result<Vec<L
         if f.len() < cols.len() {
             return Err(Error::line(path, n, format!("{} fields, the header has {}", f.len(), cols.len())));
         }
-        let kind = Kind::parse(f[idx[0]]).ok_or_else(|| {
-            Error::line(path, n, format!("unknown kind '{}'; kinds are axis_base, axis_apex, window, lamina, ligament", f[idx[0]]))
-        })?;
+        let kind = Kind::parse(f[idx[0]])
+            .ok_or_else(|| Error::line(path, n, format!("unknown kind '{}'; kinds are axis_base, axis_apex, window, lamina, ligament", f[idx[0]])))?;
         let mut p = [0.0; 3];
         for a in 0..3 {
             let s = f[idx[a + 1]];
-            p[a] = s.parse::<f64>().ok().filter(|x| x.is_finite()).ok_or_else(|| Error::line(path, n, format!("'{s}' in column {} is not a number", want[a + 1])))?;
+            p[a] = s
+                .parse::<f64>()
+                .ok()
+                .filter(|x| x.is_finite())
+                .ok_or_else(|| Error::line(path, n, format!("'{s}' in column {} is not a number", want[a + 1])))?;
         }
         if let Some(st) = stack
-            && st.voxel.is_some() && !st.contains_mm(p) {
-                return Err(Error::line(path, n, format!("point ({:.3}, {:.3}, {:.3}) mm lies outside the stack", p[0], p[1], p[2])));
-            }
+            && st.voxel.is_some()
+            && !st.contains_mm(p)
+        {
+            return Err(Error::line(path, n, format!("point ({:.3}, {:.3}, {:.3}) mm lies outside the stack", p[0], p[1], p[2])));
+        }
         out.push(Landmark { kind, p });
     }
     Ok(out)

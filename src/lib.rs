@@ -8,21 +8,21 @@
 //!
 //! Units everywhere: millimetres, degrees, mm², Hz.
 
-pub mod error;
-pub mod stack;
-pub mod frame;
-pub mod landmarks;
-pub mod spline;
 pub mod centreline;
 pub mod cochlea;
-pub mod section;
-pub mod measure;
+pub mod display;
+pub mod error;
 pub mod export;
-pub mod project;
+pub mod frame;
+pub mod landmarks;
+pub mod measure;
 pub mod phantom;
 pub mod pipeline;
-pub mod display;
 pub mod progress;
+pub mod project;
+pub mod section;
+pub mod spline;
+pub mod stack;
 
 pub use error::{Error, Result};
 

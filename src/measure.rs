@@ -148,7 +148,14 @@ impl Row {
 pub const OUTLINE_POINTS: usize = 64;
 
 /// Measures every section. Parallel over sections; `progress` counts sections and can cancel.
-pub fn measure(stack: &Stack, cl: &Centreline, s: &MeasureSettings, overrides: &[Override], gw: &Greenwood, progress: &Progress) -> Result<(Vec<SectionGeom>, Vec<Row>)> {
+pub fn measure(
+    stack: &Stack,
+    cl: &Centreline,
+    s: &MeasureSettings,
+    overrides: &[Override],
+    gw: &Greenwood,
+    progress: &Progress,
+) -> Result<(Vec<SectionGeom>, Vec<Row>)> {
     let vox = stack.voxel()?;
     if !(s.step_mm > 0.0) {
         return Err(Error::invalid(format!("step must be positive, got {} mm", s.step_mm)));
@@ -270,10 +277,11 @@ fn section_row(stack: &Stack, cl: &Centreline, g: &SectionGeom, s: &MeasureSetti
         // The dark class may hold other dark matter (soft tissue, air) besides fluid: take the fluid
         // level from the interior of the scalae themselves, then segment again.
         if levels_given.is_none()
-            && let Some(f) = lumen_level(&img, &line, mid, thr, vmax, g.width(), erode) {
-                row.levels = [f, bone];
-                thr = 0.5 * (f + bone);
-            }
+            && let Some(f) = lumen_level(&img, &line, mid, thr, vmax, g.width(), erode)
+        {
+            row.levels = [f, bone];
+            thr = 0.5 * (f + bone);
+        }
         let [fluid, bone] = row.levels;
         let mut grow_more = false;
         let mut open = false;
@@ -639,4 +647,3 @@ fn wall(stack: &Stack, g: &SectionGeom, mid: [f64; 2], dir: [f64; 2], pitch: f64
     let down = (up + 1..prof.len()).find(|&i| prof[i] < t_out).unwrap_or(down);
     Some(cross(down, t_out) - cross(up, thr))
 }
-

@@ -240,7 +240,11 @@ impl Placement {
     pub fn to_local(&self, p: V) -> V {
         let d = v3::sub(p, self.centre);
         let m = &self.rot;
-        let q = [m[0][0] * d[0] + m[1][0] * d[1] + m[2][0] * d[2], m[0][1] * d[0] + m[1][1] * d[1] + m[2][1] * d[2], m[0][2] * d[0] + m[1][2] * d[1] + m[2][2] * d[2]];
+        let q = [
+            m[0][0] * d[0] + m[1][0] * d[1] + m[2][0] * d[2],
+            m[0][1] * d[0] + m[1][1] * d[1] + m[2][1] * d[2],
+            m[0][2] * d[0] + m[1][2] * d[1] + m[2][2] * d[2],
+        ];
         [q[0], self.mirror * q[1], q[2]]
     }
 }
@@ -375,7 +379,11 @@ pub fn generate(spec: &PhantomSpec, progress: &Progress) -> Result<Phantom> {
             noisy(k, v);
             progress.add(1);
         });
-        if spec.bits == 8 { Samples::U8(vol.iter().map(|x| *x as u8).collect::<Vec<_>>().into()) } else { Samples::U16(vol.iter().map(|x| *x as u16).collect::<Vec<_>>().into()) }
+        if spec.bits == 8 {
+            Samples::U8(vol.iter().map(|x| *x as u8).collect::<Vec<_>>().into())
+        } else {
+            Samples::U16(vol.iter().map(|x| *x as u16).collect::<Vec<_>>().into())
+        }
     };
     drop(vol);
     let voxel = VoxelSize::new(vox, std::array::from_fn(|_| VoxelSource::User));

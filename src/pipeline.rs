@@ -1,6 +1,7 @@
 //! The whole job in one call: landmarks → frame → centreline → sections → measures.
 //! Used by the command line and by the app's background worker.
 
+use crate::Result;
 use crate::centreline::{Centreline, FitSettings};
 use crate::cochlea::{Greenwood, LengthEstimates};
 use crate::landmarks::{self, Landmark};
@@ -8,7 +9,6 @@ use crate::measure::{self, MeasureSettings, Override, Row};
 use crate::progress::Progress;
 use crate::section::SectionGeom;
 use crate::stack::Stack;
-use crate::Result;
 
 /// Everything a measurement run produces.
 #[derive(Clone, Debug)]
@@ -51,7 +51,15 @@ pub fn fit(items: &[Landmark], fit: &FitSettings) -> Result<Centreline> {
 }
 
 /// Fits and measures.
-pub fn run(stack: &Stack, items: &[Landmark], fit_s: &FitSettings, ms: &MeasureSettings, overrides: &[Override], gw: &Greenwood, progress: &Progress) -> Result<Outcome> {
+pub fn run(
+    stack: &Stack,
+    items: &[Landmark],
+    fit_s: &FitSettings,
+    ms: &MeasureSettings,
+    overrides: &[Override],
+    gw: &Greenwood,
+    progress: &Progress,
+) -> Result<Outcome> {
     stack.voxel()?;
     let centreline = fit(items, fit_s)?;
     let (geoms, rows) = measure::measure(stack, &centreline, ms, overrides, gw, progress)?;

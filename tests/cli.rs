@@ -60,7 +60,19 @@ fn phantom_measure_end_to_end() {
     assert!(o.status.success() && text.contains("uint16") && text.contains("80.0000 × 80.0000 × 80.0000 µm (OME-XML)"), "{text}");
 
     let (table, json, stl_dir) = (dir.path().join("t.csv"), dir.path().join("t.json"), dir.path().join("stl"));
-    let o = ductline(&["measure", "--stack", s(&ph.join("phantom.tif")), "--landmarks", s(&ph.join("landmarks.csv")), "--out", s(&table), "--json", s(&json), "--stl", s(&stl_dir)]);
+    let o = ductline(&[
+        "measure",
+        "--stack",
+        s(&ph.join("phantom.tif")),
+        "--landmarks",
+        s(&ph.join("landmarks.csv")),
+        "--out",
+        s(&table),
+        "--json",
+        s(&json),
+        "--stl",
+        s(&stl_dir),
+    ]);
     assert!(o.status.success(), "{}", stderr(&o));
     let err = stderr(&o);
     assert!(err.contains("length") && err.contains("Escudé") && err.contains("Alexiades"), "summary: {err}");
@@ -68,7 +80,10 @@ fn phantom_measure_end_to_end() {
     // columns exactly as DESIGN.md, in order
     let (head, rows) = read_csv(&table);
     assert_eq!(head, ductline::export::COLUMNS.map(String::from).to_vec());
-    assert_eq!(head.join(","), "s_mm,angle_deg,x_mm,y_mm,z_mm,radius_mm,height_mm,curvature_radius_mm,cf_hz,sv_area_mm2,st_area_mm2,partition_width_mm,wall_mm,flags");
+    assert_eq!(
+        head.join(","),
+        "s_mm,angle_deg,x_mm,y_mm,z_mm,radius_mm,height_mm,curvature_radius_mm,cf_hz,sv_area_mm2,st_area_mm2,partition_width_mm,wall_mm,flags"
+    );
     assert!(rows.len() > 300 && rows.iter().all(|r| r.len() == 14));
     // uniform step in s
     let s_col: Vec<f64> = rows.iter().map(|r| r[0].parse().unwrap()).collect();
@@ -91,7 +106,11 @@ fn phantom_measure_end_to_end() {
         }
         for (k, col) in [(0usize, 9usize), (1, 10)] {
             if let Ok(v) = r[col].parse::<f64>() {
-                let t = common::truth_at(&truth, a, if k == 0 { |x: &ductline::phantom::TruthRow| x.sv_area_mm2 } else { |x: &ductline::phantom::TruthRow| x.st_area_mm2 });
+                let t = common::truth_at(
+                    &truth,
+                    a,
+                    if k == 0 { |x: &ductline::phantom::TruthRow| x.sv_area_mm2 } else { |x: &ductline::phantom::TruthRow| x.st_area_mm2 },
+                );
                 errs[k].push((v - t).abs() / t);
             }
         }

@@ -44,7 +44,13 @@ fn helix_landmarks(r: f64, w: f64, pitch: f64, turns: f64, left: bool) -> (Vec<L
     // a frame tilted against the stack axes, origin well inside positive coordinates
     let ez = v3::unit([0.2, -0.1, 1.0]);
     let ex = v3::unit(v3::cross([0.0, 1.0, 0.0], ez));
-    let frame = Frame::new([10.0, 10.0, 3.0], v3::axpy([10.0, 10.0, 3.0], 5.0, ez), v3::axpy([10.0, 10.0, 3.0], 4.0, ex), if left { Handedness::Left } else { Handedness::Right }).unwrap();
+    let frame = Frame::new(
+        [10.0, 10.0, 3.0],
+        v3::axpy([10.0, 10.0, 3.0], 5.0, ez),
+        v3::axpy([10.0, 10.0, 3.0], 4.0, ex),
+        if left { Handedness::Left } else { Handedness::Right },
+    )
+    .unwrap();
     let mut lms = vec![
         Landmark { kind: Kind::AxisBase, p: frame.origin },
         Landmark { kind: Kind::AxisApex, p: v3::axpy(frame.origin, 5.0, frame.ez) },

@@ -87,7 +87,16 @@ fn sampler_matches_scipy_map_coordinates() {
 
 fn run(spec: &PhantomSpec) -> (phantom::Phantom, pipeline::Outcome) {
     let ph = phantom::generate(spec, &Progress::new()).unwrap();
-    let out = pipeline::run(&ph.stack, &ph.landmarks, &FitSettings::default(), &MeasureSettings::default(), &[], &Greenwood::preset("human").unwrap(), &Progress::new()).unwrap();
+    let out = pipeline::run(
+        &ph.stack,
+        &ph.landmarks,
+        &FitSettings::default(),
+        &MeasureSettings::default(),
+        &[],
+        &Greenwood::preset("human").unwrap(),
+        &Progress::new(),
+    )
+    .unwrap();
     (ph, out)
 }
 
@@ -147,7 +156,15 @@ fn injected_outlier_is_flagged() {
     let cl = pipeline::fit(&ph.landmarks, &FitSettings::default()).unwrap();
     let flagged: Vec<usize> = cl.flagged().iter().map(|f| f.0).collect();
     assert_eq!(flagged, vec![i], "only the moved landmark is flagged");
-    let (_, rows) = ductline::measure::measure(&ph.stack, &cl, &MeasureSettings { step_mm: 0.5, ..Default::default() }, &[], &Greenwood::preset("human").unwrap(), &Progress::new()).unwrap();
+    let (_, rows) = ductline::measure::measure(
+        &ph.stack,
+        &cl,
+        &MeasureSettings { step_mm: 0.5, ..Default::default() },
+        &[],
+        &Greenwood::preset("human").unwrap(),
+        &Progress::new(),
+    )
+    .unwrap();
     assert!(rows.iter().any(|r| r.flags.contains(&ductline::measure::Flag::Outlier)));
 }
 

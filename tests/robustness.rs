@@ -110,7 +110,16 @@ fn nan_voxels_are_flagged_not_reported() {
         }
     }
     let st = ductline::stack::Stack::from_samples(ph.stack.dims, ductline::stack::Samples::F32(f.into()), ph.stack.voxel.clone()).unwrap();
-    let out = ductline::pipeline::run(&st, &ph.landmarks, &FitSettings::default(), &MeasureSettings { step_mm: 0.25, ..Default::default() }, &[], &ductline::cochlea::Greenwood::preset("human").unwrap(), &ductline::progress::Progress::new()).unwrap();
+    let out = ductline::pipeline::run(
+        &st,
+        &ph.landmarks,
+        &FitSettings::default(),
+        &MeasureSettings { step_mm: 0.25, ..Default::default() },
+        &[],
+        &ductline::cochlea::Greenwood::preset("human").unwrap(),
+        &ductline::progress::Progress::new(),
+    )
+    .unwrap();
     let open = out.rows.iter().filter(|r| r.flags.contains(&ductline::measure::Flag::Open)).count();
     assert!(open > 0, "sections through the hole are flagged open");
     assert!(out.rows.iter().filter(|r| r.sound()).count() > out.rows.len() / 2);

@@ -113,20 +113,20 @@ impl Doc {
     }
 
     /// The overview's block size for a stack: none under 512 MB, else the smallest power of two that
-/// brings it (as f32) under 256 MB.
-pub fn overview_factor(stack: &Stack) -> Option<usize> {
-    let bytes = stack.samples.len() as f64 * 4.0;
-    if stack.bytes() < (512 << 20) {
-        return None;
+    /// brings it (as f32) under 256 MB.
+    pub fn overview_factor(stack: &Stack) -> Option<usize> {
+        let bytes = stack.samples.len() as f64 * 4.0;
+        if stack.bytes() < (512 << 20) {
+            return None;
+        }
+        let mut b = 2;
+        while bytes / (b * b * b) as f64 > (256 << 20) as f64 {
+            b *= 2;
+        }
+        Some(b)
     }
-    let mut b = 2;
-    while bytes / (b * b * b) as f64 > (256 << 20) as f64 {
-        b *= 2;
-    }
-    Some(b)
-}
 
-/// Where unsaved work is kept every 30 s: beside the project, or beside the stack.
+    /// Where unsaved work is kept every 30 s: beside the project, or beside the stack.
     pub fn autosave_path(&self) -> PathBuf {
         autosave_path(self.project_path.as_deref(), &self.stack_path)
     }

@@ -59,7 +59,8 @@ impl Inspector {
             if ui.checkbox(&mut ex, "exclude").on_hover_text("Leave this section out of the table (its values become blank, flagged 'excluded')").changed() {
                 cmds.push(Cmd::SetOverride(Override { exclude: ex, ..ov.clone() }));
             }
-            ui.toggle_value(&mut self.seed_mode, "place seeds").on_hover_text("Click in the section: above the partition line sets the SV seed, below sets the ST seed");
+            ui.toggle_value(&mut self.seed_mode, "place seeds")
+                .on_hover_text("Click in the section: above the partition line sets the SV seed, below sets the ST seed");
             if ui.button("clear overrides").on_hover_text("Forget this section's overrides").clicked() {
                 cmds.push(Cmd::ClearOverride(row.s_mm));
             }
@@ -96,7 +97,8 @@ impl Inspector {
         painter.image(tex.id(), rect, Rect::from_min_max(pos2(0.0, 1.0), pos2(1.0, 0.0)), Color32::WHITE);
         let h = row.half_mm as f32;
         let to_screen = |q: [f64; 2]| pos2(rect.center().x + q[0] as f32 / h * 0.5 * rect.width(), rect.center().y - q[1] as f32 / h * 0.5 * rect.height());
-        let from_screen = |p: Pos2| [((p.x - rect.center().x) / (0.5 * rect.width()) * h) as f64, (-(p.y - rect.center().y) / (0.5 * rect.height()) * h) as f64];
+        let from_screen =
+            |p: Pos2| [((p.x - rect.center().x) / (0.5 * rect.width()) * h) as f64, (-(p.y - rect.center().y) / (0.5 * rect.height()) * h) as f64];
         for (sc, col) in [(&row.sv, palette::SERIES[0]), (&row.st, palette::SERIES[1])] {
             if !sc.outline.is_empty() {
                 let mut pts: Vec<Pos2> = sc.outline.iter().map(|q| to_screen(*q)).collect();
@@ -114,16 +116,17 @@ impl Inspector {
         painter.line_segment([to_screen(a), to_screen(b)], Stroke::new(2.0, palette::CENTRE));
         painter.circle_filled(to_screen(a), 4.0, palette::LAMINA);
         painter.circle_filled(to_screen(b), 4.0, palette::LIGAMENT);
-        if self.seed_mode && resp.clicked()
-            && let Some(p) = resp.interact_pointer_pos() {
-                let q = from_screen(p);
-                let above = (q[0] - a[0]) * (-d[1]) + (q[1] - a[1]) * d[0];
-                let above = if d[0] >= 0.0 { above > 0.0 } else { above < 0.0 };
-                let o = if above { Override { seed_sv: Some(q), ..ov } } else { Override { seed_st: Some(q), ..ov } };
-                cmds.push(Cmd::SetOverride(o));
-            }
+        if self.seed_mode
+            && resp.clicked()
+            && let Some(p) = resp.interact_pointer_pos()
+        {
+            let q = from_screen(p);
+            let above = (q[0] - a[0]) * (-d[1]) + (q[1] - a[1]) * d[0];
+            let above = if d[0] >= 0.0 { above > 0.0 } else { above < 0.0 };
+            let o = if above { Override { seed_sv: Some(q), ..ov } } else { Override { seed_st: Some(q), ..ov } };
+            cmds.push(Cmd::SetOverride(o));
+        }
         resp.on_hover_text("Normal section: apex side up, partition line in yellow-green, SV and ST outlines");
         cmds
     }
 }
-

@@ -151,7 +151,9 @@ fn config_file() -> Option<PathBuf> {
 /// Opens the app window; `path` (stack, folder or project) or the bundled sample.
 pub fn run(path: Option<PathBuf>) -> anyhow::Result<()> {
     if std::env::var_os("DISPLAY").is_none() && std::env::var_os("WAYLAND_DISPLAY").is_none() {
-        anyhow::bail!("no display (DISPLAY/WAYLAND_DISPLAY unset): the desktop app needs X11 or Wayland; the command line (inspect, phantom, measure) works without one");
+        anyhow::bail!(
+            "no display (DISPLAY/WAYLAND_DISPLAY unset): the desktop app needs X11 or Wayland; the command line (inspect, phantom, measure) works without one"
+        );
     }
     let path = path.unwrap_or_else(sample_path);
     let options = eframe::NativeOptions {
@@ -229,25 +231,27 @@ impl DuctApp {
         if let Some(ov) = self.overview.as_ref().and_then(|j| j.poll()) {
             self.overview = None;
             if let Some(doc) = &mut self.doc
-                && doc.stack.dims.iter().zip(ov.dims).all(|(a, b)| b <= *a) {
-                    doc.overview = Some(std::sync::Arc::new(ov));
-                }
+                && doc.stack.dims.iter().zip(ov.dims).all(|(a, b)| b <= *a)
+            {
+                doc.overview = Some(std::sync::Arc::new(ov));
+            }
         }
         if let Some((what, rx)) = &self.dialog
-            && let Ok(res) = rx.try_recv() {
-                let what = *what;
-                self.dialog = None;
-                if let Some(p) = res {
-                    self.apply(match what {
-                        Pending::Open => Cmd::Open(p),
-                        Pending::ImportLandmarks => Cmd::ImportLandmarks(p),
-                        Pending::ExportLandmarks => Cmd::ExportLandmarks(p),
-                        Pending::SaveAs => Cmd::SaveAs(p),
-                        Pending::ExportTable => Cmd::ExportTable(p),
-                        Pending::ExportStl => Cmd::ExportStl(p),
-                    });
-                }
+            && let Ok(res) = rx.try_recv()
+        {
+            let what = *what;
+            self.dialog = None;
+            if let Some(p) = res {
+                self.apply(match what {
+                    Pending::Open => Cmd::Open(p),
+                    Pending::ImportLandmarks => Cmd::ImportLandmarks(p),
+                    Pending::ExportLandmarks => Cmd::ExportLandmarks(p),
+                    Pending::SaveAs => Cmd::SaveAs(p),
+                    Pending::ExportTable => Cmd::ExportTable(p),
+                    Pending::ExportStl => Cmd::ExportStl(p),
+                });
             }
+        }
     }
 
     fn loaded(&mut self, l: Loaded) {
@@ -420,7 +424,9 @@ impl DuctApp {
             }
             Cmd::ExportTable(p) => export_table(doc, &p),
             Cmd::ExportStl(dir) => match &doc.outcome {
-                Some(out) => ductline::export::write_stl(out, &dir).map(|w| format!("wrote {} surfaces into {}", w.len(), dir.display())).map_err(|e| e.to_string()),
+                Some(out) => {
+                    ductline::export::write_stl(out, &dir).map(|w| format!("wrote {} surfaces into {}", w.len(), dir.display())).map_err(|e| e.to_string())
+                }
                 None => Err("measure first".into()),
             },
             Cmd::Measure => {
@@ -428,7 +434,8 @@ impl DuctApp {
                 match gw {
                     Ok(gw) => {
                         let (st, items, fit, ms, ov) = (doc.stack.clone(), doc.lms.items.clone(), doc.fit.clone(), doc.measure.clone(), doc.overrides.clone());
-                        self.run = Some(Job::spawn("measuring", move |p| ductline::pipeline::run(&st, &items, &fit, &ms, &ov, &gw, p).map_err(|e| e.to_string())));
+                        self.run =
+                            Some(Job::spawn("measuring", move |p| ductline::pipeline::run(&st, &items, &fit, &ms, &ov, &gw, p).map_err(|e| e.to_string())));
                         Ok("measuring…".into())
                     }
                     Err(e) => Err(e),
@@ -451,14 +458,16 @@ impl DuctApp {
                 doc.dirty = true;
                 Ok("section override cleared".into())
             }
-            Cmd::SetVoxel(v) => VoxelSize::from_user_um(&v).map(|v| {
-                let d = v.describe();
-                doc.set_voxel(v);
-                if let Some(view) = &mut self.view {
-                    *view = tracing::View::new(&doc.stack);
-                }
-                format!("voxel size set to {d}")
-            }).map_err(|e| e.to_string()),
+            Cmd::SetVoxel(v) => VoxelSize::from_user_um(&v)
+                .map(|v| {
+                    let d = v.describe();
+                    doc.set_voxel(v);
+                    if let Some(view) = &mut self.view {
+                        *view = tracing::View::new(&doc.stack);
+                    }
+                    format!("voxel size set to {d}")
+                })
+                .map_err(|e| e.to_string()),
             _ => Ok(String::new()),
         };
         match result {
@@ -500,15 +509,17 @@ impl DuctApp {
             }
             for (k, kind) in [Key::Num1, Key::Num2, Key::Num3, Key::Num4, Key::Num5].into_iter().zip(Kind::ALL) {
                 if i.consume_key(Modifiers::NONE, k)
-                    && let Some(v) = &mut self.view {
-                        v.active = kind;
-                    }
+                    && let Some(v) = &mut self.view
+                {
+                    v.active = kind;
+                }
             }
             if (i.consume_key(Modifiers::NONE, Key::Delete) || i.consume_key(Modifiers::NONE, Key::Backspace))
                 && let Some(v) = &mut self.view
-                    && let Some(idx) = v.selected.take() {
-                        cmds.push(Cmd::Edit(Edit::Delete { index: idx }));
-                    }
+                && let Some(idx) = v.selected.take()
+            {
+                cmds.push(Cmd::Edit(Edit::Delete { index: idx }));
+            }
         });
         cmds
     }
@@ -639,12 +650,15 @@ impl DuctApp {
             ui.horizontal(|ui| {
                 ui.label("binning");
                 for b in [1usize, 2, 4] {
-                    ui.radio_value(&mut bin, b, if b == 1 { "none".to_string() } else { format!("{b}×{b}×{b}") }).on_hover_text("Average blocks of voxels while loading");
+                    ui.radio_value(&mut bin, b, if b == 1 { "none".to_string() } else { format!("{b}×{b}×{b}") })
+                        .on_hover_text("Average blocks of voxels while loading");
                 }
             });
             ui.horizontal(|ui| {
                 let l = ui.label("crop");
-                ui.add(egui::TextEdit::singleline(&mut crop).hint_text("I0:I1,J0:J1,K0:K1 (empty = whole)").desired_width(220.0)).labelled_by(l.id).on_hover_text("Voxel index ranges of the whole stack, end excluded");
+                ui.add(egui::TextEdit::singleline(&mut crop).hint_text("I0:I1,J0:J1,K0:K1 (empty = whole)").desired_width(220.0))
+                    .labelled_by(l.id)
+                    .on_hover_text("Voxel index ranges of the whole stack, end excluded");
             });
             if let Some(p) = &reopen {
                 if ui.button("Open again with these").on_hover_text("Reload the current stack or project with these options").clicked() {
@@ -678,7 +692,12 @@ impl DuctApp {
         let mut cmds = self.input(&ctx);
         egui::Panel::top("menu").show(ui, |ui| cmds.extend(self.menu_ui(ui)));
         egui::Panel::bottom("status").show(ui, |ui| self.status_ui(ui));
-        let running = self.run.as_ref().or(None).map(|j| (j.label.clone(), j.progress.fraction())).or_else(|| self.load.as_ref().map(|j| (j.label.clone(), j.progress.fraction())));
+        let running = self
+            .run
+            .as_ref()
+            .or(None)
+            .map(|j| (j.label.clone(), j.progress.fraction()))
+            .or_else(|| self.load.as_ref().map(|j| (j.label.clone(), j.progress.fraction())));
         if let (Some(doc), Some(view)) = (self.doc.as_mut(), self.view.as_mut()) {
             egui::Panel::left("specimen").default_size(300.0).resizable(true).show(ui, |ui| cmds.extend(self.side.side_ui(ui, doc, view, running.clone())));
             egui::Panel::right("plan-and-section").default_size(340.0).resizable(true).show(ui, |ui| {
@@ -718,11 +737,10 @@ impl DuctApp {
         for c in cmds {
             let edits = matches!(c, Cmd::Edit(_) | Cmd::Undo | Cmd::Redo | Cmd::Refit | Cmd::ImportLandmarks(_));
             self.apply(c);
-            if edits
-                && let Some(d) = &mut self.doc {
-                    d.refit();
-                    d.dirty = true;
-                }
+            if edits && let Some(d) = &mut self.doc {
+                d.refit();
+                d.dirty = true;
+            }
         }
         if ctx.input(|i| i.viewport().close_requested()) {
             self.autosave(true);

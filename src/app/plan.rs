@@ -18,11 +18,18 @@ pub fn plan_ui(ui: &mut egui::Ui, doc: &Doc, angle_deg: f64) -> Vec<Cmd> {
         Err(_) => ductline::landmarks::frame_from(&doc.lms.items).ok(),
     };
     let Some(frame) = frame else {
-        painter.text(rect.center(), Align2::CENTER_CENTER, "place axis_base, axis_apex and window\nto see the plan map", FontId::proportional(12.0), Color32::GRAY);
+        painter.text(
+            rect.center(),
+            Align2::CENTER_CENTER,
+            "place axis_base, axis_apex and window\nto see the plan map",
+            FontId::proportional(12.0),
+            Color32::GRAY,
+        );
         return cmds;
     };
     // scale: the largest radius of any partition landmark
-    let polar: Vec<(Kind, [f64; 3])> = doc.lms.items.iter().filter(|l| matches!(l.kind, Kind::Lamina | Kind::Ligament | Kind::Window)).map(|l| (l.kind, frame.to_cochlear(l.p))).collect();
+    let polar: Vec<(Kind, [f64; 3])> =
+        doc.lms.items.iter().filter(|l| matches!(l.kind, Kind::Lamina | Kind::Ligament | Kind::Window)).map(|l| (l.kind, frame.to_cochlear(l.p))).collect();
     let rmax = polar.iter().map(|p| p.1[0]).fold(1.0, f64::max) * 1.12;
     let c = rect.center();
     let k = (0.5 * rect.width().min(rect.height()) - 14.0) as f64 / rmax;
@@ -64,10 +71,11 @@ pub fn plan_ui(ui: &mut egui::Ui, doc: &Doc, angle_deg: f64) -> Vec<Cmd> {
     }
     painter.line_segment([at(0.0, angle_deg), at(rmax, angle_deg)], Stroke::new(2.0, palette::CUT));
     if resp.clicked()
-        && let Some(p) = resp.interact_pointer_pos() {
-            let a = (-(p.y - c.y) as f64).atan2((p.x - c.x) as f64).to_degrees();
-            cmds.push(Cmd::GoToAngle(a));
-        }
+        && let Some(p) = resp.interact_pointer_pos()
+    {
+        let a = (-(p.y - c.y) as f64).atan2((p.x - c.x) as f64).to_degrees();
+        cmds.push(Cmd::GoToAngle(a));
+    }
     resp.on_hover_text("Seen along the modiolar axis from the apex. Click an angle to show the radial cut there.");
     cmds
 }

@@ -79,7 +79,6 @@ pub fn profile_ui(ui: &mut egui::Ui, st: &mut ProfileState, rows: &[Row], select
                     Some(y) => seg.push([x_of(r, x), y]),
                     None if !seg.is_empty() => {
                         pui.line(Line::new(*name, PlotPoints::from(std::mem::take(&mut seg))).color(palette::SERIES[k]));
-
                     }
                     None => {}
                 }
@@ -98,11 +97,12 @@ pub fn profile_ui(ui: &mut egui::Ui, st: &mut ProfileState, rows: &[Row], select
         pui.pointer_coordinate()
     });
     if resp.response.clicked()
-        && let Some(p) = resp.inner {
-            let best = rows.iter().enumerate().min_by(|a, b| (x_of(a.1, x) - p.x).abs().total_cmp(&(x_of(b.1, x) - p.x).abs())).map(|(i, _)| i);
-            if let Some(i) = best {
-                cmds.push(Cmd::SelectRow(Some(i)));
-            }
+        && let Some(p) = resp.inner
+    {
+        let best = rows.iter().enumerate().min_by(|a, b| (x_of(a.1, x) - p.x).abs().total_cmp(&(x_of(b.1, x) - p.x).abs())).map(|(i, _)| i);
+        if let Some(i) = best {
+            cmds.push(Cmd::SelectRow(Some(i)));
         }
+    }
     cmds
 }

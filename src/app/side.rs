@@ -25,7 +25,8 @@ impl Side {
         egui::ScrollArea::vertical().show(ui, |ui| {
             ui.heading("Specimen");
             let st = &doc.stack;
-            ui.label(doc.stack_path.file_name().map(|n| n.to_string_lossy().to_string()).unwrap_or_default()).on_hover_text(doc.stack_path.display().to_string());
+            ui.label(doc.stack_path.file_name().map(|n| n.to_string_lossy().to_string()).unwrap_or_default())
+                .on_hover_text(doc.stack_path.display().to_string());
             ui.label(format!("{} × {} × {} voxels, {}", st.dims[0], st.dims[1], st.dims[2], st.samples.type_name()));
             let how = if st.samples.is_mapped() { "memory-mapped" } else { "in memory" };
             ui.label(format!("{:.1} MB {how}, values {:.0} … {:.0}", st.bytes() as f64 / 1e6, doc.range.0, doc.range.1));
@@ -40,7 +41,9 @@ impl Side {
                     ui.colored_label(palette::FLAG, "The file gives no voxel size.");
                     ui.horizontal(|ui| {
                         let l = ui.label("voxel (µm)");
-                        ui.add(egui::TextEdit::singleline(&mut self.voxel_text).desired_width(90.0).hint_text("e.g. 20 or 20,20,25")).labelled_by(l.id).on_hover_text("One value for cubic voxels, or X,Y,Z");
+                        ui.add(egui::TextEdit::singleline(&mut self.voxel_text).desired_width(90.0).hint_text("e.g. 20 or 20,20,25"))
+                            .labelled_by(l.id)
+                            .on_hover_text("One value for cubic voxels, or X,Y,Z");
                         if ui.button("Set").on_hover_text("Use this voxel size").clicked() {
                             let vals: Result<Vec<f64>, _> = self.voxel_text.split(',').map(|s| s.trim().parse::<f64>()).collect();
                             cmds.push(match vals {
@@ -60,7 +63,10 @@ impl Side {
                 let l = ui.label("level");
                 let a = ui.add(egui::DragValue::new(&mut level).speed(span / 500.0)).labelled_by(l.id).on_hover_text("Grey value shown as mid grey");
                 let l = ui.label("window");
-                let b = ui.add(egui::DragValue::new(&mut width).speed(span / 500.0).range(1e-6..=f64::MAX)).labelled_by(l.id).on_hover_text("Range of grey values from black to white");
+                let b = ui
+                    .add(egui::DragValue::new(&mut width).speed(span / 500.0).range(1e-6..=f64::MAX))
+                    .labelled_by(l.id)
+                    .on_hover_text("Range of grey values from black to white");
                 if a.changed() || b.changed() {
                     doc.window = [level - 0.5 * width, level + 0.5 * width];
                 }
@@ -82,7 +88,8 @@ impl Side {
             ui.separator();
             ui.strong("Fit");
             let mut auto = doc.fit.smoothing.is_none();
-            if ui.checkbox(&mut auto, "smoothing by cross-validation").on_hover_text("Generalized cross-validation picks the smoothing of each curve").changed() {
+            if ui.checkbox(&mut auto, "smoothing by cross-validation").on_hover_text("Generalized cross-validation picks the smoothing of each curve").changed()
+            {
                 doc.fit.smoothing = if auto { None } else { Some(1e-3) };
                 cmds.push(Cmd::Refit);
             }
@@ -98,7 +105,8 @@ impl Side {
                 Ok(c) => {
                     ui.label(format!("length {:.2} mm, {:.0}° ({:.2} turns)", c.length, c.depth_deg(), c.depth_deg() / 360.0));
                     let e = ductline::cochlea::LengthEstimates::new(c.basal_diameter(), c.depth_deg());
-                    ui.label(format!("basal diameter A {:.2} mm", e.basal_diameter_mm)).on_hover_text("Round window through the axis to the far lateral wall, on the fitted ligament curve");
+                    ui.label(format!("basal diameter A {:.2} mm", e.basal_diameter_mm))
+                        .on_hover_text("Round window through the axis to the far lateral wall, on the fitted ligament curve");
                     ui.label(format!("Escudé 2006: {:.1} mm · Alexiades 2015: {:.1} / {:.1} mm", e.escude_lw_mm, e.alexiades_oc_mm, e.alexiades_lw_mm))
                         .on_hover_text("Published length estimates from A, for comparison with the traced length");
                     let n = c.flagged().len();
@@ -115,7 +123,12 @@ impl Side {
             ui.strong("Measure");
             ui.horizontal(|ui| {
                 let l = ui.label("step");
-                if ui.add(egui::DragValue::new(&mut doc.measure.step_mm).speed(0.01).range(0.01..=2.0).suffix(" mm")).labelled_by(l.id).on_hover_text("Distance between sections along the centreline").changed() {
+                if ui
+                    .add(egui::DragValue::new(&mut doc.measure.step_mm).speed(0.01).range(0.01..=2.0).suffix(" mm"))
+                    .labelled_by(l.id)
+                    .on_hover_text("Distance between sections along the centreline")
+                    .changed()
+                {
                     doc.stale = true;
                     doc.dirty = true;
                 }
@@ -137,7 +150,11 @@ impl Side {
                 }
                 None => {
                     let ok = doc.fitted.is_ok() && doc.stack.voxel.is_some();
-                    if ui.add_enabled(ok, egui::Button::new("Fit & measure")).on_hover_text("Measure every section along the fitted centreline (in the background)").clicked() {
+                    if ui
+                        .add_enabled(ok, egui::Button::new("Fit & measure"))
+                        .on_hover_text("Measure every section along the fitted centreline (in the background)")
+                        .clicked()
+                    {
                         cmds.push(Cmd::Measure);
                     }
                     if doc.outcome.is_some() && doc.stale {
@@ -157,7 +174,8 @@ impl Side {
             ui.checkbox(&mut self.sort_by_angle, "by angle").on_hover_text("Sort the list by angle along the spiral (else by order placed)");
         });
         let frame = doc.fitted.as_ref().ok().map(|c| c.frame.clone());
-        let mut order: Vec<(usize, Option<[f64; 3]>)> = doc.lms.items.iter().enumerate().map(|(i, l)| (i, frame.as_ref().map(|f| f.to_cochlear(l.p)))).collect();
+        let mut order: Vec<(usize, Option<[f64; 3]>)> =
+            doc.lms.items.iter().enumerate().map(|(i, l)| (i, frame.as_ref().map(|f| f.to_cochlear(l.p)))).collect();
         let theta: std::collections::HashMap<usize, f64> = match &doc.fitted {
             Ok(c) => c.lamina.residuals.iter().chain(&c.ligament.residuals).map(|r| (r.0, r.1.to_degrees())).collect(),
             Err(_) => Default::default(),

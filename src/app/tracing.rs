@@ -159,7 +159,13 @@ impl View {
                 let a1 = frac(rect.max.x, img_rect.min.x, img_rect.width(), map.nu).ceil() as usize;
                 let b0 = frac(rect.min.y, img_rect.min.y, img_rect.height(), map.nv).floor() as usize;
                 let b1 = frac(rect.max.y, img_rect.min.y, img_rect.height(), map.nv).ceil() as usize;
-                let sub = PlaneMap { origin: map.point(a0 as f64, b0 as f64), du: map.du, dv: map.dv, nu: a1.saturating_sub(a0).max(1), nv: b1.saturating_sub(b0).max(1) };
+                let sub = PlaneMap {
+                    origin: map.point(a0 as f64, b0 as f64),
+                    du: map.du,
+                    dv: map.dv,
+                    nu: a1.saturating_sub(a0).max(1),
+                    nv: b1.saturating_sub(b0).max(1),
+                };
                 (doc.stack.clone(), sub)
             }
         };
@@ -177,7 +183,9 @@ impl View {
                     self.cache = Some((key.clone(), m, vals));
                     None
                 }
-                Plane::Radial => Some(section::resample(&src, &Grid { origin: src_map.origin, du: src_map.du, dv: src_map.dv, nu: src_map.nu, nv: src_map.nv })),
+                Plane::Radial => {
+                    Some(section::resample(&src, &Grid { origin: src_map.origin, du: src_map.du, dv: src_map.dv, nu: src_map.nu, nv: src_map.nv }))
+                }
             };
             if let Some(vals) = vals {
                 self.cache = Some((key.clone(), src_map.clone(), vals));
@@ -196,11 +204,26 @@ impl View {
             // the sampled grid's outer edges, placed in the full plane's pixel numbering
             let (a0, b0, _) = map.project(m.point(-0.5, -0.5));
             let (a1, b1, _) = map.project(m.point(m.nu as f64 - 0.5, m.nv as f64 - 0.5));
-            let at = |a: f64, b: f64| pos2(img_rect.min.x + ((a + 0.5) / map.nu as f64) as f32 * img_rect.width(), img_rect.min.y + ((b + 0.5) / map.nv as f64) as f32 * img_rect.height());
+            let at = |a: f64, b: f64| {
+                pos2(
+                    img_rect.min.x + ((a + 0.5) / map.nu as f64) as f32 * img_rect.width(),
+                    img_rect.min.y + ((b + 0.5) / map.nv as f64) as f32 * img_rect.height(),
+                )
+            };
             painter.image(tex.id(), Rect::from_two_pos(at(a0, b0), at(a1, b1)), Rect::from_min_max(pos2(0.0, 0.0), pos2(1.0, 1.0)), Color32::WHITE);
         }
-        let to_screen = |a: f64, b: f64| pos2(img_rect.min.x + ((a + 0.5) / map.nu as f64) as f32 * img_rect.width(), img_rect.min.y + ((b + 0.5) / map.nv as f64) as f32 * img_rect.height());
-        let to_stack = |p: Pos2| map.point(((p.x - img_rect.min.x) / img_rect.width()) as f64 * map.nu as f64 - 0.5, ((p.y - img_rect.min.y) / img_rect.height()) as f64 * map.nv as f64 - 0.5);
+        let to_screen = |a: f64, b: f64| {
+            pos2(
+                img_rect.min.x + ((a + 0.5) / map.nu as f64) as f32 * img_rect.width(),
+                img_rect.min.y + ((b + 0.5) / map.nv as f64) as f32 * img_rect.height(),
+            )
+        };
+        let to_stack = |p: Pos2| {
+            map.point(
+                ((p.x - img_rect.min.x) / img_rect.width()) as f64 * map.nu as f64 - 0.5,
+                ((p.y - img_rect.min.y) / img_rect.height()) as f64 * map.nv as f64 - 0.5,
+            )
+        };
         let vmax = doc.stack.voxel.as_ref().map(|v| v.max()).unwrap_or(1.0);
         // fitted curves where they meet the plane
         if let Ok(cl) = &doc.fitted {
@@ -239,7 +262,8 @@ impl View {
             mark(&painter, s, lm.kind, fade, self.selected == Some(i), flagged.contains(&i));
         }
         // interaction
-        let nearest = |pos: Pos2| screen_lms.iter().filter(|(_, s)| s.distance(pos) < 9.0).min_by(|a, b| a.1.distance(pos).total_cmp(&b.1.distance(pos))).map(|x| x.0);
+        let nearest =
+            |pos: Pos2| screen_lms.iter().filter(|(_, s)| s.distance(pos) < 9.0).min_by(|a, b| a.1.distance(pos).total_cmp(&b.1.distance(pos))).map(|x| x.0);
         if let Some(pos) = resp.hover_pos() {
             let p = to_stack(pos);
             let value = doc.stack.sample_mm(p);
@@ -249,10 +273,11 @@ impl View {
             self.hover = None;
         }
         if resp.drag_started_by(egui::PointerButton::Primary)
-            && let Some(i) = resp.interact_pointer_pos().and_then(nearest) {
-                self.selected = Some(i);
-                self.drag = Some((i, doc.lms.items[i].p));
-            }
+            && let Some(i) = resp.interact_pointer_pos().and_then(nearest)
+        {
+            self.selected = Some(i);
+            self.drag = Some((i, doc.lms.items[i].p));
+        }
         if resp.dragged() {
             match &mut self.drag {
                 Some((_, to)) => {
@@ -264,26 +289,29 @@ impl View {
             }
         }
         if resp.drag_stopped()
-            && let Some((i, to)) = self.drag.take() {
-                cmds.push(Cmd::Edit(Edit::Move { index: i, to }));
-            }
+            && let Some((i, to)) = self.drag.take()
+        {
+            cmds.push(Cmd::Edit(Edit::Move { index: i, to }));
+        }
         if resp.clicked()
-            && let Some(pos) = resp.interact_pointer_pos() {
-                match nearest(pos) {
-                    Some(i) => self.selected = Some(i),
-                    None => {
-                        let p = to_stack(pos);
-                        if doc.stack.contains_mm(p) {
-                            cmds.push(Cmd::Edit(Edit::Insert { index: doc.lms.items.len(), lm: Landmark { kind: self.active, p } }));
-                        }
+            && let Some(pos) = resp.interact_pointer_pos()
+        {
+            match nearest(pos) {
+                Some(i) => self.selected = Some(i),
+                None => {
+                    let p = to_stack(pos);
+                    if doc.stack.contains_mm(p) {
+                        cmds.push(Cmd::Edit(Edit::Insert { index: doc.lms.items.len(), lm: Landmark { kind: self.active, p } }));
                     }
                 }
             }
+        }
         if resp.secondary_clicked()
-            && let Some(i) = resp.interact_pointer_pos().and_then(nearest) {
-                cmds.push(Cmd::Edit(Edit::Delete { index: i }));
-                self.selected = None;
-            }
+            && let Some(i) = resp.interact_pointer_pos().and_then(nearest)
+        {
+            cmds.push(Cmd::Edit(Edit::Delete { index: i }));
+            self.selected = None;
+        }
         if resp.hovered() {
             let (scroll, zoom) = ui.input(|i| (i.smooth_scroll_delta.y, i.zoom_delta()));
             if zoom != 1.0 {
@@ -334,7 +362,9 @@ impl View {
                 }
                 Plane::Radial => {
                     let l = ui.label("angle");
-                    ui.add(egui::DragValue::new(&mut self.angle_deg).speed(1.0).suffix("°")).labelled_by(l.id).on_hover_text("Angle of the radial cut from the round window (wheel steps 2°)");
+                    ui.add(egui::DragValue::new(&mut self.angle_deg).speed(1.0).suffix("°"))
+                        .labelled_by(l.id)
+                        .on_hover_text("Angle of the radial cut from the round window (wheel steps 2°)");
                 }
             }
             if ui.button("Fit view").on_hover_text("Reset zoom and pan").clicked() {

@@ -52,10 +52,8 @@ fn trim_zeros(d: &[u8]) -> &[u8] {
 /// The slice files of a folder in natural order.
 pub(crate) fn slice_files(dir: &Path) -> Result<Vec<PathBuf>> {
     let rd = std::fs::read_dir(dir).map_err(|e| Error::io(dir, e))?;
-    let mut files: Vec<PathBuf> = rd
-        .filter_map(|e| e.ok().map(|e| e.path()))
-        .filter(|p| p.is_file() && matches!(ext(p).as_str(), "tif" | "tiff" | "png"))
-        .collect();
+    let mut files: Vec<PathBuf> =
+        rd.filter_map(|e| e.ok().map(|e| e.path())).filter(|p| p.is_file() && matches!(ext(p).as_str(), "tif" | "tiff" | "png")).collect();
     if files.is_empty() {
         return Err(Error::format(dir, "folder holds no TIFF or PNG slices"));
     }

@@ -265,9 +265,7 @@ impl Stack {
 
     /// The voxel size, or a clear error when none is known.
     pub fn voxel(&self) -> Result<&VoxelSize> {
-        self.voxel.as_ref().ok_or_else(|| {
-            Error::format(&self.path, "no voxel size in the file; give it with --voxel-um X[,Y,Z]")
-        })
+        self.voxel.as_ref().ok_or_else(|| Error::format(&self.path, "no voxel size in the file; give it with --voxel-um X[,Y,Z]"))
     }
 
     /// Stack-frame position (mm) of voxel (0, 0, 0)'s centre: zero unless cropped or binned.
@@ -347,11 +345,7 @@ pub fn load_with_progress(path: &Path, opts: &LoadOptions, progress: &crate::pro
         return Err(Error::invalid(format!("binning must be 1, 2 or 4, got {}", opts.bin)));
     }
     let meta = std::fs::metadata(path).map_err(|e| Error::io(path, e))?;
-    let mut stack = if meta.is_dir() {
-        folder::load(path, opts, progress)?
-    } else {
-        tiff::load(path, opts, progress)?
-    };
+    let mut stack = if meta.is_dir() { folder::load(path, opts, progress)? } else { tiff::load(path, opts, progress)? };
     if let Some(v) = &opts.voxel {
         stack.voxel = Some(v.clone());
     }
@@ -383,16 +377,17 @@ pub(crate) fn check_memory(path: &Path, bytes: u64, max_bytes: Option<u64>) -> R
         (m, a) => m.or(a),
     };
     if let Some(cap) = cap
-        && bytes > cap {
-            return Err(Error::format(
-                path,
-                format!(
-                    "decoded stack needs {:.2} GB but only {:.2} GB may be used; load it binned 2×2×2 (--bin 2) or crop it",
-                    bytes as f64 / 1e9,
-                    cap as f64 / 1e9
-                ),
-            ));
-        }
+        && bytes > cap
+    {
+        return Err(Error::format(
+            path,
+            format!(
+                "decoded stack needs {:.2} GB but only {:.2} GB may be used; load it binned 2×2×2 (--bin 2) or crop it",
+                bytes as f64 / 1e9,
+                cap as f64 / 1e9
+            ),
+        ));
+    }
     Ok(())
 }
 
@@ -454,7 +449,10 @@ pub(crate) fn crop_box(path: &Path, crop: Option<[[usize; 2]; 3]>, dims: [usize;
     let c = crop.unwrap_or(dims.map(|n| [0, n]));
     for a in 0..3 {
         if c[a][0] >= c[a][1] || c[a][1] > dims[a] {
-            return Err(Error::format(path, format!("crop {}..{} on axis {} does not fit the stack's {} voxels", c[a][0], c[a][1], ["i", "j", "k"][a], dims[a])));
+            return Err(Error::format(
+                path,
+                format!("crop {}..{} on axis {} does not fit the stack's {} voxels", c[a][0], c[a][1], ["i", "j", "k"][a], dims[a]),
+            ));
         }
     }
     Ok(c)

@@ -21,7 +21,10 @@ pub(crate) enum Kind {
     Gray16,
     GrayF32,
     /// RGB or RGBA with this many channels and bits.
-    Rgb { channels: usize, bits: u8 },
+    Rgb {
+        channels: usize,
+        bits: u8,
+    },
 }
 
 impl Kind {
@@ -48,9 +51,7 @@ fn open(path: &Path) -> Result<Dec> {
     let f = File::open(path).map_err(|e| Error::io(path, e))?;
     let mut limits = Limits::default();
     limits.decoding_buffer_size = 1 << 32;
-    Decoder::new(BufReader::with_capacity(1 << 16, f))
-        .map(|d| d.with_limits(limits))
-        .map_err(|e| Error::format(path, format!("not a readable TIFF: {e}")))
+    Decoder::new(BufReader::with_capacity(1 << 16, f)).map(|d| d.with_limits(limits)).map_err(|e| Error::format(path, format!("not a readable TIFF: {e}")))
 }
 
 fn page_kind(path: &Path, page: usize, dec: &mut Dec) -> Result<(usize, usize, Kind)> {
@@ -65,8 +66,17 @@ fn page_kind(path: &Path, page: usize, dec: &mut Dec) -> Result<(usize, usize, K
         (ColorType::RGB(b @ (8 | 16)), 1) => Kind::Rgb { channels: 3, bits: b },
         (ColorType::RGBA(b @ (8 | 16)), 1) => Kind::Rgb { channels: 4, bits: b },
         (ct, fmt) => {
-            let f = match fmt { 1 => "unsigned", 2 => "signed", 3 => "float", _ => "unknown" };
-            return Err(Error::page(path, page, format!("unsupported sample format {ct:?} ({f}); ductline reads 8/16-bit unsigned and 32-bit float grey, or RGB(A)")));
+            let f = match fmt {
+                1 => "unsigned",
+                2 => "signed",
+                3 => "float",
+                _ => "unknown",
+            };
+            return Err(Error::page(
+                path,
+                page,
+                format!("unsupported sample format {ct:?} ({f}); ductline reads 8/16-bit unsigned and 32-bit float grey, or RGB(A)"),
+            ));
         }
     };
     if w == 0 || h == 0 {
@@ -155,9 +165,10 @@ pub(super) fn load(path: &Path, opts: &LoadOptions, progress: &Progress) -> Resu
         warnings.push(format!("{}: colour pages turned into grey (BT.601 luma)", path.display()));
     }
     if let Some(v) = &voxel
-        && v.source[2] == VoxelSource::AssumedIsotropic {
-            warnings.push(format!("{}: the file gives no slice spacing; assumed equal to the pixel width", path.display()));
-        }
+        && v.source[2] == VoxelSource::AssumedIsotropic
+    {
+        warnings.push(format!("{}: the file gives no slice spacing; assumed equal to the pixel width", path.display()));
+    }
     let whole = b == 1 && opts.crop.is_none();
     if opts.map && whole {
         let mapped = match kind {
@@ -187,7 +198,15 @@ pub(super) fn load(path: &Path, opts: &LoadOptions, progress: &Progress) -> Resu
 /// Decodes pages into one buffer, page groups in parallel (each group with its own file handle).
 /// Each output slice comes from `bin` pages, cropped to `crop` and averaged b×b×b.
 #[allow(clippy::too_many_arguments)]
-fn decode<T: Sample>(path: &Path, [nx, ny]: [usize; 2], kind: Kind, bin: usize, crop: [[usize; 2]; 3], conv: fn(f32) -> T, progress: &Progress) -> Result<Vec<T>> {
+fn decode<T: Sample>(
+    path: &Path,
+    [nx, ny]: [usize; 2],
+    kind: Kind,
+    bin: usize,
+    crop: [[usize; 2]; 3],
+    conv: fn(f32) -> T,
+    progress: &Progress,
+) -> Result<Vec<T>> {
     let size = crop.map(|r| r[1] - r[0]);
     let out_slice = (size[0] / bin) * (size[1] / bin);
     let out_nz = size[2].div_ceil(bin);

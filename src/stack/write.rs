@@ -64,7 +64,13 @@ fn pages<W: Write + Seek, K: TiffKind>(stack: &Stack, enc: &mut TiffEncoder<W, K
     Ok(())
 }
 
-fn page<W: Write + Seek, K: TiffKind, C: colortype::ColorType>(enc: &mut TiffEncoder<W, K>, nx: usize, ny: usize, data: &[C::Inner], desc: Option<&str>) -> tiff::TiffResult<()>
+fn page<W: Write + Seek, K: TiffKind, C: colortype::ColorType>(
+    enc: &mut TiffEncoder<W, K>,
+    nx: usize,
+    ny: usize,
+    data: &[C::Inner],
+    desc: Option<&str>,
+) -> tiff::TiffResult<()>
 where
     [C::Inner]: tiff::encoder::TiffValue,
 {
