@@ -277,10 +277,16 @@ pub fn measure(a: MeasureArgs) -> Result<()> {
         eprintln!("warning: {w}");
     }
     st.voxel()?;
-    // the landmarks must lie inside the stack
-    let lm_text = landmarks::to_csv(&prj.landmarks);
+    // the landmarks must lie inside the stack: a CSV names the line, a project the landmark
     let src = a.landmarks.clone().or(a.project.clone()).unwrap_or_default();
-    landmarks::parse_csv(&lm_text, &src, Some(&st))?;
+    match &a.landmarks {
+        Some(l) => drop(landmarks::read_csv(l, Some(&st))?),
+        None => {
+            if let Some((i, l)) = landmarks::first_outside(&prj.landmarks, &st) {
+                bail!("{}: landmark #{} ({}) at ({:.3}, {:.3}, {:.3}) mm lies outside the stack", src.display(), i + 1, l.kind.as_str(), l.p[0], l.p[1], l.p[2]);
+            }
+        }
+    }
     let out = with_progress("measuring", |p| pipeline::run(&st, &prj.landmarks, &prj.fit, &prj.measure, &prj.overrides, &gw, p))
         .map_err(|e| anyhow::anyhow!("{}: {e}", src.display()))?;
     project::write_atomic(&a.out, export::table_csv(&out.rows).as_bytes())?;

@@ -85,6 +85,11 @@ pub fn parse_csv(text: &str, path: &Path, stack: Option<&Stack>) -> Result<Vec<L
     Ok(out)
 }
 
+/// The first landmark (index, landmark) lying outside the stack, if any.
+pub fn first_outside(items: &[Landmark], stack: &Stack) -> Option<(usize, Landmark)> {
+    items.iter().enumerate().find(|(_, l)| !stack.contains_mm(l.p)).map(|(i, l)| (i, *l))
+}
+
 /// Reads a landmark CSV file.
 pub fn read_csv(path: &Path, stack: Option<&Stack>) -> Result<Vec<Landmark>> {
     let bytes = std::fs::read(path).map_err(|e| Error::io(path, e))?;

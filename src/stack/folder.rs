@@ -105,22 +105,7 @@ fn png_reader(p: &Path) -> Result<png::Reader<std::io::BufReader<std::fs::File>>
 pub(super) fn header(dir: &Path) -> Result<super::Header> {
     let files = slice_files(dir)?;
     let (nx, ny, kind, voxel) = check_all(&files)?;
-    Ok(super::Header { dims: [nx, ny, files.len()], sample: kind_name(kind), bytes_per_sample: kind_bytes(kind), voxel })
-}
-
-fn kind_name(k: Kind) -> &'static str {
-    match k {
-        Kind::Gray8 | Kind::Rgb { bits: 8, .. } => "uint8",
-        Kind::Gray16 | Kind::Rgb { .. } => "uint16",
-        Kind::GrayF32 => "float32",
-    }
-}
-fn kind_bytes(k: Kind) -> usize {
-    match kind_name(k) {
-        "uint8" => 1,
-        "uint16" => 2,
-        _ => 4,
-    }
+    Ok(super::Header { dims: [nx, ny, files.len()], sample: kind.name(), bytes_per_sample: kind.bytes(), voxel })
 }
 
 fn check_all(files: &[PathBuf]) -> Result<(usize, usize, Kind, Option<VoxelSize>)> {
@@ -131,8 +116,8 @@ fn check_all(files: &[PathBuf]) -> Result<(usize, usize, Kind, Option<VoxelSize>
         if (w, hgt) != (first.0, first.1) {
             return Err(Error::format(f, format!("slice size {w}×{hgt} differs from the first slice's {}×{}", first.0, first.1)));
         }
-        if kind_name(k) != kind_name(first.2) {
-            return Err(Error::format(f, format!("sample type {} differs from the first slice's {}", kind_name(k), kind_name(first.2))));
+        if k.name() != first.2.name() {
+            return Err(Error::format(f, format!("sample type {} differs from the first slice's {}", k.name(), first.2.name())));
         }
     }
     Ok(first)
@@ -148,11 +133,11 @@ pub(super) fn load(dir: &Path, opts: &LoadOptions, progress: &Progress) -> Resul
     if dims.contains(&0) {
         return Err(Error::format(dir, "stack too small to bin"));
     }
-    super::check_memory(dir, (dims.iter().product::<usize>() * kind_bytes(kind)) as u64, opts.max_bytes)?;
+    super::check_memory(dir, (dims.iter().product::<usize>() * kind.bytes()) as u64, opts.max_bytes)?;
     let files = &files[crop[2][0]..crop[2][1]];
     progress.start(files.len() as u64);
     let xy = [crop[0], crop[1]];
-    let samples = match kind_name(kind) {
+    let samples = match kind.name() {
         "uint8" => Samples::U8(decode(files, nx, ny, xy, b, super::to_u8, progress)?.into()),
         "uint16" => Samples::U16(decode(files, nx, ny, xy, b, super::to_u16, progress)?.into()),
         _ => Samples::F32(decode(files, nx, ny, xy, b, super::to_f32, progress)?.into()),
@@ -187,9 +172,9 @@ fn decode<T: Sample>(files: &[PathBuf], nx: usize, ny: usize, crop: [[usize; 2];
 
 fn read_slice<T: Sample>(p: &Path, out: &mut [T], conv: fn(f32) -> T) -> Result<()> {
     if ext(p) != "png" {
-        let mut dec = super::tiff::open_page(p)?;
-        let (_, _, kind) = super::tiff::page_kind_pub(p, &mut dec)?;
-        return super::tiff::read_page_pub(p, &mut dec, kind, out, conv);
+        let mut dec = super::tiff::open(p)?;
+        let (_, _, kind) = super::tiff::page_kind(p, 0, &mut dec)?;
+        return super::tiff::read_page(p, 0, &mut dec, kind, out, conv);
     }
     let mut r = png_reader(p)?;
     let size = r.output_buffer_size().ok_or_else(|| Error::format(p, "PNG too large"))?;

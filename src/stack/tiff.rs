@@ -28,7 +28,8 @@ pub(crate) enum Kind {
 }
 
 impl Kind {
-    fn name(self) -> &'static str {
+    /// The sample type held in memory (colour becomes grey of the same depth).
+    pub(crate) fn name(self) -> &'static str {
         match self {
             Kind::Gray8 => "uint8",
             Kind::Gray16 => "uint16",
@@ -37,7 +38,8 @@ impl Kind {
             Kind::Rgb { .. } => "uint16",
         }
     }
-    fn bytes(self) -> usize {
+    /// Bytes per sample held in memory.
+    pub(crate) fn bytes(self) -> usize {
         match self {
             Kind::Gray8 => 1,
             Kind::Gray16 => 2,
@@ -47,14 +49,14 @@ impl Kind {
     }
 }
 
-fn open(path: &Path) -> Result<Dec> {
+pub(crate) fn open(path: &Path) -> Result<Dec> {
     let f = File::open(path).map_err(|e| Error::io(path, e))?;
     let mut limits = Limits::default();
     limits.decoding_buffer_size = 1 << 32;
     Decoder::new(BufReader::with_capacity(1 << 16, f)).map(|d| d.with_limits(limits)).map_err(|e| Error::format(path, format!("not a readable TIFF: {e}")))
 }
 
-fn page_kind(path: &Path, page: usize, dec: &mut Dec) -> Result<(usize, usize, Kind)> {
+pub(crate) fn page_kind(path: &Path, page: usize, dec: &mut Dec) -> Result<(usize, usize, Kind)> {
     let perr = |e: tiff::TiffError| Error::page(path, page, e.to_string());
     let (w, h) = dec.dimensions().map_err(perr)?;
     let ct = dec.colortype().map_err(perr)?;
@@ -273,7 +275,7 @@ fn raw_run(dec: &mut Dec, len: usize) -> Option<u64> {
     contiguous.then_some(offs[0])
 }
 
-fn read_page<T: Sample>(path: &Path, page: usize, dec: &mut Dec, kind: Kind, out: &mut [T], conv: fn(f32) -> T) -> Result<()> {
+pub(crate) fn read_page<T: Sample>(path: &Path, page: usize, dec: &mut Dec, kind: Kind, out: &mut [T], conv: fn(f32) -> T) -> Result<()> {
     let perr = |e: tiff::TiffError| Error::page(path, page, format!("cannot decode (truncated or corrupt?): {e}"));
     // uncompressed pages: one positioned read straight into the buffer
     #[cfg(unix)]
@@ -383,15 +385,4 @@ pub(crate) fn unit_to_mm(unit: &str) -> Option<f64> {
         "m" => Some(1000.0),
         _ => None,
     }
-}
-
-/// Opens a single-page TIFF slice for [`super::folder`].
-pub(crate) fn open_page(path: &Path) -> Result<Dec> {
-    open(path)
-}
-pub(crate) fn page_kind_pub(path: &Path, dec: &mut Dec) -> Result<(usize, usize, Kind)> {
-    page_kind(path, 0, dec)
-}
-pub(crate) fn read_page_pub<T: Sample>(path: &Path, dec: &mut Dec, kind: Kind, out: &mut [T], conv: fn(f32) -> T) -> Result<()> {
-    read_page(path, 0, dec, kind, out, conv)
 }
