@@ -255,8 +255,10 @@ fn section_row(stack: &Stack, cl: &Centreline, g: &SectionGeom, s: &MeasureSetti
     let mid = [0.5 * (lam[0] + lig[0]), 0.5 * (lam[1] + lig[1])];
     let mut half = (1.5 * g.width()).max(10.0 * vmax).min(s.capture_mm);
     let levels_given = ov.and_then(|o| o.levels).or(s.levels);
+    let mut last = None;
     loop {
-        let img = sample_section(stack, g, &line, half, pitch);
+        let prev = last.take();
+        let img = last.insert(sample_section(stack, g, &line, half, pitch, prev));
         let levels = match levels_given {
             Some(l) => Some(l),
             None => find_levels(&img, (1.5 * vmax / pitch).ceil() as usize),
@@ -329,12 +331,33 @@ fn section_row(stack: &Stack, cl: &Centreline, g: &SectionGeom, s: &MeasureSetti
     }
 }
 
-fn sample_section(stack: &Stack, g: &SectionGeom, line: &Line, half: f64, pitch: f64) -> Img {
+/// Resamples the section square of half-size `half`; samples an earlier, smaller square `old`
+/// already holds are copied, not resampled (both grids have an even size, so they align).
+fn sample_section(stack: &Stack, g: &SectionGeom, line: &Line, half: f64, pitch: f64, old: Option<Img>) -> Img {
     let grid = section::section_grid(g, half, pitch);
-    let start = -(grid.nu as f64 - 1.0) * 0.5 * pitch;
-    let mut img = Img { v: section::resample(stack, &grid), n: grid.nu, pitch, start, apical: vec![] };
-    img.apical = (0..img.v.len()).map(|i| line.side(img.uv(i)) > 0.0).collect();
-    img
+    let n = grid.nu;
+    let start = -(n as f64 - 1.0) * 0.5 * pitch;
+    let mut v = vec![f32::NAN; n * n];
+    match old.filter(|o| o.n <= n && (n - o.n) % 2 == 0) {
+        Some(o) => {
+            let k = (n - o.n) / 2;
+            for b in 0..o.n {
+                v[(b + k) * n + k..(b + k) * n + k + o.n].copy_from_slice(&o.v[b * o.n..(b + 1) * o.n]);
+                section::resample_part(stack, &grid, b + k..b + k + 1, 0..k, &mut v);
+                section::resample_part(stack, &grid, b + k..b + k + 1, k + o.n..n, &mut v);
+            }
+            section::resample_part(stack, &grid, 0..k, 0..n, &mut v);
+            section::resample_part(stack, &grid, k + o.n..n, 0..n, &mut v);
+        }
+        None => section::resample_part(stack, &grid, 0..n, 0..n, &mut v),
+    }
+    // which side of the partition line each pixel lies on, row by row
+    let mut apical = Vec::with_capacity(n * n);
+    for b in 0..n {
+        let q = start + b as f64 * pitch;
+        apical.extend((0..n).map(|a| line.side([start + a as f64 * pitch, q]) > 0.0));
+    }
+    Img { v, n, pitch, start, apical }
 }
 
 /// Otsu's threshold (Otsu 1979) over finite values: the cut maximizing between-class variance.

@@ -6,6 +6,7 @@ use crate::frame::{v3, v3::V};
 use crate::landmarks::Kind;
 use crate::stack::{Sample, Stack};
 use crate::with_samples;
+use std::ops::Range;
 
 /// Where and how one section lies (all stack-frame mm, unit vectors).
 #[derive(Clone, Debug)]
@@ -141,12 +142,13 @@ pub fn trilinear_idx<T: Sample>(data: &[T], dims: [usize; 3], x: [f64; 3]) -> f3
 /// Resamples the stack on a grid (row-major: index b·nu + a). Needs a voxel size.
 pub fn resample(stack: &Stack, g: &Grid) -> Vec<f32> {
     let mut out = vec![f32::NAN; g.nu * g.nv];
-    resample_into(stack, g, &mut out);
+    resample_part(stack, g, 0..g.nv, 0..g.nu, &mut out);
     out
 }
 
-/// [`resample`] into a caller's buffer of nu·nv values.
-pub fn resample_into(stack: &Stack, g: &Grid, out: &mut [f32]) {
+/// Resamples the samples b ∈ `rows`, a ∈ `cols` of a grid into `out` (nu·nv values, row-major);
+/// other entries are left as they are.
+pub fn resample_part(stack: &Stack, g: &Grid, rows: Range<usize>, cols: Range<usize>, out: &mut [f32]) {
     let Some(vox) = &stack.voxel else { return };
     let inv = vox.mm.map(|x| 1.0 / x);
     let step = |d: V| [d[0] * inv[0], d[1] * inv[1], d[2] * inv[2]];
@@ -155,21 +157,54 @@ pub fn resample_into(stack: &Stack, g: &Grid, out: &mut [f32]) {
     // strictly inside the last voxel centre on every axis: the fast path needs no checks
     let inside = |p: V| (0..3).all(|a| dims[a] >= 2 && p[a] >= 0.0 && p[a] < (dims[a] - 1) as f64);
     with_samples!(&stack.samples, data => {
-        for b in 0..g.nv {
+        for b in rows {
             let row = v3::axpy(o, b as f64, dv);
             let line = &mut out[b * g.nu..(b + 1) * g.nu];
-            if g.nu > 0 && inside(row) && inside(v3::axpy(row, (g.nu - 1) as f64, du)) {
-                // the row lies wholly inside (the box is convex)
-                for (a, px) in line.iter_mut().enumerate() {
-                    *px = trilinear_inside(data, dims, v3::axpy(row, a as f64, du));
-                }
-            } else {
-                for (a, px) in line.iter_mut().enumerate() {
-                    *px = trilinear_idx(data, dims, v3::axpy(row, a as f64, du));
-                }
+            // the samples of this row strictly inside the stack form one run (the box is convex)
+            let at = |a: usize| v3::axpy(row, a as f64, du);
+            let run = inside_run(row, du, dims, cols.clone());
+            let (mut lo, mut hi) = (run.start, run.end);
+            while lo < hi && !inside(at(lo)) {
+                lo += 1;
+            }
+            while hi > lo && !inside(at(hi - 1)) {
+                hi -= 1;
+            }
+            for a in cols.start..lo {
+                line[a] = trilinear_idx(data, dims, at(a));
+            }
+            for (a, px) in line[lo..hi].iter_mut().enumerate() {
+                *px = trilinear_inside(data, dims, at(lo + a));
+            }
+            for a in hi.max(lo)..cols.end {
+                line[a] = trilinear_idx(data, dims, at(a));
             }
         }
     })
+}
+
+/// The indices a ∈ `cols` for which p + a·d lies within [0, n − 1) on every axis, widened by a
+/// sample at each end against rounding (the caller checks the ends).
+fn inside_run(p: V, d: V, dims: [usize; 3], cols: Range<usize>) -> Range<usize> {
+    let (mut lo, mut hi) = (cols.start as f64, cols.end as f64 - 1.0);
+    for k in 0..3 {
+        let top = dims[k] as f64 - 1.0;
+        if d[k] == 0.0 {
+            if !(p[k] >= 0.0 && p[k] < top) {
+                return cols.start..cols.start;
+            }
+            continue;
+        }
+        let (t0, t1) = ((0.0 - p[k]) / d[k], (top - p[k]) / d[k]);
+        lo = lo.max(t0.min(t1));
+        hi = hi.min(t0.max(t1));
+    }
+    if !(hi >= lo) {
+        return cols.start..cols.start;
+    }
+    let a0 = (lo.floor() - 1.0).max(cols.start as f64) as usize;
+    let a1 = (hi.ceil() + 2.0).min(cols.end as f64) as usize;
+    a0..a1.max(a0)
 }
 
 /// [`trilinear_idx`] for indices known to satisfy 0 ≤ x < n − 1 on every axis (n ≥ 2).
