@@ -261,7 +261,7 @@ fn section_row(stack: &Stack, cl: &Centreline, g: &SectionGeom, s: &MeasureSetti
         let img = last.insert(sample_section(stack, g, &line, half, pitch, prev));
         let levels = match levels_given {
             Some(l) => Some(l),
-            None => find_levels(&img, (1.5 * vmax / pitch).ceil() as usize),
+            None => find_levels(img, (1.5 * vmax / pitch).ceil() as usize),
         };
         let Some([fluid, bone]) = levels else {
             row.flags.push(Flag::LowContrast);
@@ -302,7 +302,7 @@ fn section_row(stack: &Stack, cl: &Centreline, g: &SectionGeom, s: &MeasureSetti
                 break;
             }
             open |= r.touches_border || r.touches_nan;
-            let (area, field, centroid) = fraction_area(&img, &r.mask, side, thr, fluid, bone, band);
+            let (area, field, centroid) = fraction_area(img, &r, side, thr, fluid, bone, band);
             scalae[k] = Scala { area: Some(area), outline: outline(&img, &field, centroid), centroid, seed: Some(img.uv(seed)) };
         }
         if grow_more {
@@ -393,13 +393,28 @@ pub fn otsu(values: &[f32]) -> Option<f32> {
 }
 
 /// Fluid and bone levels: medians of the interior pixels of Otsu's two classes (pixels whose
-/// square neighbourhood of radius `r` lies wholly in their class).
+/// square neighbourhood of radius `r` lies wholly in their class, inside the stack). Otsu's
+/// threshold is taken on every other pixel of each row and column: the section is sampled at
+/// half a voxel or finer, so that still sees every voxel.
 fn find_levels(img: &Img, r: usize) -> Option<[f32; 2]> {
-    let t = otsu(&img.v)?;
-    let dark: Vec<bool> = img.v.iter().map(|x| x.is_finite() && *x < t).collect();
-    let bright: Vec<bool> = img.v.iter().map(|x| x.is_finite() && *x >= t).collect();
-    let pick = |m: &[bool]| -> Vec<f32> { interior(m, img.n, r).iter().zip(&img.v).filter(|(i, _)| **i).map(|(_, v)| *v).collect() };
-    let (mut d, mut b) = (pick(&dark), pick(&bright));
+    let n = img.n;
+    let sub: Vec<f32> = img.v.chunks(n).step_by(2).flat_map(|row| row.iter().step_by(2).copied()).collect();
+    let t = otsu(&sub)?;
+    let all = Rect { a0: 0, a1: n, b0: 0, b1: n };
+    let dark = BoxCount::new(n, all, |i| img.v[i] < t);
+    let outside = img.v.iter().any(|x| !x.is_finite()).then(|| BoxCount::new(n, all, |i| !img.v[i].is_finite()));
+    let full = ((2 * r + 1) * (2 * r + 1)) as u32;
+    let (mut d, mut b) = (vec![], vec![]);
+    for (a, bb) in dark.centres(r) {
+        if outside.as_ref().is_some_and(|o| o.around(a, bb, r) > 0) {
+            continue;
+        }
+        match dark.around(a, bb, r) {
+            c if c == full => d.push(img.v[bb * n + a]),
+            0 => b.push(img.v[bb * n + a]),
+            _ => {}
+        }
+    }
     if d.len() < 4 || b.len() < 4 {
         return None;
     }
@@ -411,28 +426,39 @@ fn median_f32(v: &mut [f32]) -> f32 {
     *v.select_nth_unstable_by(m, f32::total_cmp).1
 }
 
-/// Pixels whose whole (2r+1)² square lies in `mask` and inside the n×n image (an erosion),
-/// by an integral image: O(n²) whatever r.
-fn interior(mask: &[bool], n: usize, r: usize) -> Vec<bool> {
-    let w = n + 1;
-    let mut sum = vec![0u32; w * w];
-    for b in 0..n {
-        let mut row = 0u32;
-        for a in 0..n {
-            row += mask[b * n + a] as u32;
-            sum[(b + 1) * w + a + 1] = sum[b * w + a + 1] + row;
+/// Counts of a pixel set over squares, from a summed-area table over a rectangle of an n×n
+/// image: O(1) a square whatever its size.
+struct BoxCount {
+    sum: Vec<u32>,
+    rect: Rect,
+    w: usize,
+}
+
+impl BoxCount {
+    fn new(n: usize, rect: Rect, set: impl Fn(usize) -> bool) -> BoxCount {
+        let w = rect.a1 - rect.a0 + 1;
+        let mut sum = vec![0u32; w * (rect.b1 - rect.b0 + 1)];
+        for b in rect.b0..rect.b1 {
+            let mut row = 0u32;
+            let (above, here) = ((b - rect.b0) * w, (b - rect.b0 + 1) * w);
+            for a in rect.a0..rect.a1 {
+                row += set(b * n + a) as u32;
+                sum[here + a - rect.a0 + 1] = sum[above + a - rect.a0 + 1] + row;
+            }
         }
+        BoxCount { sum, rect, w }
     }
-    let full = ((2 * r + 1) * (2 * r + 1)) as u32;
-    let mut out = vec![false; n * n];
-    for b in r..n.saturating_sub(r) {
-        for a in r..n - r {
-            let (a0, a1, b0, b1) = (a - r, a + r + 1, b - r, b + r + 1);
-            let c = sum[b1 * w + a1] + sum[b0 * w + a0] - sum[b0 * w + a1] - sum[b1 * w + a0];
-            out[b * n + a] = c == full;
-        }
+    /// Set pixels in the (2r+1)² square around (a, b); the square must lie within the rectangle.
+    fn around(&self, a: usize, b: usize, r: usize) -> u32 {
+        let (a0, a1, b0, b1) = (a - r - self.rect.a0, a + r + 1 - self.rect.a0, b - r - self.rect.b0, b + r + 1 - self.rect.b0);
+        let w = self.w;
+        self.sum[b1 * w + a1] + self.sum[b0 * w + a0] - self.sum[b0 * w + a1] - self.sum[b1 * w + a0]
     }
-    out
+    /// The pixels (a, b) whose (2r+1)² square lies within the rectangle.
+    fn centres(&self, r: usize) -> impl Iterator<Item = (usize, usize)> + use<> {
+        let (a0, a1) = (self.rect.a0 + r, self.rect.a1.saturating_sub(r));
+        (self.rect.b0 + r..self.rect.b1.saturating_sub(r)).flat_map(move |b| (a0..a1).map(move |a| (a, b)))
+    }
 }
 
 /// Median of the interior pixels (at least `erode` pixels from any non-region pixel) of both
@@ -442,7 +468,9 @@ fn lumen_level(img: &Img, line: &Line, mid: [f64; 2], thr: f32, vmax: f64, width
     for side in [1.0, -1.0] {
         let Some(seed) = find_seed(img, line, mid, side, thr, vmax, width) else { continue };
         let r = grow(img, seed, side, thr);
-        vals.extend(interior(&r.mask, img.n, erode).iter().zip(&img.v).filter(|(i, _)| **i).map(|(_, v)| *v));
+        let inside = BoxCount::new(img.n, r.bounds, |i| r.mask[i]);
+        let full = ((2 * erode + 1) * (2 * erode + 1)) as u32;
+        vals.extend(inside.centres(erode).filter(|&(a, b)| inside.around(a, b, erode) == full).map(|(a, b)| img.v[b * img.n + a]));
     }
     if vals.len() < 4 {
         return None;
@@ -473,8 +501,29 @@ fn find_seed(img: &Img, line: &Line, mid: [f64; 2], side: f64, thr: f32, vmax: f
     None
 }
 
+/// Pixel rectangle a ∈ [a0, a1), b ∈ [b0, b1).
+#[derive(Clone, Copy)]
+struct Rect {
+    a0: usize,
+    a1: usize,
+    b0: usize,
+    b1: usize,
+}
+
+impl Rect {
+    /// Widened by `k` pixels on every side, within an n×n image.
+    fn widen(self, k: usize, n: usize) -> Rect {
+        Rect { a0: self.a0.saturating_sub(k), a1: (self.a1 + k).min(n), b0: self.b0.saturating_sub(k), b1: (self.b1 + k).min(n) }
+    }
+    fn pixels(self, n: usize) -> impl Iterator<Item = usize> {
+        (self.b0..self.b1).flat_map(move |b| (self.a0..self.a1).map(move |a| b * n + a))
+    }
+}
+
 struct Region {
     mask: Vec<bool>,
+    /// Bounding box of the mask.
+    bounds: Rect,
     touches_border: bool,
     touches_nan: bool,
 }
@@ -486,11 +535,13 @@ fn grow(img: &Img, seed: usize, side: f64, thr: f32) -> Region {
     let mut stack = vec![seed];
     mask[seed] = true;
     let (mut touches_border, mut touches_nan) = (false, false);
+    let mut bounds = Rect { a0: seed % n, a1: seed % n + 1, b0: seed / n, b1: seed / n + 1 };
     while let Some(i) = stack.pop() {
         let (a, b) = (i % n, i / n);
         if a == 0 || b == 0 || a + 1 == n || b + 1 == n {
             touches_border = true;
         }
+        bounds = Rect { a0: bounds.a0.min(a), a1: bounds.a1.max(a + 1), b0: bounds.b0.min(b), b1: bounds.b1.max(b + 1) };
         let mut visit = |j: usize| {
             if mask[j] {
                 return;
@@ -518,54 +569,60 @@ fn grow(img: &Img, seed: usize, side: f64, thr: f32) -> Region {
             visit(i + n);
         }
     }
-    Region { mask, touches_border, touches_nan }
+    Region { mask, bounds, touches_border, touches_nan }
 }
 
-/// Partial-volume area (mm²) of a grown region and its edge band; also the per-pixel fluid
-/// fraction field (0 outside) and the fraction-weighted centroid.
-#[allow(clippy::too_many_arguments)]
-fn fraction_area(img: &Img, mask: &[bool], side: f64, thr: f32, fluid: f32, bone: f32, band: usize) -> (f64, Vec<f32>, [f64; 2]) {
-    let n = img.n as isize;
-    let k = band as isize;
-    let same = |i: usize| img.apical[i] == (side > 0.0);
-    let other_dark = |i: usize| !mask[i] && img.v[i].is_finite() && img.v[i] < thr && same(i);
-    let mut cand = vec![false; mask.len()];
-    for i in 0..mask.len() {
-        if !mask[i] {
+/// Pixels of an n×n image within Euclidean distance `k` (pixels) of a set, the set included;
+/// `set` is tested over `rect`. The pixel of a set nearest to any pixel outside it is an edge
+/// pixel (one with a 4-neighbour outside the set), so discs around the edge pixels cover the rest.
+fn near(n: usize, rect: Rect, k: usize, set: impl Fn(usize) -> bool) -> Vec<bool> {
+    let mut out = vec![false; n * n];
+    let k = k as isize;
+    for i in rect.pixels(n) {
+        if !set(i) {
             continue;
         }
-        let (a, b) = (i as isize % n, i as isize / n);
+        out[i] = true;
+        let (a, b) = ((i % n) as isize, (i / n) as isize);
+        let n = n as isize;
         let edge = [(-1, 0), (1, 0), (0, -1), (0, 1)].iter().any(|(da, db)| {
             let (x, y) = (a + da, b + db);
-            x >= 0 && y >= 0 && x < n && y < n && !mask[(y * n + x) as usize]
+            x >= 0 && y >= 0 && x < n && y < n && !set((y * n + x) as usize)
         });
         if !edge {
             continue;
         }
         for y in (b - k).max(0)..(b + k + 1).min(n) {
             for x in (a - k).max(0)..(a + k + 1).min(n) {
-                let j = (y * n + x) as usize;
-                if !mask[j] && (x - a).pow(2) + (y - b).pow(2) <= k * k {
-                    cand[j] = true;
+                if (x - a).pow(2) + (y - b).pow(2) <= k * k {
+                    out[(y * n + x) as usize] = true;
                 }
             }
         }
     }
-    let mut field = vec![0f32; mask.len()];
-    let frac = |x: f32| (bone - x) / (bone - fluid);
-    for i in 0..mask.len() {
-        if mask[i] {
-            field[i] = frac(img.v[i]);
-            continue;
-        }
-        if !cand[i] || !img.v[i].is_finite() || !same(i) {
-            continue;
-        }
-        let (a, b) = (i as isize % n, i as isize / n);
+    out
+}
+
+/// Partial-volume area (mm²) of a grown region and its edge band; also the per-pixel fluid
+/// fraction field (0 outside) and the fraction-weighted centroid. The band holds the pixels
+/// on the region's side within `band` pixels of it and no nearer to another dark pixel there.
+#[allow(clippy::too_many_arguments)]
+fn fraction_area(img: &Img, r: &Region, side: f64, thr: f32, fluid: f32, bone: f32, band: usize) -> (f64, Vec<f32>, [f64; 2]) {
+    let (n, mask) = (img.n, &r.mask);
+    let k = band as isize;
+    let same = |i: usize| img.apical[i] == (side > 0.0);
+    let other_dark = |i: usize| !mask[i] && img.v[i].is_finite() && img.v[i] < thr && same(i);
+    let reach = r.bounds.widen(band, n);
+    let near_region = near(n, r.bounds, band, |i| mask[i]);
+    // only dark pixels within two bands of the region can be nearer to a band pixel
+    let near_other = near(n, r.bounds.widen(2 * band, n), band, other_dark);
+    // the nearest pixel of the region, and of the other dark pixels, within the window
+    let nearest = |i: usize| -> (isize, isize) {
+        let (a, b, nn) = ((i % n) as isize, (i / n) as isize, n as isize);
         let (mut dr, mut dother) = (isize::MAX, isize::MAX);
-        for y in (b - k).max(0)..(b + k + 1).min(n) {
-            for x in (a - k).max(0)..(a + k + 1).min(n) {
-                let j = (y * n + x) as usize;
+        for y in (b - k).max(0)..(b + k + 1).min(nn) {
+            for x in (a - k).max(0)..(a + k + 1).min(nn) {
+                let j = (y * nn + x) as usize;
                 let d2 = (x - a).pow(2) + (y - b).pow(2);
                 if mask[j] {
                     dr = dr.min(d2);
@@ -574,13 +631,28 @@ fn fraction_area(img: &Img, mask: &[bool], side: f64, thr: f32, fluid: f32, bone
                 }
             }
         }
-        if dr <= k * k && dr <= dother {
-            field[i] = frac(img.v[i]);
+        (dr, dother)
+    };
+    let mut field = vec![0f32; mask.len()];
+    let frac = |x: f32| (bone - x) / (bone - fluid);
+    for i in reach.pixels(n) {
+        let x = img.v[i];
+        let inside = mask[i]
+            || (near_region[i] && x.is_finite() && same(i) && {
+                // no other dark pixel within the band: the pixel is the region's; else the nearer wins
+                !near_other[i] || {
+                    let (dr, dother) = nearest(i);
+                    dr <= dother
+                }
+            });
+        if inside {
+            field[i] = frac(x);
         }
     }
     let p2 = img.pitch * img.pitch;
     let (mut sum, mut cu, mut cv) = (0.0f64, 0.0f64, 0.0f64);
-    for (i, &f) in field.iter().enumerate() {
+    for i in reach.pixels(n) {
+        let f = field[i];
         if f != 0.0 {
             let q = img.uv(i);
             sum += f as f64;

@@ -154,8 +154,9 @@ pub fn resample_part(stack: &Stack, g: &Grid, rows: Range<usize>, cols: Range<us
     let step = |d: V| [d[0] * inv[0], d[1] * inv[1], d[2] * inv[2]];
     let (o, du, dv) = (stack.to_index(g.origin), step(g.du), step(g.dv));
     let dims = stack.dims;
-    // strictly inside the last voxel centre on every axis: the fast path needs no checks
-    let inside = |p: V| (0..3).all(|a| dims[a] >= 2 && p[a] >= 0.0 && p[a] < (dims[a] - 1) as f64);
+    // strictly inside the last voxel centre on every axis, so the fast path needs no checks; the
+    // margin is far above the rounding error of stepping along a row by repeated addition
+    let inside = |p: V| (0..3).all(|a| dims[a] >= 2 && p[a] >= 0.0 && p[a] < (dims[a] - 1) as f64 - 1e-6);
     with_samples!(&stack.samples, data => {
         for b in rows {
             let row = v3::axpy(o, b as f64, dv);
@@ -173,10 +174,12 @@ pub fn resample_part(stack: &Stack, g: &Grid, rows: Range<usize>, cols: Range<us
             for a in cols.start..lo {
                 line[a] = trilinear_idx(data, dims, at(a));
             }
-            for (a, px) in line[lo..hi].iter_mut().enumerate() {
-                *px = trilinear_inside(data, dims, at(lo + a));
+            let mut p = at(lo);
+            for px in &mut line[lo..hi] {
+                *px = trilinear_inside(data, dims, p);
+                p = [p[0] + du[0], p[1] + du[1], p[2] + du[2]];
             }
-            for a in hi.max(lo)..cols.end {
+            for a in hi..cols.end {
                 line[a] = trilinear_idx(data, dims, at(a));
             }
         }
