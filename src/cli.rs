@@ -127,11 +127,12 @@ fn voxel_arg(s: &Option<String>) -> Result<Option<VoxelSize>> {
 }
 
 /// Prints progress to stderr until `done` is set: a bar on a terminal, a line per 10 % otherwise.
-fn report(p: Progress, label: &'static str, done: std::sync::Arc<std::sync::atomic::AtomicBool>) -> std::thread::JoinHandle<()> {
+fn report(p: Progress, label: &'static str, done: std::sync::mpsc::Receiver<()>) -> std::thread::JoinHandle<()> {
     std::thread::spawn(move || {
         let tty = std::io::stderr().is_terminal();
         let mut last = -1i32;
-        while !done.load(std::sync::atomic::Ordering::Relaxed) {
+        // a report every 150 ms until the work ends (the sender is dropped: no wait at the end)
+        while let Err(std::sync::mpsc::RecvTimeoutError::Timeout) = done.recv_timeout(std::time::Duration::from_millis(150)) {
             let f = p.fraction();
             if tty {
                 let n = (f * 30.0) as usize;
@@ -140,7 +141,6 @@ fn report(p: Progress, label: &'static str, done: std::sync::Arc<std::sync::atom
                 last = (f * 10.0) as i32;
                 eprintln!("{label}: {:.0}%", f * 100.0);
             }
-            std::thread::sleep(std::time::Duration::from_millis(150));
         }
         if tty {
             eprintln!("\r{label:>10} done{}", " ".repeat(40));
@@ -151,10 +151,10 @@ fn report(p: Progress, label: &'static str, done: std::sync::Arc<std::sync::atom
 /// Runs `f` with a progress report on stderr.
 fn with_progress<T>(label: &'static str, f: impl FnOnce(&Progress) -> T) -> T {
     let p = Progress::new();
-    let done = std::sync::Arc::new(std::sync::atomic::AtomicBool::new(false));
-    let h = report(p.clone(), label, done.clone());
+    let (tx, rx) = std::sync::mpsc::channel();
+    let h = report(p.clone(), label, rx);
     let out = f(&p);
-    done.store(true, std::sync::atomic::Ordering::Relaxed);
+    drop(tx);
     let _ = h.join();
     out
 }
