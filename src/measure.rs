@@ -3,7 +3,8 @@
 //!
 //! Method, per section (all lengths mm):
 //! 1. Resample the stack on a square grid normal to the centreline at pitch ≤ half the smallest
-//!    voxel side; the grid grows until both scalae lie inside it or the capture limit is reached.
+//!    voxel side; the grid grows (×1.25, keeping the samples it has) until both scalae and their
+//!    edge bands lie inside it or the capture limit is reached.
 //! 2. Levels: Otsu's threshold splits dark (fluid) from bright (bone); the fluid and bone levels
 //!    are the medians of each class's interior pixels (at least one voxel from the other class),
 //!    so blurred edges do not pull them; the segmentation threshold is their midpoint.
@@ -146,6 +147,9 @@ impl Row {
 
 /// Points on the star outline of each scala.
 pub const OUTLINE_POINTS: usize = 64;
+
+/// Factor by which a section square grows when a scala does not fit in it.
+const GROWTH: f64 = 1.25;
 
 /// Measures every section. Parallel over sections; `progress` counts sections and can cancel.
 pub fn measure(
@@ -297,7 +301,9 @@ fn section_row(stack: &Stack, cl: &Centreline, g: &SectionGeom, s: &MeasureSetti
                 continue;
             };
             let r = grow(&img, seed, side, thr);
-            if r.touches_border && half < s.capture_mm {
+            // the region and its edge band must fit inside the square
+            let b = r.bounds;
+            if b.a0.min(b.b0).min(img.n - b.a1).min(img.n - b.b1) < band && half < s.capture_mm {
                 grow_more = true;
                 break;
             }
@@ -306,7 +312,7 @@ fn section_row(stack: &Stack, cl: &Centreline, g: &SectionGeom, s: &MeasureSetti
             scalae[k] = Scala { area: Some(area), outline: outline(&img, &field, centroid), centroid, seed: Some(img.uv(seed)) };
         }
         if grow_more {
-            half = (half * 1.5).min(s.capture_mm);
+            half = (half * GROWTH).min(s.capture_mm);
             continue;
         }
         if missing {
