@@ -123,6 +123,9 @@ fn bad_inputs_give_one_line_errors() {
     std::fs::write(&trunc, &bytes[..bytes.len() * 2 / 3]).unwrap();
     let e = err_of(&trunc);
     assert!(e.contains("trunc.tif") && !e.contains('\n'), "{e}");
+    // a Deflate strip garbled inside (written by the fixture script): names the file and page
+    let e = err_of(&fixture("tiff/u16_deflate_corrupt.tif"));
+    assert!(e.contains("u16_deflate_corrupt.tif") && e.contains("page 1") && !e.contains('\n'), "{e}");
     // not a TIFF at all
     let junk = dir.path().join("junk.tif");
     std::fs::write(&junk, b"this is not an image").unwrap();

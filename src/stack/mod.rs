@@ -22,12 +22,19 @@ pub fn folder_files(dir: &Path) -> Result<Vec<PathBuf>> {
 pub trait Sample: Copy + Send + Sync + bytemuck::Pod + 'static {
     const NAME: &'static str;
     fn f(self) -> f32;
+    /// Undoes TIFF horizontal differencing (Predictor 2) along one row: a running sum, wrapping.
+    fn undo_differencing(row: &mut [Self]);
 }
 impl Sample for u8 {
     const NAME: &'static str = "uint8";
     #[inline]
     fn f(self) -> f32 {
         self as f32
+    }
+    fn undo_differencing(row: &mut [u8]) {
+        for i in 1..row.len() {
+            row[i] = row[i].wrapping_add(row[i - 1]);
+        }
     }
 }
 impl Sample for u16 {
@@ -36,12 +43,24 @@ impl Sample for u16 {
     fn f(self) -> f32 {
         self as f32
     }
+    fn undo_differencing(row: &mut [u16]) {
+        for i in 1..row.len() {
+            row[i] = row[i].wrapping_add(row[i - 1]);
+        }
+    }
 }
 impl Sample for f32 {
     const NAME: &'static str = "float32";
     #[inline]
     fn f(self) -> f32 {
         self
+    }
+    /// On the bit patterns as 32-bit integers (libtiff's reading; ductline's own inflate path
+    /// leaves float pages with a predictor to the tiff crate).
+    fn undo_differencing(row: &mut [f32]) {
+        for i in 1..row.len() {
+            row[i] = f32::from_bits(row[i].to_bits().wrapping_add(row[i - 1].to_bits()));
+        }
     }
 }
 

@@ -1,5 +1,7 @@
 //! Multi-page TIFF (classic and BigTIFF; stripped or tiled; uncompressed, LZW, Deflate, PackBits)
-//! decoded in parallel into one contiguous buffer of the file's own sample type.
+//! decoded in parallel into one contiguous buffer of the file's own sample type. Uncompressed
+//! grey pages are read with one positioned read (or memory-mapped), Deflate grey strips are read
+//! and inflated whole by ductline; everything else goes through the tiff crate's decoder.
 
 use super::{LoadOptions, Sample, Samples, Stack, VoxelSize, VoxelSource};
 use crate::progress::Progress;
@@ -275,6 +277,60 @@ fn raw_run(dec: &mut Dec, len: usize) -> Option<u64> {
     contiguous.then_some(offs[0])
 }
 
+/// The strips (offset, bytes) of a Deflate-compressed grey page whose samples are in native byte
+/// order, one a pixel, without a predictor or with horizontal differencing of 8/16-bit samples;
+/// also the rows a strip and whether to undo differencing. None when any of that does not hold
+/// (the tiff crate then decodes the page).
+fn deflate_strips(dec: &mut Dec) -> Option<(Vec<(u64, u64)>, usize, bool)> {
+    use tiff::decoder::ChunkType;
+    use tiff::tags::ByteOrder;
+    let tag = |dec: &mut Dec, t: Tag| dec.find_tag_unsigned::<u32>(t).ok().flatten();
+    let deflate = matches!(tag(dec, Tag::Compression), Some(8 | 32946));
+    let predictor = tag(dec, Tag::Predictor).unwrap_or(1);
+    let bits = tag(dec, Tag::BitsPerSample).unwrap_or(1);
+    let predictor_ok = predictor == 1 || (predictor == 2 && bits <= 16);
+    if !deflate || !predictor_ok || tag(dec, Tag::SamplesPerPixel).unwrap_or(1) != 1 || dec.get_chunk_type() != ChunkType::Strip {
+        return None;
+    }
+    if matches!(dec.byte_order(), ByteOrder::LittleEndian) != cfg!(target_endian = "little") {
+        return None;
+    }
+    let (_, h) = dec.dimensions().ok()?;
+    let rows = tag(dec, Tag::RowsPerStrip).unwrap_or(h).min(h) as usize;
+    let offs = dec.get_tag_u64_vec(Tag::StripOffsets).ok()?;
+    let counts = dec.get_tag_u64_vec(Tag::StripByteCounts).ok()?;
+    if rows == 0 || offs.len() != counts.len() || offs.len() != (h as usize).div_ceil(rows) {
+        return None;
+    }
+    Some((offs.into_iter().zip(counts).collect(), rows, predictor == 2))
+}
+
+/// Inflates a page's Deflate strips straight into `out` (libdeflate, whole strips), then undoes
+/// horizontal differencing if the page uses it.
+#[cfg(unix)]
+fn inflate_page<T: Sample>(path: &Path, page: usize, dec: &mut Dec, (strips, rows, diff): (Vec<(u64, u64)>, usize, bool), out: &mut [T], nx: usize) -> Result<()> {
+    use std::os::unix::fs::FileExt;
+    let row_bytes = nx * std::mem::size_of::<T>();
+    let bytes: &mut [u8] = bytemuck::cast_slice_mut(out);
+    let mut z = libdeflater::Decompressor::new();
+    let mut packed = vec![];
+    for ((off, len), dst) in strips.iter().zip(bytes.chunks_mut(rows * row_bytes)) {
+        packed.resize(*len as usize, 0);
+        dec.inner().get_ref().read_exact_at(&mut packed, *off).map_err(|e| Error::page(path, page, format!("cannot read (truncated?): {e}")))?;
+        match z.zlib_decompress(&packed, dst) {
+            Ok(n) if n == dst.len() => {}
+            Ok(n) => return Err(Error::page(path, page, format!("a strip holds {n} bytes, {} expected (truncated or corrupt?)", dst.len()))),
+            Err(e) => return Err(Error::page(path, page, format!("cannot inflate a strip (corrupt?): {e}"))),
+        }
+    }
+    if diff {
+        for row in out.chunks_mut(nx) {
+            T::undo_differencing(row);
+        }
+    }
+    Ok(())
+}
+
 pub(crate) fn read_page<T: Sample>(path: &Path, page: usize, dec: &mut Dec, kind: Kind, out: &mut [T], conv: fn(f32) -> T) -> Result<()> {
     let perr = |e: tiff::TiffError| Error::page(path, page, format!("cannot decode (truncated or corrupt?): {e}"));
     // uncompressed pages: one positioned read straight into the buffer
@@ -284,6 +340,10 @@ pub(crate) fn read_page<T: Sample>(path: &Path, page: usize, dec: &mut Dec, kind
         if let Some(off) = raw_run(dec, bytes.len()) {
             use std::os::unix::fs::FileExt;
             return dec.inner().get_ref().read_exact_at(bytes, off).map_err(|e| Error::page(path, page, format!("cannot read (truncated?): {e}")));
+        }
+        if let Some(strips) = deflate_strips(dec) {
+            let nx = dec.dimensions().map(|(w, _)| w as usize).unwrap_or(0);
+            return inflate_page(path, page, dec, strips, out, nx);
         }
     }
     match kind {
