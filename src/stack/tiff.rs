@@ -314,7 +314,11 @@ fn inflate_page<T: Sample>(path: &Path, page: usize, dec: &mut Dec, (strips, row
     let bytes: &mut [u8] = bytemuck::cast_slice_mut(out);
     let mut z = libdeflater::Decompressor::new();
     let mut packed = vec![];
+    let file_len = dec.inner().get_ref().metadata().map_err(|e| Error::io(path, e))?.len();
     for ((off, len), dst) in strips.iter().zip(bytes.chunks_mut(rows * row_bytes)) {
+        if off.checked_add(*len).is_none_or(|end| end > file_len) {
+            return Err(Error::page(path, page, "a strip runs past the end of the file (truncated?)"));
+        }
         packed.resize(*len as usize, 0);
         dec.inner().get_ref().read_exact_at(&mut packed, *off).map_err(|e| Error::page(path, page, format!("cannot read (truncated?): {e}")))?;
         match z.zlib_decompress(&packed, dst) {
