@@ -407,20 +407,21 @@ fn find_levels(img: &Img, r: usize) -> Option<[f32; 2]> {
     let sub: Vec<f32> = img.v.chunks(n).step_by(2).flat_map(|row| row.iter().step_by(2).copied()).collect();
     let t = otsu(&sub)?;
     let all = Rect { a0: 0, a1: n, b0: 0, b1: n };
-    let dark = BoxCount::new(n, all, |i| img.v[i] < t);
-    let outside = img.v.iter().any(|x| !x.is_finite()).then(|| BoxCount::new(n, all, |i| !img.v[i].is_finite()));
     let full = ((2 * r + 1) * (2 * r + 1)) as u32;
     let (mut d, mut b) = (vec![], vec![]);
-    for (a, bb) in dark.centres(r) {
-        if outside.as_ref().is_some_and(|o| o.around(a, bb, r) > 0) {
-            continue;
+    // dark interior: all dark; bright interior: nothing dark and nothing outside the stack
+    let dark = BoxCount::new(n, all, |i| img.v[i] < t && img.v[i].is_finite());
+    dark.each_square(n, r, |i, c| {
+        if c == full {
+            d.push(img.v[i]);
         }
-        match dark.around(a, bb, r) {
-            c if c == full => d.push(img.v[bb * n + a]),
-            0 => b.push(img.v[bb * n + a]),
-            _ => {}
+    });
+    let not_bright = if img.v.iter().all(|x| x.is_finite()) { dark } else { BoxCount::new(n, all, |i| !(img.v[i] >= t && img.v[i].is_finite())) };
+    not_bright.each_square(n, r, |i, c| {
+        if c == 0 {
+            b.push(img.v[i]);
         }
-    }
+    });
     if d.len() < 4 || b.len() < 4 {
         return None;
     }
@@ -454,16 +455,18 @@ impl BoxCount {
         }
         BoxCount { sum, rect, w }
     }
-    /// Set pixels in the (2r+1)² square around (a, b); the square must lie within the rectangle.
-    fn around(&self, a: usize, b: usize, r: usize) -> u32 {
-        let (a0, a1, b0, b1) = (a - r - self.rect.a0, a + r + 1 - self.rect.a0, b - r - self.rect.b0, b + r + 1 - self.rect.b0);
-        let w = self.w;
-        self.sum[b1 * w + a1] + self.sum[b0 * w + a0] - self.sum[b0 * w + a1] - self.sum[b1 * w + a0]
-    }
-    /// The pixels (a, b) whose (2r+1)² square lies within the rectangle.
-    fn centres(&self, r: usize) -> impl Iterator<Item = (usize, usize)> + use<> {
-        let (a0, a1) = (self.rect.a0 + r, self.rect.a1.saturating_sub(r));
-        (self.rect.b0 + r..self.rect.b1.saturating_sub(r)).flat_map(move |b| (a0..a1).map(move |a| (a, b)))
+    /// Calls `f(i, c)` for every pixel i of the n×n image whose (2r+1)² square lies within the
+    /// rectangle, with c the number of set pixels in that square.
+    fn each_square(&self, n: usize, r: usize, mut f: impl FnMut(usize, u32)) {
+        let (w, rc) = (self.w, self.rect);
+        for b in rc.b0 + r..rc.b1.saturating_sub(r) {
+            let top = &self.sum[(b - r - rc.b0) * w..][..w];
+            let bot = &self.sum[(b + r + 1 - rc.b0) * w..][..w];
+            for a in rc.a0 + r..rc.a1.saturating_sub(r) {
+                let (x0, x1) = (a - r - rc.a0, a + r + 1 - rc.a0);
+                f(b * n + a, bot[x1] + top[x0] - top[x1] - bot[x0]);
+            }
+        }
     }
 }
 
@@ -476,7 +479,11 @@ fn lumen_level(img: &Img, line: &Line, mid: [f64; 2], thr: f32, vmax: f64, width
         let r = grow(img, seed, side, thr);
         let inside = BoxCount::new(img.n, r.bounds, |i| r.mask[i]);
         let full = ((2 * erode + 1) * (2 * erode + 1)) as u32;
-        vals.extend(inside.centres(erode).filter(|&(a, b)| inside.around(a, b, erode) == full).map(|(a, b)| img.v[b * img.n + a]));
+        inside.each_square(img.n, erode, |i, c| {
+            if c == full {
+                vals.push(img.v[i]);
+            }
+        });
     }
     if vals.len() < 4 {
         return None;
