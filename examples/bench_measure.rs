@@ -1,6 +1,9 @@
 //! Measuring speed: trilinear samples per second, and 400 sections on a 512³ phantom.
 //!
-//!     cargo run --release --example bench_measure [voxel_um]
+//!     cargo run --release --example bench_measure [voxel_um] [outdir]
+//!
+//! With an outdir it also writes the phantom there, and the section planes for
+//! bench/measure_reference.py (see bench/measure_vs_scipy.py).
 //!
 //! The default voxel size (20 µm) makes the default phantom about 512 voxels across.
 
@@ -55,7 +58,7 @@ fn main() {
                                            "half_mm": r.half_mm, "pitch_mm": r.pitch_mm, "sv_area_mm2": r.sv.area, "st_area_mm2": r.st.area})
             })
             .collect();
-        let out = serde_json::json!({"voxel_mm": ph.stack.voxel.as_ref().unwrap().mm, "sections": secs, "seconds": t.elapsed().as_secs_f64()});
+        let out = serde_json::json!({"voxel_mm": ph.stack.voxel.as_ref().unwrap().mm, "step_mm": step, "sections": secs, "seconds": t.elapsed().as_secs_f64()});
         std::fs::write(std::path::Path::new(&dir).join("sections.json"), out.to_string()).unwrap();
     }
 }
