@@ -5,7 +5,7 @@
 //! With an outdir it also writes the phantom there, and the section planes for
 //! bench/measure_reference.py (see bench/measure_vs_scipy.py).
 //!
-//! The default voxel size (20 µm) makes the default phantom about 512 voxels across.
+//! The default voxel size (19.5 µm) makes the default phantom about 512 voxels across.
 
 use ductline::centreline::FitSettings;
 use ductline::cochlea::Greenwood;

@@ -274,6 +274,7 @@ impl Centreline {
 
 /// Adaptive Simpson quadrature of f over [a, b] to relative tolerance `tol`.
 pub fn arc_length(f: impl Fn(f64) -> f64, a: f64, b: f64, tol: f64) -> f64 {
+    #[allow(clippy::too_many_arguments)]
     fn rec(f: &dyn Fn(f64) -> f64, a: f64, b: f64, fa: f64, fm: f64, fb: f64, whole: f64, eps: f64, depth: u32) -> f64 {
         let m = 0.5 * (a + b);
         let (lm, rm) = (0.5 * (a + m), 0.5 * (m + b));

@@ -283,7 +283,15 @@ pub fn measure(a: MeasureArgs) -> Result<()> {
         Some(l) => drop(landmarks::read_csv(l, Some(&st))?),
         None => {
             if let Some((i, l)) = landmarks::first_outside(&prj.landmarks, &st) {
-                bail!("{}: landmark #{} ({}) at ({:.3}, {:.3}, {:.3}) mm lies outside the stack", src.display(), i + 1, l.kind.as_str(), l.p[0], l.p[1], l.p[2]);
+                bail!(
+                    "{}: landmark #{} ({}) at ({:.3}, {:.3}, {:.3}) mm lies outside the stack",
+                    src.display(),
+                    i + 1,
+                    l.kind.as_str(),
+                    l.p[0],
+                    l.p[1],
+                    l.p[2]
+                );
             }
         }
     }

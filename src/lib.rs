@@ -8,6 +8,9 @@
 //!
 //! Units everywhere: millimetres, degrees, mm², Hz.
 
+// Comparisons are written `!(a > b)` on purpose where a NaN must fail them.
+#![allow(clippy::neg_cmp_op_on_partial_ord)]
+
 pub mod centreline;
 pub mod cochlea;
 pub mod display;

@@ -283,7 +283,7 @@ fn section_row(stack: &Stack, cl: &Centreline, g: &SectionGeom, s: &MeasureSetti
         // The dark class may hold other dark matter (soft tissue, air) besides fluid: take the fluid
         // level from the interior of the scalae themselves, then segment again.
         if levels_given.is_none()
-            && let Some(f) = lumen_level(&img, &line, mid, thr, vmax, g.width(), erode)
+            && let Some(f) = lumen_level(img, &line, mid, thr, vmax, g.width(), erode)
         {
             row.levels = [f, bone];
             thr = 0.5 * (f + bone);
@@ -295,12 +295,12 @@ fn section_row(stack: &Stack, cl: &Centreline, g: &SectionGeom, s: &MeasureSetti
         let mut missing = false;
         for (k, side) in [1.0f64, -1.0].into_iter().enumerate() {
             let given = ov.and_then(|o| if k == 0 { o.seed_sv } else { o.seed_st });
-            let seed = given.and_then(|q| img.index(q)).or_else(|| find_seed(&img, &line, mid, side, thr, vmax, g.width()));
+            let seed = given.and_then(|q| img.index(q)).or_else(|| find_seed(img, &line, mid, side, thr, vmax, g.width()));
             let Some(seed) = seed else {
                 missing = true;
                 continue;
             };
-            let r = grow(&img, seed, side, thr);
+            let r = grow(img, seed, side, thr);
             // the region and its edge band must fit inside the square
             let b = r.bounds;
             if b.a0.min(b.b0).min(img.n - b.a1).min(img.n - b.b1) < band && half < s.capture_mm {
@@ -309,7 +309,7 @@ fn section_row(stack: &Stack, cl: &Centreline, g: &SectionGeom, s: &MeasureSetti
             }
             open |= r.touches_border || r.touches_nan;
             let (area, field, centroid) = fraction_area(img, &r, side, thr, fluid, bone, band);
-            scalae[k] = Scala { area: Some(area), outline: outline(&img, &field, centroid), centroid, seed: Some(img.uv(seed)) };
+            scalae[k] = Scala { area: Some(area), outline: outline(img, &field, centroid), centroid, seed: Some(img.uv(seed)) };
         }
         if grow_more {
             half = (half * GROWTH).min(s.capture_mm);
@@ -344,7 +344,7 @@ fn sample_section(stack: &Stack, g: &SectionGeom, line: &Line, half: f64, pitch:
     let n = grid.nu;
     let start = -(n as f64 - 1.0) * 0.5 * pitch;
     let mut v = vec![f32::NAN; n * n];
-    match old.filter(|o| o.n <= n && (n - o.n) % 2 == 0) {
+    match old.filter(|o| o.n <= n && (n - o.n).is_multiple_of(2)) {
         Some(o) => {
             let k = (n - o.n) / 2;
             for b in 0..o.n {

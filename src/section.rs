@@ -171,16 +171,16 @@ pub fn resample_part(stack: &Stack, g: &Grid, rows: Range<usize>, cols: Range<us
             while hi > lo && !inside(at(hi - 1)) {
                 hi -= 1;
             }
-            for a in cols.start..lo {
-                line[a] = trilinear_idx(data, dims, at(a));
+            for (a, px) in line.iter_mut().enumerate().take(lo).skip(cols.start) {
+                *px = trilinear_idx(data, dims, at(a));
             }
             let mut p = at(lo);
             for px in &mut line[lo..hi] {
                 *px = trilinear_inside(data, dims, p);
                 p = [p[0] + du[0], p[1] + du[1], p[2] + du[2]];
             }
-            for a in hi..cols.end {
-                line[a] = trilinear_idx(data, dims, at(a));
+            for (a, px) in line.iter_mut().enumerate().take(cols.end).skip(hi) {
+                *px = trilinear_idx(data, dims, at(a));
             }
         }
     })

@@ -660,10 +660,10 @@ impl DuctApp {
                     .labelled_by(l.id)
                     .on_hover_text("Voxel index ranges of the whole stack, end excluded");
             });
-            if let Some(p) = &reopen {
-                if ui.button("Open again with these").on_hover_text("Reload the current stack or project with these options").clicked() {
-                    cmds.push(Cmd::Open(p.clone()));
-                }
+            if let Some(p) = &reopen
+                && ui.button("Open again with these").on_hover_text("Reload the current stack or project with these options").clicked()
+            {
+                cmds.push(Cmd::Open(p.clone()));
             }
             ui.small("They apply to every open until changed.");
         });

@@ -66,7 +66,7 @@ fn ext(p: &Path) -> String {
 }
 
 /// One slice file's header: size, kind and its in-plane voxel size if any.
-fn slice_header(p: &Path) -> Result<(usize, usize, Kind, Option<VoxelSize>)> {
+fn slice_header(p: &Path) -> Result<SliceHeader> {
     if ext(p) == "png" {
         let r = png_reader(p)?;
         let info = r.info();
@@ -108,9 +108,12 @@ pub(super) fn header(dir: &Path) -> Result<super::Header> {
     Ok(super::Header { dims: [nx, ny, files.len()], sample: kind.name(), bytes_per_sample: kind.bytes(), voxel })
 }
 
-fn check_all(files: &[PathBuf]) -> Result<(usize, usize, Kind, Option<VoxelSize>)> {
+/// Width, height, sample kind and voxel size of a slice.
+type SliceHeader = (usize, usize, Kind, Option<VoxelSize>);
+
+fn check_all(files: &[PathBuf]) -> Result<SliceHeader> {
     let first = slice_header(&files[0])?;
-    let heads: Vec<Result<(usize, usize, Kind, Option<VoxelSize>)>> = files[1..].par_iter().map(|f| slice_header(f)).collect();
+    let heads: Vec<Result<SliceHeader>> = files[1..].par_iter().map(|f| slice_header(f)).collect();
     for (f, h) in files[1..].iter().zip(heads) {
         let (w, hgt, k, _) = h?;
         if (w, hgt) != (first.0, first.1) {

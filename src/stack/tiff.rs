@@ -232,11 +232,11 @@ fn decode<T: Sample>(
             if direct {
                 read_page(path, page, &mut dec, kind, slice, conv)?;
             } else {
-                for p in 0..n_here {
+                for (p, buf) in tmp.iter_mut().enumerate().take(n_here) {
                     if p > 0 {
                         next(path, page + p, &mut dec)?;
                     }
-                    read_page(path, page + p, &mut dec, kind, &mut tmp[p], conv)?;
+                    read_page(path, page + p, &mut dec, kind, buf, conv)?;
                 }
                 super::assemble(&tmp[..n_here], nx, xy, bin, slice, conv);
             }
@@ -277,11 +277,20 @@ fn raw_run(dec: &mut Dec, len: usize) -> Option<u64> {
     contiguous.then_some(offs[0])
 }
 
-/// The strips (offset, bytes) of a Deflate-compressed grey page whose samples are in native byte
-/// order, one a pixel, without a predictor or with horizontal differencing of 8/16-bit samples;
-/// also the rows a strip and whether to undo differencing. None when any of that does not hold
-/// (the tiff crate then decodes the page).
-fn deflate_strips(dec: &mut Dec) -> Option<(Vec<(u64, u64)>, usize, bool)> {
+/// Where a page's Deflate strips lie and how to unpack them.
+struct Strips {
+    /// (file offset, compressed bytes) of each strip, top to bottom.
+    at: Vec<(u64, u64)>,
+    /// Rows a strip (the last may hold fewer).
+    rows: usize,
+    /// Horizontal differencing (TIFF Predictor 2) to undo.
+    differenced: bool,
+}
+
+/// The strips of a Deflate-compressed grey page whose samples are in native byte order, one a
+/// pixel, without a predictor or with horizontal differencing of 8/16-bit samples; None when any
+/// of that does not hold (the tiff crate then decodes the page).
+fn deflate_strips(dec: &mut Dec) -> Option<Strips> {
     use tiff::decoder::ChunkType;
     use tiff::tags::ByteOrder;
     let tag = |dec: &mut Dec, t: Tag| dec.find_tag_unsigned::<u32>(t).ok().flatten();
@@ -302,20 +311,20 @@ fn deflate_strips(dec: &mut Dec) -> Option<(Vec<(u64, u64)>, usize, bool)> {
     if rows == 0 || offs.len() != counts.len() || offs.len() != (h as usize).div_ceil(rows) {
         return None;
     }
-    Some((offs.into_iter().zip(counts).collect(), rows, predictor == 2))
+    Some(Strips { at: offs.into_iter().zip(counts).collect(), rows, differenced: predictor == 2 })
 }
 
 /// Inflates a page's Deflate strips straight into `out` (libdeflate, whole strips), then undoes
 /// horizontal differencing if the page uses it.
 #[cfg(unix)]
-fn inflate_page<T: Sample>(path: &Path, page: usize, dec: &mut Dec, (strips, rows, diff): (Vec<(u64, u64)>, usize, bool), out: &mut [T], nx: usize) -> Result<()> {
+fn inflate_page<T: Sample>(path: &Path, page: usize, dec: &mut Dec, strips: Strips, out: &mut [T], nx: usize) -> Result<()> {
     use std::os::unix::fs::FileExt;
     let row_bytes = nx * std::mem::size_of::<T>();
     let bytes: &mut [u8] = bytemuck::cast_slice_mut(out);
     let mut z = libdeflater::Decompressor::new();
     let mut packed = vec![];
     let file_len = dec.inner().get_ref().metadata().map_err(|e| Error::io(path, e))?.len();
-    for ((off, len), dst) in strips.iter().zip(bytes.chunks_mut(rows * row_bytes)) {
+    for ((off, len), dst) in strips.at.iter().zip(bytes.chunks_mut(strips.rows * row_bytes)) {
         if off.checked_add(*len).is_none_or(|end| end > file_len) {
             return Err(Error::page(path, page, "a strip runs past the end of the file (truncated?)"));
         }
@@ -327,7 +336,7 @@ fn inflate_page<T: Sample>(path: &Path, page: usize, dec: &mut Dec, (strips, row
             Err(e) => return Err(Error::page(path, page, format!("cannot inflate a strip (corrupt?): {e}"))),
         }
     }
-    if diff {
+    if strips.differenced {
         for row in out.chunks_mut(nx) {
             T::undo_differencing(row);
         }
