@@ -355,8 +355,8 @@ pub(crate) fn read_page<T: Sample>(path: &Path, page: usize, dec: &mut Dec, kind
             return dec.inner().get_ref().read_exact_at(bytes, off).map_err(|e| Error::page(path, page, format!("cannot read (truncated?): {e}")));
         }
         if let Some(strips) = deflate_strips(dec) {
-            let nx = dec.dimensions().map(|(w, _)| w as usize).unwrap_or(0);
-            return inflate_page(path, page, dec, strips, out, nx);
+            let (nx, _) = dec.dimensions().map_err(perr)?;
+            return inflate_page(path, page, dec, strips, out, nx as usize);
         }
     }
     match kind {
