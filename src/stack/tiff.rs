@@ -333,7 +333,10 @@ fn inflate_page<T: Sample>(path: &Path, page: usize, dec: &mut Dec, strips: Stri
         match z.zlib_decompress(&packed, dst) {
             Ok(n) if n == dst.len() => {}
             Ok(n) => return Err(Error::page(path, page, format!("a strip holds {n} bytes, {} expected (truncated or corrupt?)", dst.len()))),
-            Err(e) => return Err(Error::page(path, page, format!("cannot inflate a strip (corrupt?): {e}"))),
+            Err(libdeflater::DecompressionError::InsufficientSpace) => {
+                return Err(Error::page(path, page, format!("a strip holds more than the {} bytes of its rows (corrupt?)", dst.len())));
+            }
+            Err(_) => return Err(Error::page(path, page, "a compressed strip is corrupt (bad Deflate data or checksum)")),
         }
     }
     if strips.differenced {
