@@ -126,7 +126,7 @@ fn voxel_arg(s: &Option<String>) -> Result<Option<VoxelSize>> {
     }
 }
 
-/// Prints progress to stderr until `done` is set: a bar on a terminal, a line per 10 % otherwise.
+/// Prints progress to stderr until `done`'s sender is dropped: a bar on a terminal, a line per 10 % otherwise.
 fn report(p: Progress, label: &'static str, done: std::sync::mpsc::Receiver<()>) -> std::thread::JoinHandle<()> {
     std::thread::spawn(move || {
         let tty = std::io::stderr().is_terminal();
