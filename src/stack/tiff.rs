@@ -255,26 +255,37 @@ fn next(path: &Path, page: usize, dec: &mut Dec) -> Result<()> {
     dec.next_image().map_err(|e| Error::page(path, page, format!("cannot reach page: {e}")))
 }
 
-/// Where an uncompressed grey page keeps its samples as one contiguous run of `len` bytes in
-/// native byte order (offset in the file); None when any of that does not hold.
-fn raw_run(dec: &mut Dec, len: usize) -> Option<u64> {
+/// A tag's value as an unsigned number, if the page has it.
+fn tag(dec: &mut Dec, t: Tag) -> Option<u32> {
+    dec.find_tag_unsigned::<u32>(t).ok().flatten()
+}
+
+/// The compression code and the (offset, bytes) of each strip of a page with one sample a pixel,
+/// stored in strips, in native byte order; None otherwise. Both of ductline's own read paths
+/// start here.
+fn grey_strips(dec: &mut Dec) -> Option<(u32, Vec<(u64, u64)>)> {
     use tiff::decoder::ChunkType;
     use tiff::tags::ByteOrder;
-    let tag = |dec: &mut Dec, t: Tag| dec.find_tag_unsigned::<u32>(t).ok().flatten();
-    if tag(dec, Tag::Compression).unwrap_or(1) != 1 || tag(dec, Tag::SamplesPerPixel).unwrap_or(1) != 1 || dec.get_chunk_type() != ChunkType::Strip {
+    if tag(dec, Tag::SamplesPerPixel).unwrap_or(1) != 1 || dec.get_chunk_type() != ChunkType::Strip {
         return None;
     }
-    let little = matches!(dec.byte_order(), ByteOrder::LittleEndian);
-    if little != cfg!(target_endian = "little") {
+    if matches!(dec.byte_order(), ByteOrder::LittleEndian) != cfg!(target_endian = "little") {
         return None;
     }
     let offs = dec.get_tag_u64_vec(Tag::StripOffsets).ok()?;
     let counts = dec.get_tag_u64_vec(Tag::StripByteCounts).ok()?;
-    if offs.len() != counts.len() || offs.is_empty() || counts.iter().sum::<u64>() != len as u64 {
+    if offs.len() != counts.len() || offs.is_empty() {
         return None;
     }
-    let contiguous = offs.windows(2).zip(&counts).all(|(w, c)| w[1] == w[0] + c);
-    contiguous.then_some(offs[0])
+    Some((tag(dec, Tag::Compression).unwrap_or(1), offs.into_iter().zip(counts).collect()))
+}
+
+/// Where an uncompressed grey page keeps its samples as one contiguous run of `len` bytes in
+/// native byte order (offset in the file); None when any of that does not hold.
+fn raw_run(dec: &mut Dec, len: usize) -> Option<u64> {
+    let (1, strips) = grey_strips(dec)? else { return None };
+    let contiguous = strips.windows(2).all(|w| w[1].0 == w[0].0 + w[0].1);
+    (contiguous && strips.iter().map(|s| s.1).sum::<u64>() == len as u64).then_some(strips[0].0)
 }
 
 /// Where a page's Deflate strips lie and how to unpack them.
@@ -291,27 +302,18 @@ struct Strips {
 /// pixel, without a predictor or with horizontal differencing of 8/16-bit samples; None when any
 /// of that does not hold (the tiff crate then decodes the page).
 fn deflate_strips(dec: &mut Dec) -> Option<Strips> {
-    use tiff::decoder::ChunkType;
-    use tiff::tags::ByteOrder;
-    let tag = |dec: &mut Dec, t: Tag| dec.find_tag_unsigned::<u32>(t).ok().flatten();
-    let deflate = matches!(tag(dec, Tag::Compression), Some(8 | 32946));
+    let (8 | 32946, at) = grey_strips(dec)? else { return None };
     let predictor = tag(dec, Tag::Predictor).unwrap_or(1);
     let bits = tag(dec, Tag::BitsPerSample).unwrap_or(1);
-    let predictor_ok = predictor == 1 || (predictor == 2 && bits <= 16);
-    if !deflate || !predictor_ok || tag(dec, Tag::SamplesPerPixel).unwrap_or(1) != 1 || dec.get_chunk_type() != ChunkType::Strip {
-        return None;
-    }
-    if matches!(dec.byte_order(), ByteOrder::LittleEndian) != cfg!(target_endian = "little") {
+    if !(predictor == 1 || (predictor == 2 && bits <= 16)) {
         return None;
     }
     let (_, h) = dec.dimensions().ok()?;
     let rows = tag(dec, Tag::RowsPerStrip).unwrap_or(h).min(h) as usize;
-    let offs = dec.get_tag_u64_vec(Tag::StripOffsets).ok()?;
-    let counts = dec.get_tag_u64_vec(Tag::StripByteCounts).ok()?;
-    if rows == 0 || offs.len() != counts.len() || offs.len() != (h as usize).div_ceil(rows) {
+    if rows == 0 || at.len() != (h as usize).div_ceil(rows) {
         return None;
     }
-    Some(Strips { at: offs.into_iter().zip(counts).collect(), rows, differenced: predictor == 2 })
+    Some(Strips { at, rows, differenced: predictor == 2 })
 }
 
 /// Inflates a page's Deflate strips straight into `out` (libdeflate, whole strips), then undoes
@@ -399,7 +401,7 @@ fn voxel_from_tags(dec: &mut Dec) -> Option<VoxelSize> {
         }
     };
     let (xr, yr) = (res(dec, Tag::XResolution)?, res(dec, Tag::YResolution)?);
-    let unit = dec.find_tag_unsigned::<u16>(Tag::ResolutionUnit).ok().flatten().unwrap_or(2);
+    let unit = tag(dec, Tag::ResolutionUnit).unwrap_or(2);
     let unit_mm = match unit {
         2 => 25.4,
         3 => 10.0,
