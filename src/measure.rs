@@ -259,13 +259,11 @@ fn section_row(stack: &Stack, cl: &Centreline, g: &SectionGeom, s: &MeasureSetti
     let mid = [0.5 * (lam[0] + lig[0]), 0.5 * (lam[1] + lig[1])];
     let mut half = (1.5 * g.width()).max(10.0 * vmax).min(s.capture_mm);
     let levels_given = ov.and_then(|o| o.levels).or(s.levels);
-    let mut last = None;
+    let mut img = sample_section(stack, g, &line, half, pitch, None);
     loop {
-        let prev = last.take();
-        let img = last.insert(sample_section(stack, g, &line, half, pitch, prev));
         let levels = match levels_given {
             Some(l) => Some(l),
-            None => find_levels(img, (1.5 * vmax / pitch).ceil() as usize),
+            None => find_levels(&img, (1.5 * vmax / pitch).ceil() as usize),
         };
         let Some([fluid, bone]) = levels else {
             row.flags.push(Flag::LowContrast);
@@ -283,7 +281,7 @@ fn section_row(stack: &Stack, cl: &Centreline, g: &SectionGeom, s: &MeasureSetti
         // The dark class may hold other dark matter (soft tissue, air) besides fluid: take the fluid
         // level from the interior of the scalae themselves, then segment again.
         if levels_given.is_none()
-            && let Some(f) = lumen_level(img, &line, mid, thr, vmax, g.width(), erode)
+            && let Some(f) = lumen_level(&img, &line, mid, thr, vmax, g.width(), erode)
         {
             row.levels = [f, bone];
             thr = 0.5 * (f + bone);
@@ -295,12 +293,12 @@ fn section_row(stack: &Stack, cl: &Centreline, g: &SectionGeom, s: &MeasureSetti
         let mut missing = false;
         for (k, side) in [1.0f64, -1.0].into_iter().enumerate() {
             let given = ov.and_then(|o| if k == 0 { o.seed_sv } else { o.seed_st });
-            let seed = given.and_then(|q| img.index(q)).or_else(|| find_seed(img, &line, mid, side, thr, vmax, g.width()));
+            let seed = given.and_then(|q| img.index(q)).or_else(|| find_seed(&img, &line, mid, side, thr, vmax, g.width()));
             let Some(seed) = seed else {
                 missing = true;
                 continue;
             };
-            let r = grow(img, seed, side, thr);
+            let r = grow(&img, seed, side, thr);
             // the region and its edge band must fit inside the square
             let b = r.bounds;
             if b.a0.min(b.b0).min(img.n - b.a1).min(img.n - b.b1) < band && half < s.capture_mm {
@@ -308,11 +306,12 @@ fn section_row(stack: &Stack, cl: &Centreline, g: &SectionGeom, s: &MeasureSetti
                 break;
             }
             open |= r.touches_border || r.touches_nan;
-            let (area, field, centroid) = fraction_area(img, &r, side, thr, fluid, bone, band);
-            scalae[k] = Scala { area: Some(area), outline: outline(img, &field, centroid), centroid, seed: Some(img.uv(seed)) };
+            let (area, field, centroid) = fraction_area(&img, &r, side, thr, fluid, bone, band);
+            scalae[k] = Scala { area: Some(area), outline: outline(&img, &field, centroid), centroid, seed: Some(img.uv(seed)) };
         }
         if grow_more {
             half = (half * GROWTH).min(s.capture_mm);
+            img = sample_section(stack, g, &line, half, pitch, Some(img));
             continue;
         }
         if missing {
