@@ -144,8 +144,14 @@ impl Centreline {
         let pick = |k: Kind| -> (Vec<usize>, Vec<f64>) { edge_idx.iter().zip(&theta).filter(|(i, _)| items[**i].kind == k).map(|(i, t)| (*i, *t)).unzip() };
         let (li, lt) = pick(Kind::Lamina);
         let (gi, gt) = pick(Kind::Ligament);
-        let lamina = fit_edge(frame, items, &li, &lt, Kind::Lamina, s)?;
-        let ligament = fit_edge(frame, items, &gi, &gt, Kind::Ligament, s)?;
+        // the two edges are independent: the ligament is fitted on a thread of its own (not the
+        // rayon pool, which a measure in the background may keep busy while the app refits)
+        let (lamina, ligament) = std::thread::scope(|sc| {
+            let lig = sc.spawn(|| fit_edge(frame, items, &gi, &gt, Kind::Ligament, s));
+            let lam = fit_edge(frame, items, &li, &lt, Kind::Lamina, s);
+            (lam, lig.join().unwrap_or_else(|e| std::panic::resume_unwind(e)))
+        });
+        let (lamina, ligament) = (lamina?, ligament?);
         let t0 = lamina.range.0.max(ligament.range.0);
         let t1 = lamina.range.1.min(ligament.range.1);
         if t1 - t0 < 90f64.to_radians() {

@@ -151,6 +151,10 @@ pub const OUTLINE_POINTS: usize = 64;
 /// Factor by which a section square grows when a scala does not fit in it.
 const GROWTH: f64 = 1.25;
 
+/// First half-size of a section square, in partition widths (1.5: the fastest on the phantoms;
+/// a smaller square has to grow more often, a larger one samples more bone).
+const START_HALF: f64 = 1.5;
+
 /// Measures every section. Parallel over sections; `progress` counts sections and can cancel.
 pub fn measure(
     stack: &Stack,
@@ -257,7 +261,7 @@ fn section_row(stack: &Stack, cl: &Centreline, g: &SectionGeom, s: &MeasureSetti
     }
     let line = Line { p: lam, n };
     let mid = [0.5 * (lam[0] + lig[0]), 0.5 * (lam[1] + lig[1])];
-    let mut half = (1.5 * g.width()).max(10.0 * vmax).min(s.capture_mm);
+    let mut half = (START_HALF * g.width()).max(10.0 * vmax).min(s.capture_mm);
     let levels_given = ov.and_then(|o| o.levels).or(s.levels);
     let mut img = sample_section(stack, g, &line, half, pitch, None);
     loop {
@@ -280,11 +284,21 @@ fn section_row(stack: &Stack, cl: &Centreline, g: &SectionGeom, s: &MeasureSetti
         let erode = (vmax / pitch).ceil() as usize;
         // The dark class may hold other dark matter (soft tissue, air) besides fluid: take the fluid
         // level from the interior of the scalae themselves, then segment again.
-        if levels_given.is_none()
-            && let Some(f) = lumen_level(&img, &line, mid, thr, vmax, g.width(), erode)
-        {
-            row.levels = [f, bone];
-            thr = 0.5 * (f + bone);
+        let can_grow = half < s.capture_mm;
+        if levels_given.is_none() {
+            match lumen_level(&img, &line, mid, thr, vmax, g.width(), erode, band) {
+                // a scala already overflows the square: grow it before refining anything
+                Lumen::Overflows if can_grow => {
+                    half = (half * GROWTH).min(s.capture_mm);
+                    img = sample_section(stack, g, &line, half, pitch, Some(img));
+                    continue;
+                }
+                Lumen::Level(f) => {
+                    row.levels = [f, bone];
+                    thr = 0.5 * (f + bone);
+                }
+                _ => {}
+            }
         }
         let [fluid, bone] = row.levels;
         let mut grow_more = false;
@@ -300,8 +314,7 @@ fn section_row(stack: &Stack, cl: &Centreline, g: &SectionGeom, s: &MeasureSetti
             };
             let r = grow(&img, seed, side, thr);
             // the region and its edge band must fit inside the square
-            let b = r.bounds;
-            if b.a0.min(b.b0).min(img.n - b.a1).min(img.n - b.b1) < band && half < s.capture_mm {
+            if r.overflows(img.n, band) && can_grow {
                 grow_more = true;
                 break;
             }
@@ -469,13 +482,27 @@ impl BoxCount {
     }
 }
 
-/// Median of the interior pixels (at least `erode` pixels from any non-region pixel) of both
-/// scalae grown at threshold `thr`; None when neither has interior pixels.
-fn lumen_level(img: &Img, line: &Line, mid: [f64; 2], thr: f32, vmax: f64, width: f64, erode: usize) -> Option<f32> {
+/// What the scalae grown at a first threshold tell of the fluid level.
+enum Lumen {
+    /// Median of the interior pixels (at least `erode` pixels from any non-region pixel).
+    Level(f32),
+    /// A scala comes within the edge band of the square's border.
+    Overflows,
+    /// Neither scala has interior pixels.
+    Unknown,
+}
+
+/// The fluid level from both scalae grown at threshold `thr`, or word that one of them does
+/// not fit in the square with its edge band of `band` pixels.
+#[allow(clippy::too_many_arguments)]
+fn lumen_level(img: &Img, line: &Line, mid: [f64; 2], thr: f32, vmax: f64, width: f64, erode: usize, band: usize) -> Lumen {
     let mut vals = vec![];
     for side in [1.0, -1.0] {
         let Some(seed) = find_seed(img, line, mid, side, thr, vmax, width) else { continue };
         let r = grow(img, seed, side, thr);
+        if r.overflows(img.n, band) {
+            return Lumen::Overflows;
+        }
         let inside = BoxCount::new(img.n, r.bounds, |i| r.mask[i]);
         let full = ((2 * erode + 1) * (2 * erode + 1)) as u32;
         inside.each_square(img.n, erode, |i, c| {
@@ -485,9 +512,9 @@ fn lumen_level(img: &Img, line: &Line, mid: [f64; 2], thr: f32, vmax: f64, width
         });
     }
     if vals.len() < 4 {
-        return None;
+        return Lumen::Unknown;
     }
-    Some(median_f32(&mut vals))
+    Lumen::Level(median_f32(&mut vals))
 }
 
 /// A dark pixel on the given side of the partition, a little way off its midpoint, whose 3×3
@@ -538,6 +565,14 @@ struct Region {
     bounds: Rect,
     touches_border: bool,
     touches_nan: bool,
+}
+
+impl Region {
+    /// The region comes within `band` pixels of the border of the n×n square.
+    fn overflows(&self, n: usize, band: usize) -> bool {
+        let b = self.bounds;
+        b.a0.min(b.b0).min(n - b.a1).min(n - b.b1) < band
+    }
 }
 
 /// 4-connected flood fill from `seed` over dark pixels on one side of the partition line.

@@ -245,10 +245,20 @@ fn gcv_lambda(sys: &System, y: &[f64]) -> Result<f64> {
     let scores: Vec<f64> = grid.iter().map(|&g| score(g)).collect();
     let best = (0..grid.len()).min_by(|&a, &b| scores[a].total_cmp(&scores[b])).unwrap_or(0);
     let (mut lo, mut hi) = (grid[best.saturating_sub(1)], grid[(best + 1).min(grid.len() - 1)]);
+    // golden-section search: each step keeps one inner point and its score (φ² = 1 − φ)
     let phi = 0.618_033_988_75;
+    let (mut a, mut b) = (hi - phi * (hi - lo), lo + phi * (hi - lo));
+    let (mut fa, mut fb) = (score(a), score(b));
     for _ in 0..30 {
-        let (a, b) = (hi - phi * (hi - lo), lo + phi * (hi - lo));
-        if score(a) < score(b) { hi = b } else { lo = a }
+        if fa < fb {
+            (hi, b, fb) = (b, a, fa);
+            a = hi - phi * (hi - lo);
+            fa = score(a);
+        } else {
+            (lo, a, fa) = (a, b, fb);
+            b = lo + phi * (hi - lo);
+            fb = score(b);
+        }
     }
     Ok(scale * 10f64.powf(0.5 * (lo + hi)))
 }
