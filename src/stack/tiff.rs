@@ -294,6 +294,8 @@ struct Strips {
     at: Vec<(u64, u64)>,
     /// Rows a strip (the last may hold fewer).
     rows: usize,
+    /// Samples a row.
+    width: usize,
     /// Horizontal differencing (TIFF Predictor 2) to undo.
     differenced: bool,
 }
@@ -308,20 +310,20 @@ fn deflate_strips(dec: &mut Dec) -> Option<Strips> {
     if !(predictor == 1 || (predictor == 2 && bits <= 16)) {
         return None;
     }
-    let (_, h) = dec.dimensions().ok()?;
+    let (w, h) = dec.dimensions().ok()?;
     let rows = tag(dec, Tag::RowsPerStrip).unwrap_or(h).min(h) as usize;
     if rows == 0 || at.len() != (h as usize).div_ceil(rows) {
         return None;
     }
-    Some(Strips { at, rows, differenced: predictor == 2 })
+    Some(Strips { at, rows, width: w as usize, differenced: predictor == 2 })
 }
 
 /// Inflates a page's Deflate strips straight into `out` (libdeflate, whole strips), then undoes
 /// horizontal differencing if the page uses it.
 #[cfg(unix)]
-fn inflate_page<T: Sample>(path: &Path, page: usize, dec: &mut Dec, strips: Strips, out: &mut [T], nx: usize) -> Result<()> {
+fn inflate_page<T: Sample>(path: &Path, page: usize, dec: &mut Dec, strips: Strips, out: &mut [T]) -> Result<()> {
     use std::os::unix::fs::FileExt;
-    let row_bytes = nx * std::mem::size_of::<T>();
+    let row_bytes = strips.width * std::mem::size_of::<T>();
     let bytes: &mut [u8] = bytemuck::cast_slice_mut(out);
     let mut z = libdeflater::Decompressor::new();
     let mut packed = vec![];
@@ -342,7 +344,7 @@ fn inflate_page<T: Sample>(path: &Path, page: usize, dec: &mut Dec, strips: Stri
         }
     }
     if strips.differenced {
-        for row in out.chunks_mut(nx) {
+        for row in out.chunks_mut(strips.width) {
             T::undo_differencing(row);
         }
     }
@@ -360,8 +362,7 @@ pub(crate) fn read_page<T: Sample>(path: &Path, page: usize, dec: &mut Dec, kind
             return dec.inner().get_ref().read_exact_at(bytes, off).map_err(|e| Error::page(path, page, format!("cannot read (truncated?): {e}")));
         }
         if let Some(strips) = deflate_strips(dec) {
-            let (nx, _) = dec.dimensions().map_err(perr)?;
-            return inflate_page(path, page, dec, strips, out, nx as usize);
+            return inflate_page(path, page, dec, strips, out);
         }
     }
     match kind {
