@@ -103,7 +103,7 @@ fn main() {
     println!("after viewing: peak RSS {:.2} GB = {:.3} × stack ({nx}×{ny}×{nz})", rss("VmHWM:") / 1e9, rss("VmHWM:") / st.bytes() as f64);
     if let Some(lm) = a.get(4) {
         let items = ductline::landmarks::read_csv(std::path::Path::new(lm), Some(&st)).unwrap();
-        let cl = ductline::pipeline::fit(&items, &FitSettings::default()).unwrap();
+        let cl = ductline::pipeline::fit(&items, &FitSettings::default(), st.voxel().unwrap().max()).unwrap();
         let ms_ = MeasureSettings { step_mm: cl.length / 400.0, ..Default::default() };
         let t = Instant::now();
         let (_, rows) = ductline::measure::measure(&st, &cl, &ms_, &[], &Greenwood::preset("human").unwrap(), &Progress::new()).unwrap();

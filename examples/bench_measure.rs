@@ -25,7 +25,7 @@ fn main() {
     if let Some(dir) = std::env::args().nth(2) {
         phantom::write(&ph, std::path::Path::new(&dir)).unwrap();
     }
-    let cl = pipeline::fit(&ph.landmarks, &FitSettings::default()).unwrap();
+    let cl = pipeline::fit(&ph.landmarks, &FitSettings::default(), ph.stack.voxel().unwrap().max()).unwrap();
     // sampler throughput: the planes of 400 sections, 2.4 mm square at half-voxel pitch
     let step = cl.length / 400.0;
     let geoms = section::geometry(&cl, step);

@@ -4,7 +4,8 @@
 //!
 //! Angles here are radians (θ, unwrapped, 0 toward the round window); lengths mm.
 
-use crate::frame::{Frame, v3, v3::V, wrap180};
+use crate::frame::{Frame, Handedness, v3, v3::V};
+use crate::spiral;
 use crate::landmarks::{Kind, Landmark};
 use crate::spline::SmoothSpline;
 use crate::{Error, Result};
@@ -15,7 +16,8 @@ use serde::{Deserialize, Serialize};
 pub struct FitSettings {
     /// Smoothing λ for all four curves (radius and height of both edges); None = chosen by GCV.
     pub smoothing: Option<f64>,
-    /// A landmark whose residual exceeds median + this × 1.4826·MAD is flagged.
+    /// A landmark whose residual exceeds this many times the fit's noise estimate (and at least
+    /// one voxel plus the noise) is reported as an outlier.
     pub outlier_mads: f64,
 }
 
@@ -29,6 +31,16 @@ impl Default for FitSettings {
 const RESIDUAL_FLOOR_MM: f64 = 0.005;
 /// Relative tolerance of the arc-length quadrature.
 pub const LENGTH_TOL: f64 = 1e-11;
+/// Tukey's biweight cut-off, in noise σ of the two-dimensional (radius, height) residual.
+const BIWEIGHT_C: f64 = 4.5;
+/// Smallest weight a landmark keeps in the robust fit (so the spline system stays well posed)…
+const MIN_WEIGHT: f64 = 1e-3;
+/// …and below this it leaves the spline for that pass.
+const DROP_WEIGHT: f64 = 0.01;
+/// Median of a 2-D Gaussian residual's length is √(2 ln 2)·σ (Rayleigh distribution).
+const RAYLEIGH_MEDIAN: f64 = 1.177_410_022_515_474_6;
+/// The basal diameter A is reported when the ligament landmarks reach this close (degrees) to 0° and 180°.
+const A_REACH_DEG: f64 = 5.0;
 
 /// One fitted edge (lamina or ligament).
 #[derive(Clone, Debug)]
@@ -39,6 +51,11 @@ pub struct Edge {
     pub range: (f64, f64),
     /// Per landmark used: (index into the landmark list, θ rad, residual mm, flagged).
     pub residuals: Vec<(usize, f64, f64, bool)>,
+    /// Robust weight of each landmark in the fit (same order as `residuals`; near 0 = ignored).
+    pub weights: Vec<f64>,
+    /// The fit's noise estimate σ (mm) and the residual above which a landmark is flagged (mm).
+    pub noise_mm: f64,
+    pub limit_mm: f64,
 }
 
 impl Edge {
@@ -60,37 +77,18 @@ pub struct Centreline {
     pub t1: f64,
     /// Total length (mm).
     pub length: f64,
+    /// Landmarks that could belong to another turn: (index, assigned θ rad, alternative θ rad).
+    pub ambiguous: Vec<(usize, f64, f64)>,
     nodes: Vec<f64>,
     cum: Vec<f64>,
 }
 
-/// Unwrapped angles (rad) of partition landmarks: ordered by height, each step taken as the
-/// shortest turn from the one before; the lowest starts in [−90°, 270°).
-pub fn unwrap_angles(frame: &Frame, pts: &[V]) -> Vec<f64> {
-    let c: Vec<[f64; 3]> = pts.iter().map(|p| frame.to_cochlear(*p)).collect();
-    let mut order: Vec<usize> = (0..pts.len()).collect();
-    order.sort_by(|&a, &b| c[a][2].total_cmp(&c[b][2]));
-    let mut out = vec![0.0; pts.len()];
-    let mut prev: Option<f64> = None;
-    for &i in &order {
-        let a = c[i][1];
-        let t = match prev {
-            None => {
-                if a < -90.0 {
-                    a + 360.0
-                } else {
-                    a
-                }
-            }
-            Some(p) => p + wrap180(a - p),
-        };
-        out[i] = t;
-        prev = Some(t);
-    }
-    out.into_iter().map(f64::to_radians).collect()
-}
-
-fn fit_edge(frame: &Frame, items: &[Landmark], idx: &[usize], theta: &[f64], kind: Kind, s: &FitSettings) -> Result<Edge> {
+/// Robust smoothing fit of one edge: radius and height against θ, iteratively reweighted with
+/// Tukey's biweight on leave-one-out residuals (so a point the curve bends toward still shows
+/// its misfit), the smoothing re-chosen by weighted GCV at each pass. `voxel_mm` (largest side,
+/// 0 when unknown) bounds the noise estimate and the outlier limit from below.
+#[allow(clippy::too_many_arguments)]
+fn fit_edge(frame: &Frame, items: &[Landmark], idx: &[usize], theta: &[f64], kind: Kind, s: &FitSettings, voxel_mm: f64) -> Result<Edge> {
     if idx.len() < 4 {
         return Err(Error::invalid(format!("{} {} landmarks: the fit needs at least 4", idx.len(), kind.as_str())));
     }
@@ -102,7 +100,7 @@ fn fit_edge(frame: &Frame, items: &[Landmark], idx: &[usize], theta: &[f64], kin
             (t, c[0], c[2], i)
         })
         .collect();
-    pts.sort_by(|a, b| a.0.total_cmp(&b.0));
+    pts.sort_by(|a, b| a.0.total_cmp(&b.0).then(a.3.cmp(&b.3)));
     // equal angles: nudge apart by a negligible amount so the knots increase strictly
     for k in 1..pts.len() {
         if pts[k].0 <= pts[k - 1].0 {
@@ -114,14 +112,62 @@ fn fit_edge(frame: &Frame, items: &[Landmark], idx: &[usize], theta: &[f64], kin
         return Err(Error::invalid(format!("{} landmarks span {span:.0}°: the fit needs at least 90°", kind.as_str())));
     }
     let t: Vec<f64> = pts.iter().map(|p| p.0).collect();
-    let r = SmoothSpline::fit(&t, &pts.iter().map(|p| p.1).collect::<Vec<_>>(), s.smoothing)?;
-    let z = SmoothSpline::fit(&t, &pts.iter().map(|p| p.2).collect::<Vec<_>>(), s.smoothing)?;
-    let res: Vec<f64> = pts.iter().map(|p| (p.1 - r.eval(p.0)).hypot(p.2 - z.eval(p.0))).collect();
-    let med = median(&res);
-    let mad = 1.4826 * median(&res.iter().map(|x| (x - med).abs()).collect::<Vec<_>>());
-    let limit = (med + s.outlier_mads * mad).max(RESIDUAL_FLOOR_MM);
+    let (rr, zz): (Vec<f64>, Vec<f64>) = pts.iter().map(|p| (p.1, p.2)).unzip();
+    let sigma_floor = (0.25 * voxel_mm).max(0.002);
+    // Tukey's biweight of misfits `e` (mm), each allowed `slack[k]` mm on top of the noise scale;
+    // also returns the noise estimate σ (mm)
+    let biweight = |e: &[f64], slack: &[f64]| -> (Vec<f64>, f64) {
+        let noise = median(e) / RAYLEIGH_MEDIAN;
+        let scale = BIWEIGHT_C * noise.max(sigma_floor);
+        (e.iter().zip(slack).map(|(e, sl)| (1.0 - (e / (scale + sl)).powi(2)).max(0.0).powi(2).max(MIN_WEIGHT)).collect(), noise)
+    };
+    // first weights from each point's distance to the median of its two neighbours on either
+    // side: a spike cannot pull that, where it can pull a first spline (GCV then interpolates it).
+    // A coarse trace of a curving turn misses that median by more than noise, but so do its
+    // neighbours, where a lone spike stands out: here and in every pass, a misfit is allowed
+    // twice the median misfit of its two neighbours on either side.
+    let around = |y: &[f64], k: usize| -> f64 { median(&(k.saturating_sub(2)..(k + 3).min(y.len())).filter(|&j| j != k).map(|j| y[j]).collect::<Vec<_>>()) };
+    let start: Vec<f64> = (0..t.len()).map(|k| (rr[k] - around(&rr, k)).hypot(zz[k] - around(&zz, k))).collect();
+    let slack: Vec<f64> = (0..t.len()).map(|k| 2.0 * around(&start, k)).collect();
+    let mut w = biweight(&start, &slack).0;
+    let (mut r, mut z, mut noise);
+    let mut pass = 0;
+    loop {
+        // points the biweight has all but rejected leave the spline (a free knot would only add a
+        // kink and blur the cross-validation); their misfit is then their plain residual
+        let keep: Vec<usize> = (0..t.len()).filter(|&k| w[k] >= DROP_WEIGHT).collect();
+        if keep.len() < 4 {
+            return Err(Error::invalid(format!("{} landmarks disagree too much to fit one curve: check them", kind.as_str())));
+        }
+        let pick = |v: &[f64]| -> Vec<f64> { keep.iter().map(|&k| v[k]).collect() };
+        let (tk, wk) = (pick(&t), pick(&w));
+        r = SmoothSpline::fit_weighted(&tk, &pick(&rr), &wk, s.smoothing)?;
+        z = SmoothSpline::fit_weighted(&tk, &pick(&zz), &wk, s.smoothing)?;
+        let mut lev = vec![(0.0, 0.0); t.len()];
+        for (j, &k) in keep.iter().enumerate() {
+            lev[k] = (r.leverage[j], z.leverage[j]);
+        }
+        let loo: Vec<f64> = (0..t.len())
+            .map(|k| {
+                let er = (rr[k] - r.eval(t[k])) / (1.0 - lev[k].0).max(1e-12);
+                let ez = (zz[k] - z.eval(t[k])) / (1.0 - lev[k].1).max(1e-12);
+                er.hypot(ez)
+            })
+            .collect();
+        let slack: Vec<f64> = (0..t.len()).map(|k| 2.0 * around(&loo, k)).collect();
+        let next;
+        (next, noise) = biweight(&loo, &slack);
+        let change = next.iter().zip(&w).map(|(a, b)| (a - b).abs()).fold(0.0, f64::max);
+        pass += 1;
+        if change < 1e-3 || pass == 20 {
+            break;
+        }
+        w = next;
+    }
+    let res: Vec<f64> = (0..t.len()).map(|k| (rr[k] - r.eval(t[k])).hypot(zz[k] - z.eval(t[k]))).collect();
+    let limit = (s.outlier_mads * noise).max(voxel_mm + noise).max(RESIDUAL_FLOOR_MM);
     let residuals = pts.iter().zip(&res).map(|(p, &e)| (p.3, p.0, e, e > limit)).collect();
-    Ok(Edge { r, z, range: (t[0], t[t.len() - 1]), residuals })
+    Ok(Edge { r, z, range: (t[0], t[t.len() - 1]), residuals, weights: w, noise_mm: noise, limit_mm: limit })
 }
 
 /// Median of a non-empty slice (0 for empty).
@@ -136,19 +182,41 @@ pub fn median(x: &[f64]) -> f64 {
 }
 
 impl Centreline {
-    /// Fits both edges and builds the midline. Errors: too few landmarks, span under 90°, edges
-    /// that cross, no common angular range.
+    /// Fits both edges and builds the midline, with no voxel size known (see [`Centreline::fit_at`]).
     pub fn fit(frame: &Frame, items: &[Landmark], s: &FitSettings) -> Result<Centreline> {
-        let edge_idx: Vec<usize> = (0..items.len()).filter(|&i| matches!(items[i].kind, Kind::Lamina | Kind::Ligament)).collect();
-        let theta = unwrap_angles(frame, &edge_idx.iter().map(|&i| items[i].p).collect::<Vec<_>>());
-        let pick = |k: Kind| -> (Vec<usize>, Vec<f64>) { edge_idx.iter().zip(&theta).filter(|(i, _)| items[**i].kind == k).map(|(i, t)| (*i, *t)).unzip() };
-        let (li, lt) = pick(Kind::Lamina);
-        let (gi, gt) = pick(Kind::Ligament);
+        Self::fit_at(frame, items, s, 0.0)
+    }
+
+    /// Fits both edges and builds the midline. Angles come from walking the spiral
+    /// ([`crate::spiral`]); if the landmarks turn against the frame's handedness the frame is
+    /// turned over. `voxel_mm`: the largest voxel side (0 when unknown), the smallest residual
+    /// ever called an outlier. Errors: too few landmarks, span under 90°, edges that cross, no
+    /// common angular range.
+    pub fn fit_at(frame: &Frame, items: &[Landmark], s: &FitSettings, voxel_mm: f64) -> Result<Centreline> {
+        let of = |k: Kind| -> Vec<usize> { (0..items.len()).filter(|&i| items[i].kind == k).collect() };
+        let (li, gi) = (of(Kind::Lamina), of(Kind::Ligament));
+        let pts = |ix: &[usize]| -> Vec<V> { ix.iter().map(|&i| items[i].p).collect() };
+        let turns = spiral::assign(frame, &pts(&li), &pts(&gi));
+        let mut frame = frame.clone();
+        if turns.reversed {
+            frame.handed = match frame.handed {
+                Handedness::Right => Handedness::Left,
+                Handedness::Left => Handedness::Right,
+            };
+        }
+        let frame = &frame;
+        let rad = |v: &[f64]| -> Vec<f64> { v.iter().map(|t| t.to_radians()).collect() };
+        let (lt, gt) = (rad(&turns.lamina), rad(&turns.ligament));
+        let ambiguous = turns
+            .ambiguous
+            .iter()
+            .map(|&(e, k, t, alt)| (if e == 0 { li[k] } else { gi[k] }, t.to_radians(), alt.to_radians()))
+            .collect();
         // the two edges are independent: the ligament is fitted on a thread of its own (not the
         // rayon pool, which a measure in the background may keep busy while the app refits)
         let (lamina, ligament) = std::thread::scope(|sc| {
-            let lig = sc.spawn(|| fit_edge(frame, items, &gi, &gt, Kind::Ligament, s));
-            let lam = fit_edge(frame, items, &li, &lt, Kind::Lamina, s);
+            let lig = sc.spawn(|| fit_edge(frame, items, &gi, &gt, Kind::Ligament, s, voxel_mm));
+            let lam = fit_edge(frame, items, &li, &lt, Kind::Lamina, s, voxel_mm);
             (lam, lig.join().unwrap_or_else(|e| std::panic::resume_unwind(e)))
         });
         let (lamina, ligament) = (lamina?, ligament?);
@@ -164,7 +232,7 @@ impl Centreline {
                 return Err(Error::invalid(format!("lamina and ligament curves cross near {:.0}°: check the landmark kinds there", t.to_degrees())));
             }
         }
-        let mut cl = Centreline { frame: frame.clone(), lamina, ligament, t0, t1, length: 0.0, nodes: vec![], cum: vec![] };
+        let mut cl = Centreline { frame: frame.clone(), lamina, ligament, t0, t1, length: 0.0, ambiguous, nodes: vec![], cum: vec![] };
         let nodes: Vec<f64> = (0..=n).map(|k| t0 + (t1 - t0) * k as f64 / n as f64).collect();
         let mut cum = vec![0.0];
         for w in nodes.windows(2) {
@@ -272,9 +340,14 @@ impl Centreline {
     }
 
     /// Basal diameter A (mm): from the round-window direction through the axis to the opposite side,
-    /// on the fitted ligament (lateral) curve: r(0°) + r(180°).
-    pub fn basal_diameter(&self) -> f64 {
-        self.ligament.r.eval(0.0) + self.ligament.r.eval(std::f64::consts::PI)
+    /// on the fitted ligament (lateral) curve: r(0°) + r(180°). Err with the reason when the
+    /// ligament landmarks do not reach both 0° and 180° (it would be extrapolated).
+    pub fn basal_diameter(&self) -> std::result::Result<f64, String> {
+        let (a, b) = (self.ligament.range.0.to_degrees(), self.ligament.range.1.to_degrees());
+        if a > A_REACH_DEG || b < 180.0 - A_REACH_DEG {
+            return Err(format!("the ligament landmarks run from {a:.0}° to {b:.0}°, not over both 0° and 180°"));
+        }
+        Ok(self.ligament.r.eval(0.0) + self.ligament.r.eval(std::f64::consts::PI))
     }
 }
 

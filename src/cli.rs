@@ -308,10 +308,11 @@ pub fn measure(a: MeasureArgs) -> Result<()> {
     if let Some(dir) = &a.stl {
         export::write_stl(&out, dir)?;
     }
-    for (i, t, r) in out.centreline.flagged() {
-        eprintln!("warning: landmark #{} ({}) at {:.0}° lies {:.3} mm from the fitted curve", i + 1, prj.landmarks[i].kind.as_str(), t.to_degrees(), r);
+    for line in pipeline::fit_warnings(&out.centreline, &prj.landmarks) {
+        eprintln!("warning: {line}");
     }
     eprintln!("{}", out.summary());
     eprintln!("wrote {}", a.out.display());
     Ok(())
 }
+

@@ -119,7 +119,15 @@ pub fn table_json(out: &Outcome, prov: &Provenance) -> serde_json::Value {
             "length_mm": cl.length,
             "angular_depth_deg": cl.depth_deg(),
             "turns": cl.depth_deg() / 360.0,
-            "length_estimates": out.estimates,
+            "angle_range_deg": [cl.t0.to_degrees(), cl.t1.to_degrees()],
+            "length_estimates": out.estimates.as_ref().ok(),
+            "length_estimates_note": match &out.estimates {
+                Ok(_) => "Escudé 2006: lateral wall to the traced angular depth; Alexiades 2015: the full cochlea".to_string(),
+                Err(why) => format!("basal diameter A not given: {why}"),
+            },
+            "landmark_warnings": cl.flagged().iter().map(|(i, t, r)| serde_json::json!({"landmark": i + 1, "angle_deg": t.to_degrees(), "residual_mm": r}))
+                .chain(cl.ambiguous.iter().map(|(i, t, alt)| serde_json::json!({"landmark": i + 1, "angle_deg": t.to_degrees(), "could_be_deg": alt.to_degrees()})))
+                .collect::<Vec<_>>(),
             "columns": COLUMNS,
             "units": units,
             "materials": {

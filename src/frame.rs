@@ -137,15 +137,6 @@ impl Frame {
     }
 }
 
-/// Handedness from partition points (stack mm) in a right-handed frame: ordered by height, the
-/// spiral advances in the direction in which the angle steps mostly go. Needs ≥ 2 points.
-pub fn detect_handedness(right: &Frame, points: &[V]) -> Handedness {
-    let mut c: Vec<[f64; 3]> = points.iter().map(|p| right.to_cochlear(*p)).collect();
-    c.sort_by(|a, b| a[2].total_cmp(&b[2]));
-    let turn: f64 = c.windows(2).map(|w| wrap180(w[1][1] - w[0][1])).sum();
-    if turn >= 0.0 { Handedness::Right } else { Handedness::Left }
-}
-
 /// Wraps an angle in degrees into (−180, 180].
 pub fn wrap180(a: f64) -> f64 {
     let mut x = a % 360.0;

@@ -1,7 +1,7 @@
 //! Landmarks: the five kinds, the CSV file (`kind,x_mm,y_mm,z_mm`, stack-frame mm) and edits with
 //! undo/redo.
 
-use crate::frame::{self, Frame, Handedness};
+use crate::frame::{Frame, Handedness};
 use crate::stack::Stack;
 use crate::{Error, Result};
 use serde::{Deserialize, Serialize};
@@ -126,8 +126,8 @@ pub fn single(items: &[Landmark], kind: Kind) -> Result<[f64; 3]> {
 pub fn frame_from(items: &[Landmark]) -> Result<Frame> {
     let (b, a, w) = (single(items, Kind::AxisBase)?, single(items, Kind::AxisApex)?, single(items, Kind::Window)?);
     let right = Frame::new(b, a, w, Handedness::Right)?;
-    let edge: Vec<[f64; 3]> = items.iter().filter(|l| matches!(l.kind, Kind::Lamina | Kind::Ligament)).map(|l| l.p).collect();
-    let handed = frame::detect_handedness(&right, &edge);
+    let of = |k: Kind| -> Vec<[f64; 3]> { items.iter().filter(|l| l.kind == k).map(|l| l.p).collect() };
+    let handed = crate::spiral::handedness(&right, &of(Kind::Lamina), &of(Kind::Ligament));
     Frame::new(b, a, w, handed)
 }
 

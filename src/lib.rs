@@ -1,7 +1,8 @@
 //! ductline: cochlear duct geometry from micro-CT stacks.
 //!
 //! The pipeline reads top to bottom, one module a step:
-//! [`stack`] (voxels) → [`frame`] (cochlear coordinates) → [`landmarks`] → [`centreline`]
+//! [`stack`] (voxels) → [`frame`] (cochlear coordinates) → [`landmarks`] → [`spiral`] (turns)
+//! → [`centreline`]
 //! → [`section`] (resampled planes) → [`measure`] (areas, width, wall) → [`export`] (tables, STL).
 //! [`project`] keeps all of it in one file; [`phantom`] writes synthetic stacks with known truth.
 //! The library never touches the GUI; `src/app/` is the only place that does.
@@ -24,6 +25,7 @@ pub mod pipeline;
 pub mod progress;
 pub mod project;
 pub mod section;
+pub mod spiral;
 pub mod spline;
 pub mod stack;
 

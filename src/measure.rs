@@ -41,13 +41,11 @@ pub struct MeasureSettings {
     pub capture_mm: f64,
     /// Fluid and bone grey levels for all sections; None = found per section.
     pub levels: Option<[f32; 2]>,
-    /// Sections within this many degrees of a flagged landmark are flagged `outlier`.
-    pub outlier_window_deg: f64,
 }
 
 impl Default for MeasureSettings {
     fn default() -> Self {
-        MeasureSettings { step_mm: 0.1, pitch_mm: None, capture_mm: 3.0, levels: None, outlier_window_deg: 15.0 }
+        MeasureSettings { step_mm: 0.1, pitch_mm: None, capture_mm: 3.0, levels: None }
     }
 }
 
@@ -73,8 +71,6 @@ pub enum Flag {
     Open,
     /// The section lies beyond the landmarks of an edge.
     Extrapolated,
-    /// A flagged landmark lies near this section.
-    Outlier,
     /// No dark pixel found to start a scala from.
     NoSeed,
     /// Fluid and bone levels too close to separate.
@@ -90,7 +86,6 @@ impl Flag {
         match self {
             Flag::Open => "open",
             Flag::Extrapolated => "extrapolated",
-            Flag::Outlier => "outlier",
             Flag::NoSeed => "no_seed",
             Flag::LowContrast => "low_contrast",
             Flag::Excluded => "excluded",
@@ -143,6 +138,21 @@ impl Row {
     pub fn sound(&self) -> bool {
         self.flags.is_empty()
     }
+
+    /// The one rule for flags: each flag blanks the values it concerns, so a value that is not
+    /// sound is never written. `extrapolated` and `excluded` blank every measure of the row;
+    /// `open`, `no_seed` and `low_contrast` blank both areas; `no_wall` blanks the wall.
+    pub fn blank_unsound(&mut self) {
+        for f in self.flags.clone() {
+            match f {
+                Flag::Extrapolated | Flag::Excluded => {
+                    (self.sv.area, self.st.area, self.partition_width_mm, self.wall_mm) = (None, None, None, None);
+                }
+                Flag::Open | Flag::NoSeed | Flag::LowContrast => (self.sv.area, self.st.area) = (None, None),
+                Flag::NoWall => self.wall_mm = None,
+            }
+        }
+    }
 }
 
 /// Points on the star outline of each scala.
@@ -170,7 +180,6 @@ pub fn measure(
     }
     let geoms = section::geometry(cl, s.step_mm);
     progress.start(geoms.len() as u64);
-    let flagged: Vec<f64> = cl.flagged().iter().map(|f| f.1).collect();
     let pitch = s.pitch_mm.unwrap_or(f64::INFINITY).min(0.5 * vox.min());
     let rows = geoms
         .par_iter()
@@ -181,9 +190,7 @@ pub fn measure(
             if cl.extrapolated(g.theta) {
                 row.flags.push(Flag::Extrapolated);
             }
-            if flagged.iter().any(|t| (t - g.theta).abs().to_degrees() <= s.outlier_window_deg) {
-                row.flags.push(Flag::Outlier);
-            }
+            row.blank_unsound();
             progress.add(1);
             Ok(row)
         })

@@ -32,6 +32,10 @@ pub struct PhantomSpec {
     pub radius_apex_mm: f64,
     /// Rise along the axis per turn.
     pub rise_per_turn_mm: f64,
+    /// Basal dip: the height loses D·sin⁴(π·θ/330°) over the first 330° (0 beyond), so the basal
+    /// turn sinks below its height at 0° before it climbs, as in real cochleae (mm, D ≥ 0).
+    #[serde(default)]
+    pub basal_dip_mm: f64,
     /// Lumen half-width (radial) and half-height (axial) at base and apex.
     pub half_width_mm: [f64; 2],
     pub half_height_mm: [f64; 2],
@@ -70,6 +74,7 @@ impl Default for PhantomSpec {
             radius_base_mm: 3.6,
             radius_apex_mm: 1.0,
             rise_per_turn_mm: 1.6,
+            basal_dip_mm: 0.0,
             half_width_mm: [0.9, 0.5],
             half_height_mm: [0.65, 0.4],
             wall_mm: 0.3,
@@ -121,6 +126,13 @@ impl PhantomSpec {
         self.turns * TAU
     }
 
+    /// Height (mm) of the lumen centre at angle θ (rad): steady rise minus the basal dip.
+    pub fn zc(&self, t: f64) -> f64 {
+        const DIP_SPAN: f64 = 330.0 * PI / 180.0;
+        let dip = if t > 0.0 && t < DIP_SPAN { (PI * t / DIP_SPAN).sin().powi(4) } else { 0.0 };
+        self.rise_per_turn_mm * t / TAU - self.basal_dip_mm * dip
+    }
+
     /// Cross-section at angle θ (rad); extends smoothly beyond [0, θmax].
     pub fn duct(&self, t: f64) -> Duct {
         let f = t / self.theta_max();
@@ -128,7 +140,7 @@ impl PhantomSpec {
         let rc = self.radius_base_mm * (f * (self.radius_apex_mm / self.radius_base_mm).ln()).exp();
         let a = lerp(self.half_width_mm);
         let sf = lerp(self.shelf_fraction);
-        Duct { rc, zc: self.rise_per_turn_mm * t / TAU, a, b: lerp(self.half_height_mm), r_lam: rc - a + 2.0 * a * sf, r_lig: rc + a }
+        Duct { rc, zc: self.zc(t), a, b: lerp(self.half_height_mm), r_lam: rc - a + 2.0 * a * sf, r_lig: rc + a }
     }
 
     /// Material at a phantom-local point (mm) and the angle (rad) of the turn it belongs to,
@@ -147,7 +159,7 @@ impl PhantomSpec {
         let reach = self.half_height_mm[0].max(self.half_height_mm[1]) + self.wall_mm;
         for n in n0..=n1 {
             let t = phi + TAU * n as f64;
-            let dz_axis = (q[2] - self.rise_per_turn_mm * t / TAU).abs();
+            let dz_axis = (q[2] - self.zc(t)).abs();
             if dz_axis > reach + 0.05 {
                 clear = clear.min(dz_axis - reach);
                 continue;
@@ -206,7 +218,8 @@ impl PhantomSpec {
         [r * t.cos(), r * t.sin(), d.zc]
     }
 
-    fn edge(&self, kind: Kind, t: f64) -> V {
+    /// Phantom-local point (mm) of an edge (lamina tip or ligament) at angle θ (rad).
+    pub fn edge(&self, kind: Kind, t: f64) -> V {
         let d = self.duct(t);
         let r = if kind == Kind::Lamina { d.r_lam } else { d.r_lig };
         [r * t.cos(), r * t.sin(), d.zc]
@@ -310,7 +323,7 @@ pub fn generate(spec: &PhantomSpec, progress: &Progress) -> Result<Phantom> {
     let dn = spec.duct(spec.theta_max());
     let margin = 0.3;
     let rmax = d0.rc + d0.a + spec.wall_mm + margin;
-    let zlo = -(d0.b + spec.wall_mm + margin);
+    let zlo = -(d0.b + spec.wall_mm + margin) - spec.basal_dip_mm;
     let zhi = dn.zc + dn.b.max(d0.b) + spec.wall_mm + margin;
     let rot = rotation(spec.tilt_deg);
     let pl0 = Placement { centre: [0.0; 3], rot, mirror: if spec.left { -1.0 } else { 1.0 } };

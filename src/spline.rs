@@ -1,10 +1,12 @@
 //! Cubic smoothing spline (Reinsch form, after Green & Silverman 1994) with the smoothing chosen by
 //! generalized cross-validation (Craven & Wahba 1979) or given by the user.
 //!
-//! Minimises Σ (yᵢ − g(xᵢ))² + λ ∫ g''(x)² dx over natural cubic splines g. With knot spacings hᵢ,
-//! the banded matrices Q (n×(n−2)) and R ((n−2)×(n−2)) give the second derivatives γ at the interior
-//! knots from (R + λ QᵀQ) γ = Qᵀy and the fitted values g = y − λ Q γ. Outside the knots the
-//! spline continues as a straight line (natural end conditions).
+//! Minimises Σ wᵢ (yᵢ − g(xᵢ))² + λ ∫ g''(x)² dx over natural cubic splines g. With knot spacings
+//! hᵢ, the banded matrices Q (n×(n−2)) and R ((n−2)×(n−2)) and W = diag(w) give the second
+//! derivatives γ at the interior knots from (R + λ QᵀW⁻¹Q) γ = Qᵀy and the fitted values
+//! g = y − λ W⁻¹Q γ. Outside the knots the spline continues as a straight line (natural end
+//! conditions). The hat matrix A (g = A y) has diagonal Aᵢᵢ = 1 − (λ/wᵢ)·qᵢᵀ M⁻¹ qᵢ with qᵢ the
+//! i-th row of Q and M = R + λ QᵀW⁻¹Q; leave-one-out residuals are (yᵢ − gᵢ)/(1 − Aᵢᵢ).
 
 use crate::{Error, Result};
 
@@ -18,6 +20,8 @@ pub struct SmoothSpline {
     pub lambda: f64,
     /// Effective degrees of freedom, tr(A(λ)).
     pub edf: f64,
+    /// Diagonal of the hat matrix (leverage of each point), in knot order.
+    pub leverage: Vec<f64>,
 }
 
 /// Symmetric band matrix with half-bandwidth 2, stored as rows of [a(i,i-2), a(i,i-1), a(i,i)].
@@ -83,12 +87,15 @@ impl Band {
 struct System {
     n: usize,
     h: Vec<f64>,
+    /// 1/wᵢ
+    winv: Vec<f64>,
     r: Band,
     qtq: Band,
 }
 
 impl System {
-    fn new(x: &[f64]) -> System {
+    /// `w`: positive weights, one a knot.
+    fn new(x: &[f64], w: &[f64]) -> System {
         let n = x.len();
         let h: Vec<f64> = x.windows(2).map(|w| w[1] - w[0]).collect();
         let m = n - 2;
@@ -108,14 +115,14 @@ impl System {
                 for (ri, vi) in col(i) {
                     for (rj, vj) in col(j) {
                         if ri == rj {
-                            s += vi * vj;
+                            s += vi * vj / w[ri];
                         }
                     }
                 }
                 *qtq.at(i, j) = s;
             }
         }
-        System { n, h, r, qtq }
+        System { n, h, winv: w.iter().map(|w| 1.0 / w).collect(), r, qtq }
     }
 
     fn qt(&self, y: &[f64]) -> Vec<f64> {
@@ -130,6 +137,38 @@ impl System {
             out[j + 2] += g / self.h[j + 1];
         }
         out
+    }
+
+    /// Row i of Q as (column, value) pairs.
+    fn q_row(&self, i: usize) -> Vec<(usize, f64)> {
+        let (m, h) = (self.n - 2, &self.h);
+        let mut row = vec![];
+        if i >= 2 {
+            row.push((i - 2, 1.0 / h[i - 1]));
+        }
+        if i >= 1 && i - 1 < m {
+            row.push((i - 1, -1.0 / h[i - 1] - 1.0 / h[i]));
+        }
+        if i < m {
+            row.push((i, 1.0 / h[i]));
+        }
+        row
+    }
+
+    /// Diagonal of the hat matrix at λ, from the Cholesky factor `l` of M.
+    fn leverage(&self, l: &Band, lambda: f64) -> Vec<f64> {
+        let m = self.n - 2;
+        (0..self.n)
+            .map(|i| {
+                let row = self.q_row(i);
+                let mut b = vec![0.0; m];
+                for &(c, v) in &row {
+                    b[c] = v;
+                }
+                let x = l.solve(&b);
+                1.0 - lambda * self.winv[i] * row.iter().map(|&(c, v)| v * x[c]).sum::<f64>()
+            })
+            .collect()
     }
 
     fn matrix(&self, lambda: f64) -> Band {
@@ -147,7 +186,7 @@ impl System {
         let l = self.matrix(lambda).cholesky()?;
         let gamma = l.solve(&self.qt(y));
         let qg = self.q(&gamma);
-        let g: Vec<f64> = y.iter().zip(&qg).map(|(y, q)| y - lambda * q).collect();
+        let g: Vec<f64> = y.iter().zip(&qg).zip(&self.winv).map(|((y, q), wi)| y - lambda * wi * q).collect();
         let mut tr = f64::NAN;
         if want_trace {
             // tr A = n − λ tr(M⁻¹ QᵀQ), column by column of QᵀQ
@@ -166,24 +205,42 @@ impl System {
 impl SmoothSpline {
     /// Fits y(x). `x` must be strictly increasing with at least 4 points. `lambda`: None chooses it
     /// by generalized cross-validation over a log grid scaled to the knot spacing.
+    ///
+    /// ```
+    /// use ductline::spline::SmoothSpline;
+    /// // a straight line is not penalised: any smoothing reproduces it exactly
+    /// let x = [0.0, 1.0, 2.5, 3.0, 4.0];
+    /// let y: Vec<f64> = x.iter().map(|x| 2.0 * x + 1.0).collect();
+    /// let s = SmoothSpline::fit(&x, &y, Some(10.0)).unwrap();
+    /// assert!((s.eval(2.0) - 5.0).abs() < 1e-9);
+    /// ```
     pub fn fit(x: &[f64], y: &[f64], lambda: Option<f64>) -> Result<SmoothSpline> {
+        Self::fit_weighted(x, y, &vec![1.0; x.len()], lambda)
+    }
+
+    /// Fits y(x) with positive weights `w` (a weight scales a point's squared residual).
+    pub fn fit_weighted(x: &[f64], y: &[f64], w: &[f64], lambda: Option<f64>) -> Result<SmoothSpline> {
         let n = x.len();
-        if n < 4 || y.len() != n {
+        if n < 4 || y.len() != n || w.len() != n {
             return Err(Error::invalid(format!("a smoothing spline needs at least 4 points, got {n}")));
         }
         if x.windows(2).any(|w| !(w[1] > w[0])) {
             return Err(Error::invalid("spline abscissae must be strictly increasing"));
         }
-        let sys = System::new(x);
+        if w.iter().any(|w| !(*w > 0.0 && w.is_finite())) {
+            return Err(Error::invalid("spline weights must be positive"));
+        }
+        let sys = System::new(x, w);
         let lambda = match lambda {
             Some(l) if l >= 0.0 && l.is_finite() => l,
             Some(l) => return Err(Error::invalid(format!("smoothing must be ≥ 0, got {l}"))),
             None => gcv_lambda(&sys, y)?,
         };
         let (gamma_in, g, edf) = sys.fit(y, lambda, true)?;
+        let leverage = sys.leverage(&sys.matrix(lambda).cholesky()?, lambda);
         let mut gamma = vec![0.0; n];
         gamma[1..n - 1].copy_from_slice(&gamma_in);
-        Ok(SmoothSpline { x: x.to_vec(), g, gamma, lambda, edf })
+        Ok(SmoothSpline { x: x.to_vec(), g, gamma, lambda, edf, leverage })
     }
 
     /// Knot range.
@@ -226,16 +283,18 @@ impl SmoothSpline {
     }
 }
 
-/// λ minimising GCV(λ) = n·RSS/(n − tr A)² on a log grid, refined by golden-section search.
+/// λ minimising GCV(λ) = n·RSS_w/(n − tr A)² (RSS_w = Σ wᵢ(yᵢ − gᵢ)², weights scaled to mean 1)
+/// on a log grid, refined by golden-section search.
 fn gcv_lambda(sys: &System, y: &[f64]) -> Result<f64> {
     let n = sys.n as f64;
+    let wmean = sys.winv.iter().map(|wi| 1.0 / wi).sum::<f64>() / n;
     let hbar = sys.h.iter().sum::<f64>() / sys.h.len() as f64;
     let scale = hbar.powi(3);
     let score = |lg: f64| -> f64 {
         let lambda = scale * 10f64.powf(lg);
         match sys.fit(y, lambda, true) {
             Ok((_, g, tr)) => {
-                let rss: f64 = y.iter().zip(&g).map(|(a, b)| (a - b).powi(2)).sum();
+                let rss: f64 = y.iter().zip(&g).zip(&sys.winv).map(|((a, b), wi)| (a - b).powi(2) / wi).sum::<f64>() / wmean;
                 n * rss / (n - tr).max(1e-9).powi(2)
             }
             Err(_) => f64::INFINITY,

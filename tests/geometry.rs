@@ -4,7 +4,7 @@
 mod common;
 use ductline::centreline::{Centreline, FitSettings, arc_length, rotation_minimizing};
 use ductline::cochlea::{Greenwood, LengthEstimates, escude};
-use ductline::frame::{Frame, Handedness, detect_handedness, v3};
+use ductline::frame::{Frame, Handedness, v3};
 use ductline::landmarks::{Kind, Landmark};
 use ductline::spline::SmoothSpline;
 use std::f64::consts::{PI, TAU};
@@ -154,7 +154,7 @@ fn frame_conventions_and_round_trip() {
         assert!(w[1].abs() < 1e-9, "window at 0°");
         // along the partition (ordered by placement, base → apex) the unwrapped angle grows
         let edge: Vec<[f64; 3]> = lms.iter().filter(|l| l.kind == Kind::Lamina).map(|l| l.p).collect();
-        let th = ductline::centreline::unwrap_angles(&detected, &edge);
+        let th = ductline::spiral::assign(&detected, &edge, &[]).lamina;
         assert!(th.windows(2).all(|w| w[1] > w[0]), "left={left}");
         for p in [[1.0, 2.0, 3.0], [12.5, -4.0, 7.25], [10.0, 10.0, 3.0]] {
             let c = detected.to_cochlear(p);
@@ -164,9 +164,9 @@ fn frame_conventions_and_round_trip() {
     }
     let right = Frame::new([0.0; 3], [0.0, 0.0, 1.0], [1.0, 0.0, 0.0], Handedness::Right).unwrap();
     let ccw: Vec<[f64; 3]> = (0..10).map(|k| right.to_stack(2.0, 40.0 * k as f64, 0.1 * k as f64)).collect();
-    assert_eq!(detect_handedness(&right, &ccw), Handedness::Right);
+    assert_eq!(ductline::spiral::handedness(&right, &ccw, &[]), Handedness::Right);
     let cw: Vec<[f64; 3]> = (0..10).map(|k| right.to_stack(2.0, -40.0 * k as f64, 0.1 * k as f64)).collect();
-    assert_eq!(detect_handedness(&right, &cw), Handedness::Left);
+    assert_eq!(ductline::spiral::handedness(&right, &cw, &[]), Handedness::Left);
 }
 
 /// Our smoothing spline equals scipy.interpolate.make_smoothing_spline (same penalised sum) for

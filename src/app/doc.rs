@@ -95,7 +95,8 @@ impl Doc {
 
     /// Refits the centreline after any landmark or fit-setting change (fast: milliseconds).
     pub fn refit(&mut self) {
-        self.fitted = pipeline::fit(&self.lms.items, &self.fit).map_err(|e| e.to_string());
+        let voxel = self.stack.voxel.as_ref().map(|v| v.max()).unwrap_or(0.0);
+        self.fitted = pipeline::fit(&self.lms.items, &self.fit, voxel).map_err(|e| e.to_string());
         self.stale = true;
     }
 

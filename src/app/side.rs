@@ -103,15 +103,35 @@ impl Side {
             }
             match &doc.fitted {
                 Ok(c) => {
-                    ui.label(format!("length {:.2} mm, {:.0}° ({:.2} turns)", c.length, c.depth_deg(), c.depth_deg() / 360.0));
-                    let e = ductline::cochlea::LengthEstimates::new(c.basal_diameter(), c.depth_deg());
-                    ui.label(format!("basal diameter A {:.2} mm", e.basal_diameter_mm))
-                        .on_hover_text("Round window through the axis to the far lateral wall, on the fitted ligament curve");
-                    ui.label(format!("Escudé 2006: {:.1} mm · Alexiades 2015: {:.1} / {:.1} mm", e.escude_lw_mm, e.alexiades_oc_mm, e.alexiades_lw_mm))
-                        .on_hover_text("Published length estimates from A, for comparison with the traced length");
-                    let n = c.flagged().len();
-                    if n > 0 {
-                        ui.colored_label(palette::FLAG, format!("{n} landmark(s) far from the fit (ringed in red)"));
+                    let hand = if c.frame.handed == ductline::frame::Handedness::Left { "left-handed" } else { "right-handed" };
+                    ui.label(format!("length {:.2} mm, {:.0}° ({:.2} turns, {hand})", c.length, c.depth_deg(), c.depth_deg() / 360.0))
+                        .on_hover_text(format!("Traced from {:.0}° to {:.0}°", c.t0.to_degrees(), c.t1.to_degrees()));
+                    match c.basal_diameter() {
+                        Ok(a) => {
+                            let e = ductline::cochlea::LengthEstimates::new(a, c.depth_deg());
+                            ui.label(format!("basal diameter A {:.2} mm", e.basal_diameter_mm))
+                                .on_hover_text("Round window through the axis to the far lateral wall, on the fitted ligament curve");
+                            ui.label(format!(
+                                "Escudé 2006 to {:.0}°: {:.1} mm · Alexiades 2015 (full): {:.1} / {:.1} mm",
+                                c.depth_deg(),
+                                e.escude_lw_mm,
+                                e.alexiades_oc_mm,
+                                e.alexiades_lw_mm
+                            ))
+                            .on_hover_text("Published length estimates from A: Escudé's to the traced depth (lateral wall), Alexiades' for the whole cochlea (organ of Corti / lateral wall)");
+                        }
+                        Err(why) => {
+                            ui.label(format!("basal diameter A not given: {why}"));
+                        }
+                    }
+                    for (i, t, r) in c.flagged() {
+                        ui.colored_label(palette::FLAG, format!("#{} ({}) at {:.0}° lies {r:.3} mm from the fit (ringed)", i + 1, doc.lms.items[i].kind.as_str(), t.to_degrees()));
+                    }
+                    for (i, t, alt) in &c.ambiguous {
+                        ui.colored_label(
+                            palette::FLAG,
+                            format!("#{} ({}) at {:.0}° could belong to the turn at {:.0}°", i + 1, doc.lms.items[*i].kind.as_str(), t.to_degrees(), alt.to_degrees()),
+                        );
                     }
                 }
                 Err(e) if !e.is_empty() => {
