@@ -34,35 +34,7 @@ pub enum Cmd {
         crop: Option<String>,
     },
     /// Write a synthetic cochlea: phantom.tif, landmarks.csv, truth.csv, truth.json.
-    Phantom {
-        outdir: PathBuf,
-        #[arg(long, value_name = "X[,Y,Z]", default_value = "40")]
-        voxel_um: String,
-        #[arg(long, default_value_t = 2.5)]
-        turns: f64,
-        /// Noise standard deviation as a fraction of full scale.
-        #[arg(long, default_value_t = 0.02)]
-        noise: f64,
-        /// Blur sigma in voxels.
-        #[arg(long, default_value_t = 0.7)]
-        blur: f64,
-        /// Tilt of the modiolar axis: degrees about x, then about y.
-        #[arg(long, value_name = "AX,AY", default_value = "0,0")]
-        tilt_deg: String,
-        /// A mirrored (left) specimen.
-        #[arg(long)]
-        left: bool,
-        /// 8 or 16 bits per sample.
-        #[arg(long, default_value_t = 16)]
-        bits: u8,
-        /// Landmark spacing (degrees) and noise (mm).
-        #[arg(long, default_value_t = 15.0)]
-        landmark_step_deg: f64,
-        #[arg(long, default_value_t = 0.005)]
-        landmark_noise_mm: f64,
-        #[arg(long, default_value_t = 1)]
-        seed: u64,
-    },
+    Phantom(PhantomArgs),
     /// Fit the centreline, measure every section and write the geometry table.
     Measure {
         /// A project file (instead of --stack and --landmarks).
@@ -95,6 +67,64 @@ pub enum Cmd {
         #[arg(long, value_name = "I0:I1,J0:J1,K0:K1")]
         crop: Option<String>,
     },
+}
+
+/// Options of `ductline phantom`.
+#[derive(clap::Args)]
+pub struct PhantomArgs {
+    pub outdir: PathBuf,
+    #[arg(long, value_name = "X[,Y,Z]", default_value = "40")]
+    pub voxel_um: String,
+    /// A member of the seeded family of realistic cochleae (capsule bone, thin septa, soft tissue,
+    /// modiolus, scanner effects); the options below then change only what they name.
+    #[arg(long)]
+    pub variant: Option<u64>,
+    #[arg(long)]
+    pub turns: Option<f64>,
+    /// Noise standard deviation as a fraction of full scale.
+    #[arg(long)]
+    pub noise: Option<f64>,
+    /// Contrast-to-noise ratio (bone − lumen)/σ, 5–30 (replaces --noise).
+    #[arg(long)]
+    pub cnr: Option<f64>,
+    /// Blur sigma in voxels (0–1.5).
+    #[arg(long)]
+    pub blur: Option<f64>,
+    /// Tilt of the modiolar axis: degrees about x, then about y.
+    #[arg(long, value_name = "AX,AY")]
+    pub tilt_deg: Option<String>,
+    /// A mirrored (left) specimen.
+    #[arg(long)]
+    pub left: bool,
+    /// Lateral bony wall thickness (mm).
+    #[arg(long)]
+    pub wall_mm: Option<f64>,
+    /// Basal dip: the basal turn sinks up to this far (mm, 0–1.4) before it climbs.
+    #[arg(long)]
+    pub basal_dip_mm: Option<f64>,
+    /// Turns embedded in capsule bone, soft tissue, modiolus with nerve core, internal auditory canal.
+    #[arg(long)]
+    pub embedded: bool,
+    /// Air-filled labyrinth (lumen far darker than soft tissue).
+    #[arg(long)]
+    pub air: bool,
+    /// Ring artefacts (count), cupping (fraction, 0–0.2) and drift along z (± fraction, 0–0.1).
+    #[arg(long)]
+    pub rings: Option<u32>,
+    #[arg(long)]
+    pub cupping: Option<f64>,
+    #[arg(long)]
+    pub drift: Option<f64>,
+    /// 8 or 16 bits per sample.
+    #[arg(long, default_value_t = 16)]
+    pub bits: u8,
+    /// Landmark spacing (degrees) and noise (mm).
+    #[arg(long)]
+    pub landmark_step_deg: Option<f64>,
+    #[arg(long)]
+    pub landmark_noise_mm: Option<f64>,
+    #[arg(long)]
+    pub seed: Option<u64>,
 }
 
 /// Parses `I0:I1,J0:J1,K0:K1`.
@@ -184,38 +214,79 @@ pub fn inspect(path: &Path, voxel: Option<String>, bin: usize, crop: Option<Stri
 }
 
 #[allow(clippy::too_many_arguments)]
-pub fn make_phantom(
-    outdir: &Path,
-    voxel_um: &str,
-    turns: f64,
-    noise: f64,
-    blur: f64,
-    tilt: &str,
-    left: bool,
-    bits: u8,
-    step: f64,
-    lnoise: f64,
-    seed: u64,
-) -> Result<()> {
-    let v = parse_list(voxel_um, "--voxel-um")?;
+pub fn make_phantom(a: PhantomArgs) -> Result<()> {
+    let v = parse_list(&a.voxel_um, "--voxel-um")?;
     let v = VoxelSize::from_user_um(&v)?.mm.map(|x| x * 1000.0);
-    let t = parse_list(tilt, "--tilt-deg")?;
-    if t.len() != 2 {
-        bail!("--tilt-deg needs two angles AX,AY");
-    }
-    let spec = phantom::PhantomSpec {
-        voxel_um: v,
-        turns,
-        noise,
-        blur_vox: blur,
-        tilt_deg: [t[0], t[1]],
-        left,
-        bits,
-        landmark_step_deg: step,
-        landmark_noise_mm: lnoise,
-        seed,
-        ..Default::default()
+    let mut spec = match a.variant {
+        Some(n) => phantom::PhantomSpec::variant(n, v),
+        None => phantom::PhantomSpec { voxel_um: v, ..Default::default() },
     };
+    if let Some(t) = &a.tilt_deg {
+        let t = parse_list(t, "--tilt-deg")?;
+        if t.len() != 2 {
+            bail!("--tilt-deg needs two angles AX,AY");
+        }
+        spec.tilt_deg = [t[0], t[1]];
+    }
+    let set = |x: &mut f64, v: Option<f64>| {
+        if let Some(v) = v {
+            *x = v
+        }
+    };
+    set(&mut spec.turns, a.turns);
+    set(&mut spec.noise, a.noise);
+    set(&mut spec.blur_vox, a.blur);
+    set(&mut spec.wall_mm, a.wall_mm);
+    set(&mut spec.basal_dip_mm, a.basal_dip_mm);
+    set(&mut spec.landmark_step_deg, a.landmark_step_deg);
+    set(&mut spec.landmark_noise_mm, a.landmark_noise_mm);
+    set(&mut spec.scanner.cupping, a.cupping);
+    set(&mut spec.scanner.drift, a.drift);
+    if let Some(c) = a.cnr {
+        spec.scanner.cnr = Some(c);
+    }
+    if let Some(r) = a.rings {
+        spec.scanner.rings = r;
+        spec.scanner.ring_amp = spec.scanner.ring_amp.max(0.04);
+    }
+    if a.embedded && !spec.anatomy.embedded {
+        let tissue = spec.levels[1];
+        spec.anatomy = phantom::Anatomy {
+            embedded: true,
+            ligament_mm: 0.6 * spec.wall_mm.min(0.12),
+            limbus_mm: 0.05,
+            shelf_apex_mm: 0.015,
+            nerve_core_mm: 0.8,
+            canal_every_deg: 30.0,
+            canal_radius_mm: 0.03,
+            iac_mm: 0.8,
+            nerve_level: tissue,
+            iac_level: tissue,
+        };
+    }
+    if a.air {
+        spec.levels[0] = 0.03;
+        spec.anatomy.iac_level = 0.03;
+    }
+    spec.left |= a.left;
+    spec.bits = a.bits;
+    if let Some(s) = a.seed {
+        spec.seed = s;
+    }
+    let checks = [
+        (spec.basal_dip_mm, 0.0, 2.0, "--basal-dip-mm"),
+        (spec.blur_vox, 0.0, 3.0, "--blur"),
+        (spec.wall_mm, 0.02, 2.0, "--wall-mm"),
+        (spec.scanner.cupping, 0.0, 0.5, "--cupping"),
+        (spec.scanner.drift, 0.0, 0.5, "--drift"),
+        (spec.scanner.cnr.unwrap_or(10.0), 1.0, 1000.0, "--cnr"),
+    ];
+    for (x, lo, hi, name) in checks {
+        if !(x >= lo && x <= hi) {
+            bail!("{name} {x} is outside {lo}…{hi}");
+        }
+    }
+    let outdir = &a.outdir;
     let ph = with_progress("phantom", |p| phantom::generate(&spec, p))?;
     phantom::write(&ph, outdir)?;
     eprintln!(

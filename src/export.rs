@@ -84,6 +84,7 @@ pub fn table_json(out: &Outcome, prov: &Provenance) -> serde_json::Value {
                 "radius_mm": r.radius_mm, "height_mm": r.height_mm, "curvature_radius_mm": opt(Some(r.curvature_radius_mm)),
                 "cf_hz": r.cf_hz, "sv_area_mm2": opt(r.sv.area), "st_area_mm2": opt(r.st.area),
                 "partition_width_mm": opt(r.partition_width_mm), "wall_mm": opt(r.wall_mm), "flags": r.flag_words(),
+                "levels": { "lumen": opt(Some(r.levels.lumen as f64)), "soft_tissue": opt(Some(r.levels.tissue as f64)), "bone": opt(Some(r.levels.bone as f64)) },
             })
         })
         .collect();

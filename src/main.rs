@@ -13,9 +13,7 @@ fn main() -> ExitCode {
         None => app::run(None),
         Some(Cmd::Open { path }) => app::run(Some(path)),
         Some(Cmd::Inspect { stack, voxel_um, bin, crop }) => cli::inspect(&stack, voxel_um, bin, crop),
-        Some(Cmd::Phantom { outdir, voxel_um, turns, noise, blur, tilt_deg, left, bits, landmark_step_deg, landmark_noise_mm, seed }) => {
-            cli::make_phantom(&outdir, &voxel_um, turns, noise, blur, &tilt_deg, left, bits, landmark_step_deg, landmark_noise_mm, seed)
-        }
+        Some(Cmd::Phantom(a)) => cli::make_phantom(a),
         Some(Cmd::Measure { project, stack, landmarks, out, json, stl, step_mm, voxel_um, species, bin, crop }) => {
             cli::measure(cli::MeasureArgs { project, stack, landmarks, out, json, stl, step_mm, voxel_um, species, bin, crop })
         }

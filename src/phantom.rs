@@ -64,6 +64,52 @@ pub struct PhantomSpec {
     /// Truth table spacing (degrees).
     pub truth_step_deg: f64,
     pub seed: u64,
+    /// What makes it look like a real cochlea (all off by default: free-standing rings).
+    #[serde(default)]
+    pub anatomy: Anatomy,
+    /// Scanner effects (all off by default).
+    #[serde(default)]
+    pub scanner: Scanner,
+}
+
+/// Anatomy of a real cochlea (lengths mm, levels as fractions of full scale).
+#[derive(Clone, Debug, Default, PartialEq, Serialize, Deserialize)]
+#[serde(default)]
+pub struct Anatomy {
+    /// The turns sit in the solid bone of the otic capsule (neighbouring turns share a septum,
+    /// the modiolus is bone) instead of free-standing rings in the background.
+    pub embedded: bool,
+    /// Spiral ligament: soft tissue lining the lateral wall, this thick at the partition level.
+    pub ligament_mm: f64,
+    /// Spiral limbus: soft tissue this high on the inner 70 % of the bony shelf (scala vestibuli side).
+    pub limbus_mm: f64,
+    /// Bony shelf thickness at the apex (it tapers from `shelf_thickness_mm`); 0 = no taper.
+    pub shelf_apex_mm: f64,
+    /// Nerve core of the modiolus (radius at its floor, narrowing to nothing at the apex; 0 = none), with canals of `canal_radius_mm` toward
+    /// scala tympani every `canal_every_deg` degrees (0 = none).
+    pub nerve_core_mm: f64,
+    pub canal_every_deg: f64,
+    pub canal_radius_mm: f64,
+    /// Internal auditory canal under the modiolus (radius; 0 = none).
+    pub iac_mm: f64,
+    /// Levels of the nerve (core and canals) and of the internal auditory canal.
+    pub nerve_level: f64,
+    pub iac_level: f64,
+}
+
+/// Scanner effects, applied to the partial-volume image (truth is unaffected).
+#[derive(Clone, Debug, Default, PartialEq, Serialize, Deserialize)]
+#[serde(default)]
+pub struct Scanner {
+    /// Ring artefacts about the stack's z axis: amplitude as a fraction of (bone − lumen), and count.
+    pub ring_amp: f64,
+    pub rings: u32,
+    /// Cupping: the centre of each slice darker by this fraction, falling off as 1 − (ρ/R)².
+    pub cupping: f64,
+    /// Slow intensity drift along z: ± this fraction from the first to the last slice.
+    pub drift: f64,
+    /// Contrast-to-noise ratio (bone − lumen)/σ; when set it replaces `noise`.
+    pub cnr: Option<f64>,
 }
 
 impl Default for PhantomSpec {
@@ -92,6 +138,8 @@ impl Default for PhantomSpec {
             landmark_noise_mm: 0.005,
             truth_step_deg: 3.0,
             seed: 1,
+            anatomy: Anatomy::default(),
+            scanner: Scanner::default(),
         }
     }
 }
@@ -102,6 +150,10 @@ pub enum Mat {
     Background,
     Bone,
     Tissue,
+    /// The modiolus's nerve core and its canals.
+    Nerve,
+    /// The internal auditory canal.
+    Iac,
     /// Scala vestibuli fluid (above the partition).
     Sv,
     /// Scala tympani fluid (below).
@@ -178,10 +230,21 @@ impl PhantomSpec {
             let in_range = t >= lo && t <= hi;
             clear = clear.min(end_clear).min((t - lo + cap).abs() * r.max(0.1)).min((t - hi - cap).abs() * r.max(0.1));
             if rho < 1.0 && in_range {
-                let thick = if r < d.r_lam { self.shelf_thickness_mm } else { self.membrane_thickness_mm };
+                let shelf = self.shelf_at(t);
+                let thick = if r < d.r_lam { shelf } else { self.membrane_thickness_mm };
                 clear = clear.min((dz.abs() - 0.5 * thick).abs());
-                if dz.abs() < 0.5 * self.shelf_thickness_mm.max(self.membrane_thickness_mm) + 1e-3 {
+                if dz.abs() < 0.5 * shelf.max(self.membrane_thickness_mm) + 1e-3 {
                     clear = clear.min((r - d.r_lam).abs());
+                }
+                // the spiral limbus: a pad on the inner part of the shelf, scala vestibuli side
+                let an = &self.anatomy;
+                if an.limbus_mm > 0.0 {
+                    let end = d.r_lam - 0.3 * (d.r_lam - (d.rc - d.a));
+                    let top = 0.5 * shelf + an.limbus_mm;
+                    clear = clear.min((r - end).abs()).min((dz - top).abs());
+                    if r < end && dz > 0.0 && dz < top && dz >= 0.5 * thick {
+                        return (Mat::Tissue, t, clear);
+                    }
                 }
                 let m = if dz.abs() < 0.5 * thick {
                     if r < d.r_lam { Mat::Bone } else { Mat::Tissue }
@@ -192,14 +255,127 @@ impl PhantomSpec {
                 };
                 return (m, t, clear);
             }
+            // the spiral ligament: a soft-tissue crescent between the lateral lumen and the bone
+            let lig = self.anatomy.ligament_mm;
+            if lig > 0.0 && in_range && dr > 0.0 {
+                let rho_l = ((dr / (d.a + lig)).powi(2) + (dz / (d.b + 0.5 * lig)).powi(2)).sqrt();
+                clear = clear.min((rho_l - 1.0).abs() * d.a.min(d.b)).min(dr.abs());
+                if rho_l < 1.0 {
+                    return (Mat::Tissue, t, clear);
+                }
+            }
             if rho_c < 1.0 && bone.is_none() {
                 bone = Some(t);
             }
         }
-        match bone {
-            Some(t) => (Mat::Bone, t, clear),
-            None => (Mat::Background, phi, clear),
+        if let Some(t) = bone {
+            return (Mat::Bone, t, clear);
         }
+        self.outside_lumen(r, phi, q[2], clear)
+    }
+
+    /// Bony shelf thickness (mm) at θ (rad): tapers to `anatomy.shelf_apex_mm` when that is set.
+    pub fn shelf_at(&self, t: f64) -> f64 {
+        let apex = self.anatomy.shelf_apex_mm;
+        if apex > 0.0 {
+            let f = (t / self.theta_max()).clamp(0.0, 1.0);
+            self.shelf_thickness_mm + (apex - self.shelf_thickness_mm) * f
+        } else {
+            self.shelf_thickness_mm
+        }
+    }
+
+    /// Height (mm) below which no lumen or capsule reaches (the dip taken at its full depth).
+    pub fn floor_mm(&self) -> f64 {
+        let lo = -self.extend_deg.to_radians();
+        self.zc(lo).min(-self.basal_dip_mm) - self.duct(lo).b.max(self.half_height_mm[0]) - self.wall_mm
+    }
+
+    /// What lies outside every lumen and capsule ring at (r, φ rad, z): the embedded capsule and
+    /// modiolus (bone), the nerve core and its canals, the internal auditory canal, or background.
+    fn outside_lumen(&self, r: f64, phi: f64, z: f64, mut clear: f64) -> (Mat, f64, f64) {
+        let an = &self.anatomy;
+        let ext = self.extend_deg.to_radians();
+        let (lo, hi) = (-ext, self.theta_max() + ext);
+        let (z_floor, z_top) = (self.floor_mm(), self.zc(hi));
+        // internal auditory canal: under the capsule floor, round the axis
+        if an.iac_mm > 0.0 {
+            let top = z_floor + 0.5 * self.wall_mm;
+            clear = clear.min((r - an.iac_mm).abs().max(0.0)).min((z - top).abs());
+            if r < an.iac_mm && z < top {
+                return (Mat::Iac, phi, clear);
+            }
+        }
+        // nerve core and canals
+        if an.nerve_core_mm > 0.0 && z > z_floor && z < z_top {
+            // the core narrows from its full radius at the floor to nothing at the apex
+            let core = an.nerve_core_mm * (z_top - z) / (z_top - z_floor);
+            clear = clear.min(0.5 * (r - core).abs()).min((z - z_floor).abs()).min((z - z_top).abs());
+            if r < core {
+                return (Mat::Nerve, phi, clear);
+            }
+            if an.canal_every_deg > 0.0 && an.canal_radius_mm > 0.0 {
+                let step = an.canal_every_deg.to_radians();
+                let k = (phi / step).round();
+                let off = r * (phi - k * step).sin().abs();
+                // the canal of this angle runs out to the inner wall of each turn, below its partition
+                for n in (((lo - phi) / TAU).floor() as i64)..=(((hi - phi) / TAU).ceil() as i64) {
+                    let t = k * step + TAU * n as f64;
+                    if t < lo || t > hi {
+                        continue;
+                    }
+                    let d = self.duct(t);
+                    let dz = z - (d.zc - 0.5 * d.b);
+                    let reach = d.rc - d.a + 0.5 * self.wall_mm;
+                    let dist = off.hypot(dz);
+                    clear = clear.min((dist - an.canal_radius_mm).abs());
+                    if dist < an.canal_radius_mm && r < reach {
+                        return (Mat::Nerve, t, clear);
+                    }
+                }
+            }
+        }
+        if an.embedded {
+            // between two stacked turns at this angle the capsule is solid out to their outer walls;
+            // under the lowest turn and over the highest, the modiolus is bone inside their inner walls
+            let outer = |t: f64| {
+                let d = self.duct(t);
+                d.rc + d.a + self.wall_mm
+            };
+            let n0 = ((lo - phi) / TAU).ceil() as i64;
+            let n1 = ((hi - phi) / TAU).floor() as i64;
+            if n0 <= n1 {
+                let (t0, t1) = (phi + TAU * n0 as f64, phi + TAU * n1 as f64);
+                for n in n0..n1 {
+                    let (ta, tb) = (phi + TAU * n as f64, phi + TAU * (n + 1) as f64);
+                    let (za, zb) = (self.zc(ta), self.zc(tb));
+                    if z >= za && z <= zb {
+                        let f = (z - za) / (zb - za);
+                        let edge = outer(ta) + f * (outer(tb) - outer(ta));
+                        clear = clear.min(0.5 * (r - edge).abs());
+                        if r < edge {
+                            return (Mat::Bone, ta, clear);
+                        }
+                    }
+                }
+                let (dl, dt) = (self.duct(t0), self.duct(t1));
+                let base = dl.rc - dl.a;
+                if z < self.zc(t0) && z > z_floor {
+                    clear = clear.min((r - base).abs()).min((z - z_floor).abs());
+                    if r < base {
+                        return (Mat::Bone, t0, clear);
+                    }
+                }
+                let roof = self.zc(t1) + dt.b + self.wall_mm;
+                if z > self.zc(t1) && z < roof {
+                    clear = clear.min((r - dt.rc).abs()).min((z - roof).abs());
+                    if r < dt.rc {
+                        return (Mat::Bone, t1, clear);
+                    }
+                }
+            }
+        }
+        (Mat::Background, phi, clear)
     }
 
     fn level(&self, m: Mat) -> f64 {
@@ -208,6 +384,8 @@ impl PhantomSpec {
             Mat::Tissue => self.levels[1],
             Mat::Bone => self.levels[2],
             Mat::Background => self.levels[3],
+            Mat::Nerve => self.anatomy.nerve_level,
+            Mat::Iac => self.anatomy.iac_level,
         }
     }
 
@@ -233,6 +411,98 @@ impl PhantomSpec {
     /// Analytic length of the partition midline over the landmark range (mm).
     pub fn length(&self) -> f64 {
         arc_length(|t| self.midline_speed(t), 0.0, self.theta_max(), 1e-10)
+    }
+}
+
+impl PhantomSpec {
+    /// Member `n` of a seeded family of realistic cochleae at the given voxel size (µm): turns
+    /// embedded in capsule bone with thin shared septa (0.06–0.2 mm), thin bony lateral walls
+    /// (0.1–0.25 mm) lined by a spiral ligament (0.12–0.25 mm), a limbus (0.08–0.15 mm), a tapering shelf, a bony modiolus with a
+    /// nerve core and canals toward scala tympani, an internal auditory canal, a basal dip of
+    /// 0–1.4 mm; fluid-filled (soft tissue 20–35 % of the way from lumen to bone) or (one in four)
+    /// air-filled; rings, cupping, drift, contrast-to-noise 5–30,
+    /// blur 0.5–1.5 voxel; left or right, tilted up to 60°. Every draw is printed in the spec.
+    pub fn variant(n: u64, voxel_um: [f64; 3]) -> PhantomSpec {
+        let mut g = Rng(0xC0C1_EA00 ^ n.wrapping_mul(0x9E37_79B9_7F4A_7C15));
+        let mut u = |a: f64, b: f64| a + (b - a) * g.next();
+        let air = u(0.0, 1.0) < 0.25;
+        let lumen = if air { u(0.02, 0.05) } else { u(0.12, 0.25) };
+        let bone = u(0.75, 0.95);
+        let tissue = if air { u(0.28, 0.4) } else { lumen + u(0.2, 0.35) * (bone - lumen) };
+        // outside the capsule: soft tissue or porous petrous bone, at or a little above soft tissue
+        let outside = tissue + u(0.0, 0.3) * (bone - tissue);
+        // the spiral ligament lines the lateral wall (0.12–0.25 mm, as in human basal turns); the
+        // bony wall outside it is thin (0.1–0.25 mm)
+        let ligament = u(0.12, 0.25);
+        let wall = ligament + u(0.1, 0.25);
+        let mut sp = PhantomSpec {
+            voxel_um,
+            turns: u(2.25, 2.75),
+            radius_base_mm: u(3.2, 3.9),
+            radius_apex_mm: u(0.85, 1.2),
+            half_width_mm: [u(0.8, 1.0), u(0.42, 0.55)],
+            half_height_mm: [u(0.55, 0.7), u(0.35, 0.45)],
+            wall_mm: wall,
+            shelf_fraction: [u(0.45, 0.6), u(0.25, 0.35)],
+            shelf_thickness_mm: u(0.04, 0.08),
+            basal_dip_mm: if u(0.0, 1.0) < 0.8 { u(0.3, 1.4) } else { 0.0 },
+            levels: [lumen, tissue, bone, outside],
+            blur_vox: u(0.5, 1.5),
+            tilt_deg: [u(-60.0, 60.0), u(-60.0, 60.0)],
+            left: u(0.0, 1.0) < 0.5,
+            landmark_step_deg: 10.0,
+            seed: n + 1,
+            ..Default::default()
+        };
+        sp.anatomy = Anatomy {
+            embedded: true,
+            ligament_mm: ligament,
+            limbus_mm: u(0.08, 0.15),
+            shelf_apex_mm: u(0.01, 0.02),
+            nerve_core_mm: u(0.6, 1.0),
+            canal_every_deg: u(20.0, 40.0),
+            canal_radius_mm: u(0.02, 0.04),
+            iac_mm: u(0.6, 1.0),
+            nerve_level: tissue,
+            iac_level: if air { lumen } else { tissue },
+        };
+        sp.scanner = Scanner {
+            ring_amp: u(0.02, 0.06),
+            rings: u(0.0, 6.99) as u32,
+            cupping: u(0.0, 0.15),
+            drift: u(0.0, 0.1),
+            cnr: Some(u(5.0, 30.0)),
+        };
+        let septum = u(0.06, 0.2);
+        sp.rise_per_turn_mm = sp.rise_for_septum(septum);
+        sp
+    }
+
+    /// The rise per turn (mm) that leaves a bony septum of `septum` mm at the thinnest point
+    /// between the basal turn and the one above it (bisection on sampled lumen outlines).
+    pub fn rise_for_septum(&self, septum: f64) -> f64 {
+        let gap = |rise: f64| -> f64 {
+            let sp = PhantomSpec { rise_per_turn_mm: rise, basal_dip_mm: 0.0, ..self.clone() };
+            let mut best = f64::INFINITY;
+            for k in 0..8 {
+                let t = k as f64 * TAU / 8.0;
+                let (a, b) = (sp.duct(t), sp.duct(t + TAU));
+                let ring = |d: &Duct| -> Vec<(f64, f64)> { (0..90).map(|i| (i as f64 * TAU / 90.0).sin_cos()).map(|(s, c)| (d.rc + d.a * c, d.zc + d.b * s)).collect() };
+                let (pa, pb) = (ring(&a), ring(&b));
+                for p in &pa {
+                    for q in &pb {
+                        best = best.min((p.0 - q.0).hypot(p.1 - q.1));
+                    }
+                }
+            }
+            best
+        };
+        let (mut lo, mut hi) = (0.0, 4.0);
+        for _ in 0..40 {
+            let m = 0.5 * (lo + hi);
+            if gap(m) < septum { lo = m } else { hi = m }
+        }
+        hi
     }
 }
 
@@ -323,7 +593,7 @@ pub fn generate(spec: &PhantomSpec, progress: &Progress) -> Result<Phantom> {
     let dn = spec.duct(spec.theta_max());
     let margin = 0.3;
     let rmax = d0.rc + d0.a + spec.wall_mm + margin;
-    let zlo = -(d0.b + spec.wall_mm + margin) - spec.basal_dip_mm;
+    let zlo = spec.floor_mm() - margin - if spec.anatomy.iac_mm > 0.0 { 0.8 } else { 0.0 };
     let zhi = dn.zc + dn.b.max(d0.b) + spec.wall_mm + margin;
     let rot = rotation(spec.tilt_deg);
     let pl0 = Placement { centre: [0.0; 3], rot, mirror: if spec.left { -1.0 } else { 1.0 } };
@@ -382,10 +652,28 @@ pub fn generate(spec: &PhantomSpec, progress: &Progress) -> Result<Phantom> {
     blur(&mut vol, dims, std::array::from_fn(|a| spec.blur_vox * vox.iter().cloned().fold(f64::INFINITY, f64::min) / vox[a]));
     let full = if spec.bits == 8 { 255.0 } else { 65535.0 };
     let samples = {
+        // scanner effects about the stack's z axis (the rotation axis): rings, cupping, drift
+        let sc = &spec.scanner;
+        let contrast = spec.levels[2] - spec.levels[0];
+        let noise = sc.cnr.map_or(spec.noise, |c| contrast / c.max(0.1));
+        let centre = [0.5 * (dims[0] - 1) as f64 * vox[0], 0.5 * (dims[1] - 1) as f64 * vox[1]];
+        let big_r = centre[0].hypot(centre[1]).max(1e-9);
+        let mut ring_rng = Rng(spec.seed ^ 0x5EED_0F_7124);
+        let rings: Vec<(f64, f64)> = (0..sc.rings).map(|_| (ring_rng.next() * big_r, if ring_rng.next() < 0.5 { -1.0 } else { 1.0 })).collect();
+        let ring_w = vox[0].min(vox[1]);
         let noisy = |k: usize, v: &mut [f32]| {
             let mut rng = Rng(spec.seed.wrapping_mul(1_000_003).wrapping_add(k as u64));
-            for x in v {
-                *x = ((*x as f64 + spec.noise * rng.gauss()) * full).round().clamp(0.0, full) as f32;
+            let drift = 1.0 + sc.drift * (2.0 * k as f64 / (dims[2].max(2) - 1) as f64 - 1.0);
+            for (i, x) in v.iter_mut().enumerate() {
+                let mut y = *x as f64;
+                if sc.cupping != 0.0 || !rings.is_empty() {
+                    let rho = (((i % dims[0]) as f64 * vox[0]) - centre[0]).hypot(((i / dims[0]) as f64 * vox[1]) - centre[1]);
+                    y *= 1.0 - sc.cupping * (1.0 - (rho / big_r).powi(2)).max(0.0);
+                    for (rr, sign) in &rings {
+                        y += sign * sc.ring_amp * contrast * (-0.5 * ((rho - rr) / ring_w).powi(2)).exp();
+                    }
+                }
+                *x = ((y * drift + noise * rng.gauss()) * full).round().clamp(0.0, full) as f32;
             }
         };
         vol.par_chunks_mut(slice).enumerate().for_each(|(k, v)| {

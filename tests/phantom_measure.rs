@@ -223,7 +223,7 @@ fn overrides_and_cancel() {
     let gw = Greenwood::preset("human").unwrap();
     let (_, rows) = ductline::measure::measure(&ph.stack, &cl, &ms, &[ov, fixed], &gw, &Progress::new()).unwrap();
     let f = rows.iter().find(|r| (r.s_mm - 9.0).abs() < 1e-9).unwrap();
-    assert_eq!(f.levels, [9000.0, 58000.0], "a section's own levels are used");
+    assert_eq!([f.levels.lumen, f.levels.bone], [9000.0, 58000.0], "a section's own levels are used");
     assert!(f.sv.area.is_some() && f.sound());
     let r = rows.iter().find(|r| (r.s_mm - 5.0).abs() < 1e-9).unwrap();
     assert!(r.sv.area.is_none() && r.flags.contains(&ductline::measure::Flag::Excluded));

@@ -45,7 +45,7 @@ impl Inspector {
                 ("ST area", f(row.st.area, "mm²")),
                 ("partition width", f(row.partition_width_mm, "mm")),
                 ("wall", f(row.wall_mm, "mm")),
-                ("levels fluid / bone", format!("{:.0} / {:.0}", row.levels[0], row.levels[1])),
+                ("levels lumen / soft tissue / bone", format!("{:.0} / {:.0} / {:.0}", row.levels.lumen, row.levels.tissue, row.levels.bone)),
                 ("flags", if row.flags.is_empty() { "sound".into() } else { row.flag_words() }),
             ] {
                 ui.label(k);
@@ -67,7 +67,7 @@ impl Inspector {
         });
         ui.horizontal(|ui| {
             let mut fixed = ov.levels.is_some();
-            let mut lv = ov.levels.unwrap_or(row.levels);
+            let mut lv = ov.levels.unwrap_or([row.levels.lumen, row.levels.bone]);
             let c = ui.checkbox(&mut fixed, "fixed levels").on_hover_text("Use these fluid and bone grey levels for this section instead of finding them");
             let l = ui.label("fluid");
             let a = ui.add_enabled(fixed, egui::DragValue::new(&mut lv[0]).speed(10.0)).labelled_by(l.id).on_hover_text("Grey level of fluid in this section");
@@ -83,8 +83,8 @@ impl Inspector {
             let grid = section::section_grid(g, row.half_mm, row.pitch_mm);
             let vals = section::resample(&doc.stack, &grid);
             let lv = row.levels;
-            let span = (lv[1] - lv[0]).abs().max(1.0);
-            let img = super::tracing::to_image([grid.nu, grid.nv], &vals, [lv[0] - 0.25 * span, lv[1] + 0.25 * span]);
+            let span = (lv.bone - lv.lumen).abs().max(1.0);
+            let img = super::tracing::to_image([grid.nu, grid.nv], &vals, [lv.lumen - 0.25 * span, lv.bone + 0.25 * span]);
             self.tex = Some((key, ui.ctx().load_texture("section", img, egui::TextureOptions::LINEAR)));
         }
         let side = ui.available_width().min(ui.available_height()).max(100.0);

@@ -1,0 +1,183 @@
+//! Step 4: partial-volume areas, centroids and outlines.
+
+use super::levels::Levels;
+use super::regions::{BoxCount, Rect, Region, chamfer};
+use super::{Img, OUTLINE_POINTS};
+
+/// Pixels of an n×n image within Euclidean distance `k` (pixels) of a set, the set included;
+/// `set` is tested over `rect`. The pixel of a set nearest to any pixel outside it is an edge
+/// pixel (one with a 4-neighbour outside the set), so discs around the edge pixels cover the rest.
+pub(super) fn near(n: usize, rect: Rect, k: usize, set: impl Fn(usize) -> bool) -> Vec<bool> {
+    let mut out = vec![false; n * n];
+    let k = k as isize;
+    for i in rect.pixels(n) {
+        if !set(i) {
+            continue;
+        }
+        out[i] = true;
+        let (a, b) = ((i % n) as isize, (i / n) as isize);
+        let n = n as isize;
+        let edge = [(-1, 0), (1, 0), (0, -1), (0, 1)].iter().any(|(da, db)| {
+            let (x, y) = (a + da, b + db);
+            x >= 0 && y >= 0 && x < n && y < n && !set((y * n + x) as usize)
+        });
+        if !edge {
+            continue;
+        }
+        for y in (b - k).max(0)..(b + k + 1).min(n) {
+            for x in (a - k).max(0)..(a + k + 1).min(n) {
+                if (x - a).pow(2) + (y - b).pow(2) <= k * k {
+                    out[(y * n + x) as usize] = true;
+                }
+            }
+        }
+    }
+    out
+}
+
+/// Partial-volume area (mm²) of a grown region and its edge band; also the per-pixel lumen
+/// fraction field (0 outside) and the fraction-weighted centroid. Region pixels at least `erode`
+/// pixels inside count 1; the others, and the band pixels (on the region's side, within `band`
+/// pixels of it and no nearer to another dark pixel there), count (ref − v)/(ref − lumen), with
+/// ref the bone level in bone and on direct lumen–bone edges and the soft-tissue level elsewhere
+/// (a soft-tissue layer over 1.5 voxels thick counts as tissue, not as a blurred bone edge). The
+/// fractions are not clipped, so noise averages out instead of biasing the sum.
+pub(super) fn fraction_area(img: &Img, r: &Region, side: f64, lv: &Levels, band: usize, erode: usize) -> (f64, Vec<f32>, [f64; 2]) {
+    let (n, mask) = (img.n, &r.mask);
+    let thr = lv.lumen_cut();
+    let k = band as isize;
+    let same = |i: usize| img.apical[i] == (side > 0.0);
+    let other_dark = |i: usize| !mask[i] && img.sm[i].is_finite() && img.sm[i] < thr && same(i);
+    let reach = r.bounds.widen(band, n);
+    let near_region = near(n, r.bounds, band, |i| mask[i]);
+    // only dark pixels within two bands of the region can be nearer to a band pixel
+    let near_other = near(n, r.bounds.widen(2 * band, n), band, other_dark);
+    // the nearest pixel of the region, and of the other dark pixels, within the window
+    let nearest = |i: usize| -> (isize, isize) {
+        let (a, b, nn) = ((i % n) as isize, (i / n) as isize, n as isize);
+        let (mut dr, mut dother) = (isize::MAX, isize::MAX);
+        for y in (b - k).max(0)..(b + k + 1).min(nn) {
+            for x in (a - k).max(0)..(a + k + 1).min(nn) {
+                let j = (y * nn + x) as usize;
+                let d2 = (x - a).pow(2) + (y - b).pow(2);
+                if mask[j] {
+                    dr = dr.min(d2);
+                } else if other_dark(j) {
+                    dother = dother.min(d2);
+                }
+            }
+        }
+        (dr, dother)
+    };
+    let inner = BoxCount::new(n, r.bounds, |i| mask[i]);
+    let full = ((2 * erode + 1) * (2 * erode + 1)) as u32;
+    let mut interior = vec![false; n * n];
+    inner.each_square(n, erode, |i, c| interior[i] = c == full);
+    // which material a pixel's lumen fraction is taken against: bone where the pixel lies in bone
+    // or on a direct lumen–bone edge (nearest region pixel + nearest bone pixel within two
+    // voxels: a blurred edge spans about one), soft tissue elsewhere. Bone: smoothed value a fifth of the way from soft tissue to
+    // bone, so a thin, blurred septum still counts as bone.
+    let two_tissues = lv.tissue < lv.bone;
+    let (w, h) = (reach.a1 - reach.a0, reach.b1 - reach.b0);
+    let at = |k: usize| (reach.b0 + k / w) * n + reach.a0 + k % w;
+    let bone_level = lv.tissue + 0.2 * (lv.bone - lv.tissue);
+    let d_bone = chamfer(w, h, |k| img.sm[at(k)] >= bone_level);
+    let d_lumen = chamfer(w, h, |k| mask[at(k)]);
+    let edge = 2 * 3 * erode as u32;
+    let on_bone = |i: usize| {
+        let k = (i / n - reach.b0) * w + i % n - reach.a0;
+        d_bone[k] <= (3 * erode as u32) / 2 || d_bone[k] + d_lumen[k] <= edge
+    };
+    let mut field = vec![0f32; mask.len()];
+    for i in reach.pixels(n) {
+        let x = img.v[i];
+        let inside = mask[i]
+            || (near_region[i] && x.is_finite() && same(i) && {
+                // no other dark pixel within the band: the pixel is the region's; else the nearer wins
+                !near_other[i] || {
+                    let (dr, dother) = nearest(i);
+                    dr <= dother
+                }
+            });
+        if inside {
+            field[i] = if interior[i] {
+                1.0
+            } else {
+                let rf = if !two_tissues || on_bone(i) { lv.bone } else { lv.tissue };
+                (rf - x) / (rf - lv.lumen)
+            };
+        }
+    }
+    let p2 = img.pitch * img.pitch;
+    let (mut sum, mut cu, mut cv) = (0.0f64, 0.0f64, 0.0f64);
+    for i in reach.pixels(n) {
+        let f = field[i];
+        if f != 0.0 {
+            let q = img.uv(i);
+            sum += f as f64;
+            cu += f as f64 * q[0];
+            cv += f as f64 * q[1];
+        }
+    }
+    let c = if sum > 0.0 { [cu / sum, cv / sum] } else { [0.0, 0.0] };
+    (sum * p2, field, c)
+}
+
+/// Star outline of a fraction field at the half level, [`OUTLINE_POINTS`] rays from `c`.
+pub(super) fn outline(img: &Img, field: &[f32], c: [f64; 2]) -> Vec<[f64; 2]> {
+    let n = img.n;
+    let at = |q: [f64; 2]| -> f32 {
+        let x = (q[0] - img.start) / img.pitch;
+        let y = (q[1] - img.start) / img.pitch;
+        if x < 0.0 || y < 0.0 || x > (n - 1) as f64 || y > (n - 1) as f64 {
+            return 0.0;
+        }
+        let (i, j) = ((x.floor() as usize).min(n - 2), (y.floor() as usize).min(n - 2));
+        let (fx, fy) = ((x - i as f64) as f32, (y - j as f64) as f32);
+        let f = |a: usize, b: usize| field[b * n + a].clamp(0.0, 1.0);
+        let top = f(i, j) + (f(i + 1, j) - f(i, j)) * fx;
+        let bot = f(i, j + 1) + (f(i + 1, j + 1) - f(i, j + 1)) * fx;
+        top + (bot - top) * fy
+    };
+    let step = 0.5 * img.pitch;
+    let limit = 2.0 * (n as f64) * img.pitch;
+    (0..OUTLINE_POINTS)
+        .map(|k| {
+            let a = std::f64::consts::TAU * k as f64 / OUTLINE_POINTS as f64;
+            let dir = [a.cos(), a.sin()];
+            let (mut r, mut prev) = (0.0, at(c));
+            loop {
+                let q = [c[0] + (r + step) * dir[0], c[1] + (r + step) * dir[1]];
+                let cur = at(q);
+                if cur < 0.5 || r > limit {
+                    let t = if prev > cur { ((prev - 0.5) / (prev - cur)).clamp(0.0, 1.0) as f64 } else { 0.0 };
+                    let rr = r + t * step;
+                    break [c[0] + rr * dir[0], c[1] + rr * dir[1]];
+                }
+                r += step;
+                prev = cur;
+            }
+        })
+        .collect()
+}
+
+
+/// The maximum of `v` over the (2r+1)² square around each pixel of `rect` (NaN-free values only;
+/// −∞ elsewhere), as an n×n field. Separable: rows, then columns.
+pub(super) fn local_max(v: &[f32], n: usize, rect: Rect, r: usize) -> Vec<f32> {
+    let mut rows = vec![f32::NEG_INFINITY; n * n];
+    let wide = rect.widen(r, n);
+    for b in wide.b0..wide.b1 {
+        for a in rect.a0..rect.a1 {
+            let m = (a.saturating_sub(r)..(a + r + 1).min(n)).map(|x| v[b * n + x]).filter(|x| x.is_finite()).fold(f32::NEG_INFINITY, f32::max);
+            rows[b * n + a] = m;
+        }
+    }
+    let mut out = vec![f32::NEG_INFINITY; n * n];
+    for b in rect.b0..rect.b1 {
+        for a in rect.a0..rect.a1 {
+            out[b * n + a] = (b.saturating_sub(r)..(b + r + 1).min(n)).map(|y| rows[y * n + a]).fold(f32::NEG_INFINITY, f32::max);
+        }
+    }
+    out
+}

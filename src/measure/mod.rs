@@ -1,0 +1,529 @@
+//! Per-section measures: scala areas from partial-volume fractions, partition width, lateral wall
+//! thickness, and flags whenever a value cannot be trusted. One file a step:
+//!
+//! 1. Resample (here): a square grid normal to the centreline at pitch ≤ half the smallest voxel
+//!    side; the grid grows (×1.25, keeping the samples it has) until both scalae and their edge
+//!    bands lie inside it or the capture limit is reached.
+//! 2. Levels ([`levels`]): lumen, soft-tissue and bone levels from a three-class Otsu split of the
+//!    pooled histogram of the neighbouring sections (a tube around the duct, smoothed along s), as
+//!    the modes of each class — no patch of pure bone is needed, so thin walls do; the lumen level
+//!    is then re-taken from the interior of the scalae themselves.
+//! 3. Regions ([`regions`]): the partition line through the lamina and ligament points splits the
+//!    lumen. Each scala is grown (4-connected) from a seed on its side over pixels of a lightly
+//!    smoothed image below the lumen/soft-tissue midpoint, so it stops at soft tissue as well as at
+//!    bone; then necks narrower than a fraction of the scala's own size (canals, gaps in a septum)
+//!    are cut by a morphological opening by reconstruction, and only the part holding the seed is
+//!    kept. A section that still reaches its border is flagged `open`.
+//! 4. Areas ([`areas`]): interior pixels count whole; pixels near the edge count their lumen
+//!    fraction (ref − v)/(ref − lumen), where ref is the bone level next to bone and the soft-tissue
+//!    level next to soft tissue (soft tissue is not half fluid), over the region's edge and a
+//!    three-voxel band around it (pixels nearer to another lumen region excluded).
+//! 5. Wall ([`wall`]): along the partition direction outward, from where bone starts to where it
+//!    ends. Width and wall under one voxel are flagged `below_resolution` and left blank.
+
+mod areas;
+mod levels;
+mod regions;
+mod wall;
+
+pub use levels::{Levels, otsu3};
+
+use crate::centreline::Centreline;
+use crate::cochlea::Greenwood;
+use crate::frame::v3::V;
+use crate::progress::Progress;
+use crate::section::{self, SectionGeom};
+use crate::stack::Stack;
+use crate::{Error, Result};
+use rayon::prelude::*;
+use serde::{Deserialize, Serialize};
+
+/// Measure settings.
+#[derive(Clone, Debug, PartialEq, Serialize, Deserialize)]
+pub struct MeasureSettings {
+    /// Distance between output positions along the centreline (mm).
+    pub step_mm: f64,
+    /// Resampling pitch (mm); None = half the smallest voxel side. Larger values are capped there.
+    pub pitch_mm: Option<f64>,
+    /// Largest half-size of a section (mm): a scala reaching it is flagged `open`.
+    pub capture_mm: f64,
+    /// Lumen and bone grey levels for all sections (no soft-tissue class); None = found from the
+    /// sections themselves.
+    pub levels: Option<[f32; 2]>,
+}
+
+/// Sections pooled on either side of each one for its levels (a tube along the duct).
+const POOL_MM: f64 = 0.4;
+
+impl Default for MeasureSettings {
+    fn default() -> Self {
+        MeasureSettings { step_mm: 0.1, pitch_mm: None, capture_mm: 3.0, levels: None }
+    }
+}
+
+/// What the user set for one section (kept in the project file).
+#[derive(Clone, Debug, Default, PartialEq, Serialize, Deserialize)]
+pub struct Override {
+    /// Arc length of the section it belongs to (mm); matched to the nearest section.
+    pub s_mm: f64,
+    /// Fluid and bone levels for this section.
+    pub levels: Option<[f32; 2]>,
+    /// Seeds in section coordinates (u along the partition, v toward the apex; mm from the centre).
+    pub seed_sv: Option<[f64; 2]>,
+    pub seed_st: Option<[f64; 2]>,
+    /// Leave this section out: its values are blank and flagged `excluded`.
+    pub exclude: bool,
+    /// A barrier line the scalae may not grow across (two points, section coordinates, mm): for a
+    /// leak the automatic neck cutting does not close.
+    #[serde(default)]
+    pub barrier: Option<[[f64; 2]; 2]>,
+}
+
+/// Why a value is not sound.
+#[derive(Clone, Copy, Debug, PartialEq, Eq, Serialize, Deserialize)]
+#[serde(rename_all = "snake_case")]
+pub enum Flag {
+    /// A scala reaches the section border, the capture limit or the edge of the stack.
+    Open,
+    /// The section lies beyond the landmarks of an edge.
+    Extrapolated,
+    /// No dark pixel found to start a scala from.
+    NoSeed,
+    /// Fluid and bone levels too close to separate.
+    LowContrast,
+    /// Left out by the user.
+    Excluded,
+    /// The wall's outer edge was not found.
+    NoWall,
+    /// The wall or the partition is thinner than one voxel: that value is left blank.
+    BelowResolution,
+    /// A scala came out with no lumen (an area ≤ 0): both areas are left blank.
+    NoLumen,
+}
+
+impl Flag {
+    pub fn word(self) -> &'static str {
+        match self {
+            Flag::Open => "open",
+            Flag::Extrapolated => "extrapolated",
+            Flag::NoSeed => "no_seed",
+            Flag::LowContrast => "low_contrast",
+            Flag::Excluded => "excluded",
+            Flag::NoWall => "no_wall",
+            Flag::BelowResolution => "below_resolution",
+            Flag::NoLumen => "no_lumen",
+        }
+    }
+}
+
+/// One scala found in a section.
+#[derive(Clone, Debug, Default, Serialize, Deserialize)]
+pub struct Scala {
+    /// mm²; None when it cannot be trusted (see the row's flags).
+    pub area: Option<f64>,
+    /// Closed outline at the half-fluid level, section coordinates (mm), star-sampled from the centroid.
+    pub outline: Vec<[f64; 2]>,
+    /// Fraction-weighted centroid (section coordinates, mm).
+    pub centroid: [f64; 2],
+    pub seed: Option<[f64; 2]>,
+}
+
+/// The measures at one output position; the table row plus what the inspector draws.
+#[derive(Clone, Debug, Serialize, Deserialize)]
+pub struct Row {
+    pub s_mm: f64,
+    pub angle_deg: f64,
+    pub point: V,
+    pub radius_mm: f64,
+    pub height_mm: f64,
+    pub curvature_radius_mm: f64,
+    pub cf_hz: f64,
+    pub sv: Scala,
+    pub st: Scala,
+    pub partition_width_mm: Option<f64>,
+    pub wall_mm: Option<f64>,
+    pub flags: Vec<Flag>,
+    /// Lumen, soft-tissue and bone levels used (NaN when none were found).
+    pub levels: Levels,
+    /// Section half-size and pitch used (mm).
+    pub half_mm: f64,
+    pub pitch_mm: f64,
+    /// Partition end points in section coordinates (mm).
+    pub lamina_uv: [f64; 2],
+    pub ligament_uv: [f64; 2],
+}
+
+impl Row {
+    pub fn flag_words(&self) -> String {
+        self.flags.iter().map(|f| f.word()).collect::<Vec<_>>().join(";")
+    }
+    pub fn sound(&self) -> bool {
+        self.flags.is_empty()
+    }
+
+    /// The one rule for flags: each flag blanks the values it concerns, so a value that is not
+    /// sound is never written. `extrapolated` and `excluded` blank every measure of the row;
+    /// `open`, `no_seed`, `low_contrast` and `no_lumen` blank both areas; `no_wall` blanks the wall;
+    /// `below_resolution` goes with a blank wall or width (whichever is under one voxel).
+    pub fn blank_unsound(&mut self) {
+        for f in self.flags.clone() {
+            match f {
+                Flag::Extrapolated | Flag::Excluded => {
+                    (self.sv.area, self.st.area, self.partition_width_mm, self.wall_mm) = (None, None, None, None);
+                }
+                Flag::Open | Flag::NoSeed | Flag::LowContrast | Flag::NoLumen => (self.sv.area, self.st.area) = (None, None),
+                Flag::NoWall => self.wall_mm = None,
+                // the value under one voxel was blanked where it was found
+                Flag::BelowResolution => {}
+            }
+        }
+    }
+}
+
+/// Points on the star outline of each scala.
+pub const OUTLINE_POINTS: usize = 64;
+
+/// Factor by which a section square grows when a scala does not fit in it.
+const GROWTH: f64 = 1.25;
+
+/// First half-size of a section square, in partition widths (1.5: the fastest on the phantoms;
+/// a smaller square has to grow more often, a larger one samples more bone).
+const START_HALF: f64 = 1.5;
+
+/// Measures every section. Parallel over sections; `progress` counts sections and can cancel.
+pub fn measure(
+    stack: &Stack,
+    cl: &Centreline,
+    s: &MeasureSettings,
+    overrides: &[Override],
+    gw: &Greenwood,
+    progress: &Progress,
+) -> Result<(Vec<SectionGeom>, Vec<Row>)> {
+    let vox = stack.voxel()?;
+    if !(s.step_mm > 0.0) {
+        return Err(Error::invalid(format!("step must be positive, got {} mm", s.step_mm)));
+    }
+    // levels set by the user must put the lumen below bone
+    let bad = |l: [f32; 2]| !(l[0] < l[1] && l[0].is_finite() && l[1].is_finite());
+    if let Some(l) = s.levels.filter(|l| bad(*l)) {
+        return Err(Error::invalid(format!("measure.levels: lumen {} must lie below bone {}", l[0], l[1])));
+    }
+    if let Some(o) = overrides.iter().find(|o| o.levels.is_some_and(bad)) {
+        let l = o.levels.unwrap_or_default();
+        return Err(Error::invalid(format!("the levels set for the section at s = {:.2} mm: lumen {} must lie below bone {}", o.s_mm, l[0], l[1])));
+    }
+    let geoms = section::geometry(cl, s.step_mm);
+    progress.start(2 * geoms.len() as u64);
+    let pitch = s.pitch_mm.unwrap_or(f64::INFINITY).min(0.5 * vox.min());
+    let vmax = vox.max();
+    let ov_of = |g: &SectionGeom| overrides.iter().filter(|o| (o.s_mm - g.s).abs() <= 0.5 * s.step_mm).min_by(|a, b| (a.s_mm - g.s).abs().total_cmp(&(b.s_mm - g.s).abs()));
+    // first pass: each section's first square, and the histograms that give the levels
+    let first: Vec<Img> = geoms
+        .par_iter()
+        .map(|g| {
+            progress.check()?;
+            let half = (START_HALF * g.width()).max(10.0 * vmax).min(s.capture_mm);
+            let img = sample_section(stack, g, &Partition::of(g).line, half, pitch, None, ov_of(g).and_then(|o| o.barrier));
+            progress.add(1);
+            Ok(img)
+        })
+        .collect::<Result<_>>()?;
+    let pool = ((POOL_MM / s.step_mm).round() as usize).clamp(1, 10);
+    let mut auto = levels::pooled(&first, pool);
+    // soft tissue from what actually borders the lumen: the scalae grown in each first square, the
+    // ring of pixels just outside them (`levels::tissue_near`), and the median over the
+    // neighbouring sections
+    let near: Vec<Option<f32>> = first
+        .par_iter()
+        .zip(geoms.par_iter())
+        .zip(auto.par_iter())
+        .map(|((img, g), lv)| {
+            let lv = lv.filter(|l| l.tissue < l.bone)?;
+            let part = Partition::of(g);
+            let (thr, erode) = (lv.lumen_cut(), (vmax / pitch).ceil() as usize);
+            let found: Vec<regions::Region> = [1.0f64, -1.0]
+                .into_iter()
+                .filter_map(|side| {
+                    let sd = regions::find_seed(img, &part.line, part.mid, side, thr, vmax, g.width())?;
+                    Some(regions::cut_necks(img, regions::grow(img, sd, side, thr), sd, erode))
+                })
+                .collect();
+            levels::tissue_near(img, &found, &lv, erode)
+        })
+        .collect();
+    // where no soft tissue lines the lumen nearby, two materials: lumen against bone
+    for (i, lv) in auto.iter_mut().enumerate() {
+        let window = &near[i.saturating_sub(2 * pool)..(i + 2 * pool + 1).min(near.len())];
+        let mut around: Vec<f32> = window.iter().flatten().copied().collect();
+        if let Some(lv) = lv.as_mut() {
+            let t = if 3 * around.len() >= window.len() { levels::median_f32(&mut around) } else { lv.bone };
+            lv.tissue = if t > lv.lumen && t < lv.bone { t } else { lv.bone };
+        }
+    }
+    let rows = first
+        .into_par_iter()
+        .zip(geoms.par_iter())
+        .zip(auto)
+        .map(|((img, g), auto)| {
+            progress.check()?;
+            let ov = ov_of(g);
+            let given = ov.and_then(|o| o.levels).or(s.levels).map(|l| Levels { lumen: l[0], tissue: l[1], bone: l[1] });
+            let mut row = section_row(stack, cl, g, s, pitch, vmax, ov, gw, img, given.or(auto), given.is_some());
+            if cl.extrapolated(g.theta) {
+                row.flags.push(Flag::Extrapolated);
+            }
+            row.blank_unsound();
+            progress.add(1);
+            Ok(row)
+        })
+        .collect::<Result<Vec<Row>>>()?;
+    Ok((geoms, rows))
+}
+
+/// The partition in a section: its line, midpoint and unit direction lamina → ligament (mm).
+struct Partition {
+    line: Line,
+    mid: [f64; 2],
+    dir: [f64; 2],
+}
+
+impl Partition {
+    fn of(g: &SectionGeom) -> Partition {
+        let (lam, lig) = (g.to_plane(g.lamina), g.to_plane(g.ligament));
+        let d = [lig[0] - lam[0], lig[1] - lam[1]];
+        let dn = d[0].hypot(d[1]).max(1e-12);
+        let mut n = [-d[1] / dn, d[0] / dn];
+        if n[1] < 0.0 {
+            n = [-n[0], -n[1]];
+        }
+        Partition { line: Line { p: lam, n }, mid: [0.5 * (lam[0] + lig[0]), 0.5 * (lam[1] + lig[1])], dir: [d[0] / dn, d[1] / dn] }
+    }
+}
+
+/// The partition line in section coordinates: a point on it and the unit normal toward v > 0.
+struct Line {
+    p: [f64; 2],
+    n: [f64; 2],
+}
+
+impl Line {
+    fn side(&self, q: [f64; 2]) -> f64 {
+        (q[0] - self.p[0]) * self.n[0] + (q[1] - self.p[1]) * self.n[1]
+    }
+}
+
+/// A resampled section image.
+struct Img {
+    v: Vec<f32>,
+    /// The image lightly smoothed (binomial 3×3 twice, σ ≈ one pixel): what the scalae grow over.
+    sm: Vec<f32>,
+    n: usize,
+    pitch: f64,
+    start: f64,
+    /// Per pixel: on the apical (positive) side of the partition line.
+    apical: Vec<bool>,
+    /// Per pixel: on a barrier line drawn by the user (empty when there is none).
+    blocked: Vec<bool>,
+}
+
+impl Img {
+    fn uv(&self, i: usize) -> [f64; 2] {
+        [self.start + (i % self.n) as f64 * self.pitch, self.start + (i / self.n) as f64 * self.pitch]
+    }
+    fn index(&self, q: [f64; 2]) -> Option<usize> {
+        let a = ((q[0] - self.start) / self.pitch).round();
+        let b = ((q[1] - self.start) / self.pitch).round();
+        if a < 0.0 || b < 0.0 || a >= self.n as f64 || b >= self.n as f64 { None } else { Some(b as usize * self.n + a as usize) }
+    }
+    fn is_blocked(&self, i: usize) -> bool {
+        !self.blocked.is_empty() && self.blocked[i]
+    }
+}
+
+#[allow(clippy::too_many_arguments)]
+fn section_row(
+    stack: &Stack,
+    cl: &Centreline,
+    g: &SectionGeom,
+    s: &MeasureSettings,
+    pitch: f64,
+    vmax: f64,
+    ov: Option<&Override>,
+    gw: &Greenwood,
+    mut img: Img,
+    levels: Option<Levels>,
+    given: bool,
+) -> Row {
+    let (radius, height) = cl.radius_height(g.theta);
+    let part = Partition::of(g);
+    let mut row = Row {
+        s_mm: g.s,
+        angle_deg: g.theta.to_degrees(),
+        point: g.centre,
+        radius_mm: radius,
+        height_mm: height,
+        curvature_radius_mm: cl.curvature_radius(g.theta),
+        cf_hz: gw.cf(1.0 - g.s / cl.length),
+        sv: Scala::default(),
+        st: Scala::default(),
+        partition_width_mm: Some(g.width()),
+        wall_mm: None,
+        flags: vec![],
+        levels: Levels::NONE,
+        half_mm: 0.0,
+        pitch_mm: pitch,
+        lamina_uv: g.to_plane(g.lamina),
+        ligament_uv: g.to_plane(g.ligament),
+    };
+    if ov.is_some_and(|o| o.exclude) {
+        row.partition_width_mm = None;
+        row.flags.push(Flag::Excluded);
+        return row;
+    }
+    if g.width() < vmax {
+        row.partition_width_mm = None;
+        row.flags.push(Flag::BelowResolution);
+    }
+    let barrier = ov.and_then(|o| o.barrier);
+    let mut half = 0.5 * (img.n - 1) as f64 * pitch;
+    let Some(mut lv) = levels.filter(|l| l.bone > l.lumen) else {
+        row.flags.push(Flag::LowContrast);
+        return row;
+    };
+    let (line, mid) = (&part.line, part.mid);
+    let band = (3.0 * vmax / pitch).ceil() as usize;
+    let erode = (vmax / pitch).ceil() as usize;
+    loop {
+        row.half_mm = half;
+        row.levels = lv;
+        let can_grow = half < s.capture_mm;
+        let regrow = |img: Img, half: &mut f64| -> Img {
+            *half = (*half * GROWTH).min(s.capture_mm);
+            sample_section(stack, g, line, *half, pitch, Some(img), barrier)
+        };
+        // the lumen level from the interior of the scalae themselves (levels found, not given)
+        if !given {
+            match levels::lumen_level(&img, line, mid, lv.lumen_cut(), vmax, g.width(), erode, band) {
+                // a scala already overflows the square: grow it before refining anything
+                levels::Lumen::Overflows if can_grow => {
+                    img = regrow(img, &mut half);
+                    continue;
+                }
+                levels::Lumen::Level(f) if f < lv.tissue => row.levels.lumen = f,
+                _ => {}
+            }
+        }
+        if let Ok(e) = std::env::var("DL_LEVELS") {
+            let v: Vec<f32> = e.split(',').map(|x| x.parse().unwrap()).collect();
+            row.levels = Levels { lumen: v[0], tissue: v[1], bone: v[2] };
+        }
+        let thr = row.levels.lumen_cut();
+        let mut grow_more = false;
+        let mut open = false;
+        let mut scalae = [Scala::default(), Scala::default()];
+        let mut missing = false;
+        for (k, side) in [1.0f64, -1.0].into_iter().enumerate() {
+            let user_seed = ov.and_then(|o| if k == 0 { o.seed_sv } else { o.seed_st });
+            let seed = user_seed.and_then(|q| img.index(q)).or_else(|| regions::find_seed(&img, line, mid, side, thr, vmax, g.width()));
+            let Some(seed) = seed else {
+                missing = true;
+                continue;
+            };
+            let r = regions::grow(&img, seed, side, thr);
+            let r = regions::cut_necks(&img, r, seed, erode);
+            // the region and its edge band must fit inside the square
+            if r.overflows(img.n, band) && can_grow {
+                grow_more = true;
+                break;
+            }
+            open |= r.touches_border || r.touches_nan;
+            let (area, field, centroid) = areas::fraction_area(&img, &r, side, &row.levels, band, erode);
+            if std::env::var("DL_DUMP").ok().and_then(|x| x.parse::<f64>().ok()).is_some_and(|x| (x - g.s).abs() < 0.01) {
+                let mut out = format!("{} {} {} {} {}\n", img.n, row.levels.lumen, row.levels.tissue, row.levels.bone, area);
+                for i in 0..img.n * img.n {
+                    out.push_str(&format!("{} {} {}\n", img.v[i], r.mask[i] as u8, field[i]));
+                }
+                std::fs::write(format!("/tmp/dump_{k}.txt"), out).ok();
+            }
+            scalae[k] = Scala { area: Some(area), outline: areas::outline(&img, &field, centroid), centroid, seed: Some(img.uv(seed)) };
+        }
+        if grow_more {
+            img = regrow(img, &mut half);
+            lv = row.levels;
+            continue;
+        }
+        if missing {
+            row.flags.push(Flag::NoSeed);
+        }
+        if open {
+            row.flags.push(Flag::Open);
+        }
+        if !missing && !open && scalae.iter().any(|sc| !sc.area.is_some_and(|a| a > 0.0)) {
+            row.flags.push(Flag::NoLumen);
+        }
+        let [sv, st] = scalae;
+        row.sv = sv;
+        row.st = st;
+        row.wall_mm = wall::wall(stack, g, mid, part.dir, pitch, s.capture_mm, &row.levels);
+        match row.wall_mm {
+            None => row.flags.push(Flag::NoWall),
+            Some(w) if w < vmax => {
+                row.wall_mm = None;
+                if !row.flags.contains(&Flag::BelowResolution) {
+                    row.flags.push(Flag::BelowResolution);
+                }
+            }
+            _ => {}
+        }
+        return row;
+    }
+}
+
+/// Resamples the section square of half-size `half`; samples an earlier, smaller square `old`
+/// already holds are copied, not resampled (both grids have an even size, so they align).
+fn sample_section(stack: &Stack, g: &SectionGeom, line: &Line, half: f64, pitch: f64, old: Option<Img>, barrier: Option<[[f64; 2]; 2]>) -> Img {
+    let grid = section::section_grid(g, half, pitch);
+    let n = grid.nu;
+    let start = -(n as f64 - 1.0) * 0.5 * pitch;
+    let mut v = vec![f32::NAN; n * n];
+    match old.filter(|o| o.n <= n && (n - o.n).is_multiple_of(2)) {
+        Some(o) => {
+            let k = (n - o.n) / 2;
+            for b in 0..o.n {
+                v[(b + k) * n + k..(b + k) * n + k + o.n].copy_from_slice(&o.v[b * o.n..(b + 1) * o.n]);
+                section::resample_part(stack, &grid, b + k..b + k + 1, 0..k, &mut v);
+                section::resample_part(stack, &grid, b + k..b + k + 1, k + o.n..n, &mut v);
+            }
+            section::resample_part(stack, &grid, 0..k, 0..n, &mut v);
+            section::resample_part(stack, &grid, k + o.n..n, 0..n, &mut v);
+        }
+        None => section::resample_part(stack, &grid, 0..n, 0..n, &mut v),
+    }
+    // which side of the partition line each pixel lies on, row by row
+    let mut apical = Vec::with_capacity(n * n);
+    for b in 0..n {
+        let q = start + b as f64 * pitch;
+        apical.extend((0..n).map(|a| line.side([start + a as f64 * pitch, q]) > 0.0));
+    }
+    let sm = regions::smooth(&v, n);
+    let mut img = Img { v, sm, n, pitch, start, apical, blocked: vec![] };
+    if let Some([p, q]) = barrier {
+        // the segment drawn with steps of a third of a pixel, each step blocking its 3×3 pixels
+        img.blocked = vec![false; n * n];
+        let steps = (3.0 * (q[0] - p[0]).hypot(q[1] - p[1]) / pitch).ceil().max(1.0) as usize;
+        for k in 0..=steps {
+            let f = k as f64 / steps as f64;
+            if let Some(i) = img.index([p[0] + f * (q[0] - p[0]), p[1] + f * (q[1] - p[1])]) {
+                let (a, b) = ((i % n) as isize, (i / n) as isize);
+                for (da, db) in [(0, 0), (1, 0), (0, 1), (1, 1)] {
+                    let (x, y) = (a + da, b + db);
+                    if x < n as isize && y < n as isize {
+                        img.blocked[y as usize * n + x as usize] = true;
+                    }
+                }
+            }
+        }
+    }
+    img
+}
+

@@ -1,0 +1,313 @@
+//! Step 3: each scala grown from a seed on its side of the partition, with its necks cut.
+
+use super::{Img, Line};
+
+/// Counts of a pixel set over squares, from a summed-area table over a rectangle of an n×n
+/// image: O(1) a square whatever its size.
+pub(super) struct BoxCount {
+    sum: Vec<u32>,
+    rect: Rect,
+    w: usize,
+}
+
+impl BoxCount {
+    pub(super) fn new(n: usize, rect: Rect, set: impl Fn(usize) -> bool) -> BoxCount {
+        let w = rect.a1 - rect.a0 + 1;
+        let mut sum = vec![0u32; w * (rect.b1 - rect.b0 + 1)];
+        for b in rect.b0..rect.b1 {
+            let mut row = 0u32;
+            let (above, here) = ((b - rect.b0) * w, (b - rect.b0 + 1) * w);
+            for a in rect.a0..rect.a1 {
+                row += set(b * n + a) as u32;
+                sum[here + a - rect.a0 + 1] = sum[above + a - rect.a0 + 1] + row;
+            }
+        }
+        BoxCount { sum, rect, w }
+    }
+    /// Calls `f(i, c)` for every pixel i of the n×n image whose (2r+1)² square lies within the
+    /// rectangle, with c the number of set pixels in that square.
+    pub(super) fn each_square(&self, n: usize, r: usize, mut f: impl FnMut(usize, u32)) {
+        let (w, rc) = (self.w, self.rect);
+        for b in rc.b0 + r..rc.b1.saturating_sub(r) {
+            let top = &self.sum[(b - r - rc.b0) * w..][..w];
+            let bot = &self.sum[(b + r + 1 - rc.b0) * w..][..w];
+            for a in rc.a0 + r..rc.a1.saturating_sub(r) {
+                let (x0, x1) = (a - r - rc.a0, a + r + 1 - rc.a0);
+                f(b * n + a, bot[x1] + top[x0] - top[x1] - bot[x0]);
+            }
+        }
+    }
+}
+
+/// A dark pixel on the given side of the partition, a little way off its midpoint, whose 3×3
+/// neighbourhood is dark too.
+pub(super) fn find_seed(img: &Img, line: &Line, mid: [f64; 2], side: f64, thr: f32, vmax: f64, width: f64) -> Option<usize> {
+    let n = img.n;
+    let dark = |i: usize| img.sm[i].is_finite() && img.sm[i] < thr && !img.is_blocked(i);
+    let mut d = 1.5 * vmax;
+    let far = (0.8 * width).max(4.0 * vmax);
+    while d <= far {
+        let q = [mid[0] + side * d * line.n[0], mid[1] + side * d * line.n[1]];
+        if let Some(i) = img.index(q) {
+            let (a, b) = (i % n, i / n);
+            if a > 0 && b > 0 && a + 1 < n && b + 1 < n && img.apical[i] == (side > 0.0) {
+                let all = (0..3).all(|db| (0..3).all(|da| dark((b + db - 1) * n + a + da - 1)));
+                if all {
+                    return Some(i);
+                }
+            }
+        }
+        d += 0.5 * img.pitch;
+    }
+    None
+}
+
+/// Pixel rectangle a ∈ [a0, a1), b ∈ [b0, b1).
+#[derive(Clone, Copy)]
+pub(super) struct Rect {
+    pub a0: usize,
+    pub a1: usize,
+    pub b0: usize,
+    pub b1: usize,
+}
+
+impl Rect {
+    /// Widened by `k` pixels on every side, within an n×n image.
+    pub(super) fn widen(self, k: usize, n: usize) -> Rect {
+        Rect { a0: self.a0.saturating_sub(k), a1: (self.a1 + k).min(n), b0: self.b0.saturating_sub(k), b1: (self.b1 + k).min(n) }
+    }
+    pub(super) fn pixels(self, n: usize) -> impl Iterator<Item = usize> {
+        (self.b0..self.b1).flat_map(move |b| (self.a0..self.a1).map(move |a| b * n + a))
+    }
+}
+
+pub(super) struct Region {
+    pub mask: Vec<bool>,
+    /// Bounding box of the mask.
+    pub bounds: Rect,
+    pub touches_border: bool,
+    pub touches_nan: bool,
+}
+
+impl Region {
+    /// The region comes within `band` pixels of the border of the n×n square.
+    pub(super) fn overflows(&self, n: usize, band: usize) -> bool {
+        let b = self.bounds;
+        b.a0.min(b.b0).min(n - b.a1).min(n - b.b1) < band
+    }
+}
+
+/// 4-connected flood fill from `seed` over pixels of the smoothed image darker than `thr` on one
+/// side of the partition line, stopping at a user's barrier.
+pub(super) fn grow(img: &Img, seed: usize, side: f64, thr: f32) -> Region {
+    let n = img.n;
+    let mut mask = vec![false; n * n];
+    let mut stack = vec![seed];
+    mask[seed] = true;
+    let (mut touches_border, mut touches_nan) = (false, false);
+    let mut bounds = Rect { a0: seed % n, a1: seed % n + 1, b0: seed / n, b1: seed / n + 1 };
+    while let Some(i) = stack.pop() {
+        let (a, b) = (i % n, i / n);
+        if a == 0 || b == 0 || a + 1 == n || b + 1 == n {
+            touches_border = true;
+        }
+        bounds = Rect { a0: bounds.a0.min(a), a1: bounds.a1.max(a + 1), b0: bounds.b0.min(b), b1: bounds.b1.max(b + 1) };
+        let mut visit = |j: usize| {
+            if mask[j] {
+                return;
+            }
+            let x = img.sm[j];
+            if x.is_nan() {
+                touches_nan = true;
+                return;
+            }
+            if x < thr && img.apical[j] == (side > 0.0) && !img.is_blocked(j) {
+                mask[j] = true;
+                stack.push(j);
+            }
+        };
+        if a > 0 {
+            visit(i - 1);
+        }
+        if a + 1 < n {
+            visit(i + 1);
+        }
+        if b > 0 {
+            visit(i - n);
+        }
+        if b + 1 < n {
+            visit(i + n);
+        }
+    }
+    Region { mask, bounds, touches_border, touches_nan }
+}
+
+
+/// The image smoothed by a binomial [1 2 1]/4 kernel applied twice in each direction (σ ≈ one
+/// pixel, half a voxel); a pixel next to a NaN is NaN.
+pub(super) fn smooth(v: &[f32], n: usize) -> Vec<f32> {
+    let pass = |src: &[f32], step: usize| -> Vec<f32> {
+        (0..src.len())
+            .map(|i| {
+                let (a, b) = (i % n, i / n);
+                let (lo, hi) = if step == 1 { (a > 0, a + 1 < n) } else { (b > 0, b + 1 < n) };
+                let l = if lo { src[i - step] } else { src[i] };
+                let r = if hi { src[i + step] } else { src[i] };
+                0.25 * l + 0.5 * src[i] + 0.25 * r
+            })
+            .collect()
+    };
+    let mut out = v.to_vec();
+    for _ in 0..2 {
+        out = pass(&pass(&out, 1), n);
+    }
+    out
+}
+
+/// Cuts the necks of a region: pixels deeper than ρ (chamfer distance to the region's outside,
+/// ρ = a quarter of the deepest pixel's depth, at least `min_px`) form its core; the core
+/// component nearest the seed is kept and grown back by 2ρ within the region (which restores
+/// corners down to 60°, as where the partition meets the wall). Whatever hung on through a neck
+/// narrower than 2ρ — a nerve canal, a gap in a septum, the next turn — is dropped beyond the
+/// neck, with its touches of the border.
+pub(super) fn cut_necks(img: &Img, r: Region, seed: usize, min_px: usize) -> Region {
+    let n = img.n;
+    let rc = r.bounds.widen(1, n);
+    let (w, h) = (rc.a1 - rc.a0, rc.b1 - rc.b0);
+    let at = |x: usize, y: usize| (rc.b0 + y) * n + rc.a0 + x;
+    // chamfer distance to the outside of the mask, in thirds of a pixel
+    let d = chamfer(w, h, |k| !r.mask[at(k % w, k / w)]);
+    let deepest = d.iter().copied().max().unwrap_or(0);
+    let rho = ((0.25 * deepest as f64) as u32).max(3 * min_px as u32);
+    if deepest <= rho {
+        return r;
+    }
+    // the core component nearest the seed: search outward from the seed within the mask
+    let local = |i: usize| -> Option<usize> {
+        let (a, b) = (i % n, i / n);
+        (a >= rc.a0 && a < rc.a1 && b >= rc.b0 && b < rc.b1).then(|| (b - rc.b0) * w + a - rc.a0)
+    };
+    let Some(s0) = local(seed) else { return r };
+    let mut seen = vec![false; w * h];
+    let mut queue = std::collections::VecDeque::from([s0]);
+    seen[s0] = true;
+    let mut start = None;
+    while let Some(k) = queue.pop_front() {
+        if d[k] > rho {
+            start = Some(k);
+            break;
+        }
+        for j in neighbours(k, w, h) {
+            if !seen[j] && d[j] > 0 {
+                seen[j] = true;
+                queue.push_back(j);
+            }
+        }
+    }
+    let Some(start) = start else { return r };
+    // the core component, then everything within ρ of it inside the mask (chamfer steps)
+    let mut keep = vec![u32::MAX; w * h];
+    let mut stack = vec![start];
+    keep[start] = 0;
+    let mut core = vec![];
+    while let Some(k) = stack.pop() {
+        core.push(k);
+        for j in neighbours(k, w, h) {
+            if keep[j] != 0 && d[j] > rho {
+                keep[j] = 0;
+                stack.push(j);
+            }
+        }
+    }
+    let mut heap: std::collections::BinaryHeap<std::cmp::Reverse<(u32, usize)>> = core.iter().map(|&k| std::cmp::Reverse((0, k))).collect();
+    while let Some(std::cmp::Reverse((dist, k))) = heap.pop() {
+        if dist > keep[k] {
+            continue;
+        }
+        let (x, y) = (k % w, k / w);
+        for (dx, dy, c) in [(-1, 0, 3), (1, 0, 3), (0, -1, 3), (0, 1, 3), (-1, -1, 4), (1, -1, 4), (-1, 1, 4), (1, 1, 4)] {
+            let (xx, yy) = (x as isize + dx, y as isize + dy);
+            if xx < 0 || yy < 0 || xx >= w as isize || yy >= h as isize {
+                continue;
+            }
+            let j = yy as usize * w + xx as usize;
+            let nd = dist + c;
+            if d[j] > 0 && nd <= 2 * rho + 2 && nd < keep[j] {
+                keep[j] = nd;
+                heap.push(std::cmp::Reverse((nd, j)));
+            }
+        }
+    }
+    let mut mask = vec![false; n * n];
+    let (mut touches_border, mut bounds) = (false, Rect { a0: n, a1: 0, b0: n, b1: 0 });
+    for k in 0..w * h {
+        if keep[k] != u32::MAX {
+            let (a, b) = (rc.a0 + k % w, rc.b0 + k / w);
+            mask[b * n + a] = true;
+            touches_border |= a == 0 || b == 0 || a + 1 == n || b + 1 == n;
+            bounds = Rect { a0: bounds.a0.min(a), a1: bounds.a1.max(a + 1), b0: bounds.b0.min(b), b1: bounds.b1.max(b + 1) };
+        }
+    }
+    // a NaN next to the kept part still counts
+    let touches_nan = r.touches_nan
+        && bounds.widen(1, n).pixels(n).any(|i| img.sm[i].is_nan() && [i.wrapping_sub(1), i + 1, i.wrapping_sub(n), i + n].iter().any(|&j| j < n * n && mask[j]));
+    Region { mask, bounds, touches_border, touches_nan }
+}
+
+/// 4-neighbours of pixel k in a w×h grid.
+fn neighbours(k: usize, w: usize, h: usize) -> impl Iterator<Item = usize> {
+    let (x, y) = (k % w, k / w);
+    [(x > 0).then(|| k - 1), (x + 1 < w).then(|| k + 1), (y > 0).then(|| k - w), (y + 1 < h).then(|| k + w)].into_iter().flatten()
+}
+
+/// Chamfer (3-4) distance of every pixel of a w×h grid to the nearest pixel of a set, in thirds
+/// of a pixel (Borgefors 1986: within 8 % of Euclidean); far from any set pixel: u32::MAX / 4.
+pub(super) fn chamfer(w: usize, h: usize, set: impl Fn(usize) -> bool) -> Vec<u32> {
+    const FAR: u32 = u32::MAX / 4;
+    let mut d: Vec<u32> = (0..w * h).map(|k| if set(k) { 0 } else { FAR }).collect();
+    for y in 0..h {
+        for x in 0..w {
+            let k = y * w + x;
+            if d[k] == 0 {
+                continue;
+            }
+            let mut m = d[k];
+            if x > 0 {
+                m = m.min(d[k - 1] + 3);
+            }
+            if y > 0 {
+                m = m.min(d[k - w] + 3);
+                if x > 0 {
+                    m = m.min(d[k - w - 1] + 4);
+                }
+                if x + 1 < w {
+                    m = m.min(d[k - w + 1] + 4);
+                }
+            }
+            d[k] = m;
+        }
+    }
+    for y in (0..h).rev() {
+        for x in (0..w).rev() {
+            let k = y * w + x;
+            if d[k] == 0 {
+                continue;
+            }
+            let mut m = d[k];
+            if x + 1 < w {
+                m = m.min(d[k + 1] + 3);
+            }
+            if y + 1 < h {
+                m = m.min(d[k + w] + 3);
+                if x + 1 < w {
+                    m = m.min(d[k + w + 1] + 4);
+                }
+                if x > 0 {
+                    m = m.min(d[k + w - 1] + 4);
+                }
+            }
+            d[k] = m;
+        }
+    }
+    d
+}

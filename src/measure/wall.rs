@@ -1,0 +1,48 @@
+//! Step 5: lateral wall thickness.
+
+use super::levels::Levels;
+use crate::section::{self, SectionGeom};
+use crate::stack::Stack;
+use crate::with_samples;
+
+/// Lateral wall thickness (mm) along the partition direction `dir` from `mid` (section
+/// coordinates): past the lumen, the crossing into bone (halfway from soft tissue to bone, so a
+/// soft-tissue lining is not counted as wall), then the crossing out of it. The profile is the
+/// mean of four lines at ±1 and ±2 pitches off the partition line.
+pub(super) fn wall(stack: &Stack, g: &SectionGeom, mid: [f64; 2], dir: [f64; 2], pitch: f64, capture: f64, lv: &Levels) -> Option<f64> {
+    let (lumen_cut, thr, bone) = (lv.lumen_cut(), lv.bone_cut(), lv.bone);
+    let vox = stack.voxel.as_ref()?;
+    let h = 0.5 * pitch;
+    let steps = ((capture + 1.0) / h) as usize;
+    let normal = [-dir[1], dir[0]];
+    let prof: Vec<f32> = with_samples!(&stack.samples, data => (0..steps).map(|i| {
+        let d = i as f64 * h;
+        let mut acc = 0.0f32;
+        for o in [-2.0, -1.0, 1.0, 2.0] {
+            let q = [mid[0] + d * dir[0] + o * pitch * normal[0], mid[1] + d * dir[1] + o * pitch * normal[1]];
+            acc += section::trilinear_idx(data, stack.dims, stack.to_index(g.from_plane(q)));
+        }
+        acc / 4.0
+    }).collect());
+    let cross = |i: usize, t: f32| -> f64 {
+        let (a, b) = (prof[i - 1], prof[i]);
+        ((i - 1) as f64 + ((t - a) / (b - a)).clamp(0.0, 1.0) as f64) * h
+    };
+    let first_dark = prof.iter().position(|x| x.is_finite() && *x < lumen_cut)?;
+    let up = (first_dark + 1..prof.len()).find(|&i| !prof[i].is_finite() || prof[i] >= thr)?;
+    let down = (up + 1..prof.len()).find(|&i| !prof[i].is_finite() || prof[i] < thr)?;
+    if !prof[up].is_finite() || !prof[down].is_finite() {
+        return None;
+    }
+    // The outer edge's half level lies between bone and what is outside the wall, which need
+    // not be fluid: take that level from the profile two to four voxels beyond the edge.
+    let k = (vox.max() / h).ceil() as usize;
+    let mut outside: Vec<f32> = prof.get(down + 2 * k..(down + 4 * k).min(prof.len()))?.iter().copied().filter(|x| x.is_finite()).collect();
+    if outside.is_empty() {
+        return None;
+    }
+    outside.sort_by(f32::total_cmp);
+    let t_out = (0.5 * (bone + outside[outside.len() / 2])).max(thr);
+    let down = (up + 1..prof.len()).find(|&i| prof[i] < t_out).unwrap_or(down);
+    Some(cross(down, t_out) - cross(up, thr))
+}
