@@ -5,8 +5,8 @@
 //! Angles here are radians (θ, unwrapped, 0 toward the round window); lengths mm.
 
 use crate::frame::{Frame, Handedness, v3, v3::V};
-use crate::spiral;
 use crate::landmarks::{Kind, Landmark};
+use crate::spiral;
 use crate::spline::SmoothSpline;
 use crate::{Error, Result};
 use serde::{Deserialize, Serialize};
@@ -207,11 +207,7 @@ impl Centreline {
         let frame = &frame;
         let rad = |v: &[f64]| -> Vec<f64> { v.iter().map(|t| t.to_radians()).collect() };
         let (lt, gt) = (rad(&turns.lamina), rad(&turns.ligament));
-        let ambiguous = turns
-            .ambiguous
-            .iter()
-            .map(|&(e, k, t, alt)| (if e == 0 { li[k] } else { gi[k] }, t.to_radians(), alt.to_radians()))
-            .collect();
+        let ambiguous = turns.ambiguous.iter().map(|&(e, k, t, alt)| (if e == 0 { li[k] } else { gi[k] }, t.to_radians(), alt.to_radians())).collect();
         // the two edges are independent: the ligament is fitted on a thread of its own (not the
         // rayon pool, which a measure in the background may keep busy while the app refits)
         let (lamina, ligament) = std::thread::scope(|sc| {

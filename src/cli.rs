@@ -386,4 +386,3 @@ pub fn measure(a: MeasureArgs) -> Result<()> {
     eprintln!("wrote {}", a.out.display());
     Ok(())
 }
-

@@ -77,6 +77,12 @@ impl LengthEstimates {
 }
 
 /// Escudé et al. 2006 lateral-wall length (mm) to angle `theta_deg` for basal diameter `a_mm`.
+///
+/// ```
+/// // REFERENCES.md: A = 9 mm, two full turns (720°) → 33.06 mm
+/// let l = ductline::cochlea::escude(9.0, 720.0);
+/// assert!((l - 33.06).abs() < 0.01);
+/// ```
 pub fn escude(a_mm: f64, theta_deg: f64) -> f64 {
     2.62 * a_mm * (1.0 + theta_deg / 235.0).ln()
 }

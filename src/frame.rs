@@ -78,6 +78,17 @@ pub struct Frame {
 impl Frame {
     /// Builds the frame from two axis points (base, apex) and the round-window centre.
     /// Errors when the axis points coincide or the window lies on the axis.
+    ///
+    /// ```
+    /// use ductline::frame::{Frame, Handedness};
+    /// // axis along +z through (5, 5), round window toward +x
+    /// let f = Frame::new([5.0, 5.0, 0.0], [5.0, 5.0, 4.0], [8.0, 5.0, 1.0], Handedness::Right).unwrap();
+    /// let [r, angle, height] = f.to_cochlear([5.0, 7.0, 2.0]);
+    /// assert!((r - 2.0).abs() < 1e-12 && (angle - 90.0).abs() < 1e-12 && (height - 1.0).abs() < 1e-12);
+    /// // a left ear: the same point lies at −90°, its angles grow the other way round
+    /// let l = Frame::new([5.0, 5.0, 0.0], [5.0, 5.0, 4.0], [8.0, 5.0, 1.0], Handedness::Left).unwrap();
+    /// assert!((l.to_cochlear([5.0, 7.0, 2.0])[1] + 90.0).abs() < 1e-12);
+    /// ```
     pub fn new(axis_base: V, axis_apex: V, window: V, handed: Handedness) -> Result<Frame> {
         let axis = v3::sub(axis_apex, axis_base);
         if v3::norm(axis) < 1e-9 {

@@ -256,10 +256,11 @@ impl PhantomSpec {
                 return (m, t, clear);
             }
             // the spiral ligament: a soft-tissue crescent between the lateral lumen and the bone
+            // on the lateral wall only (outside half the half-width), thickest at the partition
             let lig = self.anatomy.ligament_mm;
-            if lig > 0.0 && in_range && dr > 0.0 {
+            if lig > 0.0 && in_range && dr > 0.5 * d.a {
                 let rho_l = ((dr / (d.a + lig)).powi(2) + (dz / (d.b + 0.5 * lig)).powi(2)).sqrt();
-                clear = clear.min((rho_l - 1.0).abs() * d.a.min(d.b)).min(dr.abs());
+                clear = clear.min((rho_l - 1.0).abs() * d.a.min(d.b)).min((dr - 0.5 * d.a).abs());
                 if rho_l < 1.0 {
                     return (Mat::Tissue, t, clear);
                 }
@@ -419,13 +420,15 @@ impl PhantomSpec {
     /// embedded in capsule bone with thin shared septa (0.06–0.2 mm), thin bony lateral walls
     /// (0.1–0.25 mm) lined by a spiral ligament (0.12–0.25 mm), a limbus (0.08–0.15 mm), a tapering shelf, a bony modiolus with a
     /// nerve core and canals toward scala tympani, an internal auditory canal, a basal dip of
-    /// 0–1.4 mm; fluid-filled (soft tissue 20–35 % of the way from lumen to bone) or (one in four)
+    /// 0–1.4 mm; fluid-filled (soft tissue 20–35 % of the way from lumen to bone) or (every fourth, n = 3, 7, 11, …)
     /// air-filled; rings, cupping, drift, contrast-to-noise 5–30,
     /// blur 0.5–1.5 voxel; left or right, tilted up to 60°. Every draw is printed in the spec.
     pub fn variant(n: u64, voxel_um: [f64; 3]) -> PhantomSpec {
         let mut g = Rng(0xC0C1_EA00 ^ n.wrapping_mul(0x9E37_79B9_7F4A_7C15));
         let mut u = |a: f64, b: f64| a + (b - a) * g.next();
-        let air = u(0.0, 1.0) < 0.25;
+        let _ = u(0.0, 1.0);
+        // every fourth member air-filled
+        let air = n % 4 == 3;
         let lumen = if air { u(0.02, 0.05) } else { u(0.12, 0.25) };
         let bone = u(0.75, 0.95);
         let tissue = if air { u(0.28, 0.4) } else { lumen + u(0.2, 0.35) * (bone - lumen) };
@@ -466,13 +469,7 @@ impl PhantomSpec {
             nerve_level: tissue,
             iac_level: if air { lumen } else { tissue },
         };
-        sp.scanner = Scanner {
-            ring_amp: u(0.02, 0.06),
-            rings: u(0.0, 6.99) as u32,
-            cupping: u(0.0, 0.15),
-            drift: u(0.0, 0.1),
-            cnr: Some(u(5.0, 30.0)),
-        };
+        sp.scanner = Scanner { ring_amp: u(0.02, 0.06), rings: u(0.0, 6.99) as u32, cupping: u(0.0, 0.15), drift: u(0.0, 0.1), cnr: Some(u(5.0, 30.0)) };
         let septum = u(0.06, 0.2);
         sp.rise_per_turn_mm = sp.rise_for_septum(septum);
         sp
@@ -487,7 +484,9 @@ impl PhantomSpec {
             for k in 0..8 {
                 let t = k as f64 * TAU / 8.0;
                 let (a, b) = (sp.duct(t), sp.duct(t + TAU));
-                let ring = |d: &Duct| -> Vec<(f64, f64)> { (0..90).map(|i| (i as f64 * TAU / 90.0).sin_cos()).map(|(s, c)| (d.rc + d.a * c, d.zc + d.b * s)).collect() };
+                let ring = |d: &Duct| -> Vec<(f64, f64)> {
+                    (0..90).map(|i| (i as f64 * TAU / 90.0).sin_cos()).map(|(s, c)| (d.rc + d.a * c, d.zc + d.b * s)).collect()
+                };
                 let (pa, pb) = (ring(&a), ring(&b));
                 for p in &pa {
                     for q in &pb {

@@ -59,6 +59,20 @@ pub fn handedness(right: &Frame, lamina: &[V], ligament: &[V]) -> Handedness {
 }
 
 /// Assigns turns to the lamina and ligament points (stack mm) in `frame`.
+///
+/// ```
+/// use ductline::frame::{Frame, Handedness};
+/// let f = Frame::new([0.0; 3], [0.0, 0.0, 1.0], [1.0, 0.0, 0.0], Handedness::Right).unwrap();
+/// // two and a half turns every 30°, radius shrinking, height dipping before it climbs; rows shuffled
+/// let mut lam: Vec<[f64; 3]> = (0..=30).map(|k| {
+///     let t = 30.0 * k as f64;
+///     f.to_stack(3.0 - t / 450.0, t, 0.002 * t - 0.6 * (t.to_radians() / 2.0).sin().powi(2) * (t < 360.0) as u8 as f64)
+/// }).collect();
+/// lam.reverse();
+/// let turns = ductline::spiral::assign(&f, &lam, &[]);
+/// assert!(!turns.reversed && turns.ambiguous.is_empty());
+/// assert!((turns.lamina[0] - 900.0).abs() < 1e-9 && turns.lamina[30].abs() < 1e-9);
+/// ```
 pub fn assign(frame: &Frame, lamina: &[V], ligament: &[V]) -> Turns {
     let cyl = |pts: &[V]| -> Vec<Cyl> {
         pts.iter()
@@ -322,6 +336,11 @@ impl Curve {
             Some(d[d.len() / 2])
         };
         let here = misfit(0.0).unwrap_or(f64::INFINITY);
-        [-1.0, 1.0].into_iter().filter_map(|k| misfit(k).map(|m| (m, k))).filter(|(m, _)| *m < 0.5 * here).min_by(|a, b| a.0.total_cmp(&b.0)).map_or(0.0, |b| b.1)
+        [-1.0, 1.0]
+            .into_iter()
+            .filter_map(|k| misfit(k).map(|m| (m, k)))
+            .filter(|(m, _)| *m < 0.5 * here)
+            .min_by(|a, b| a.0.total_cmp(&b.0))
+            .map_or(0.0, |b| b.1)
     }
 }

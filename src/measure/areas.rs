@@ -161,7 +161,6 @@ pub(super) fn outline(img: &Img, field: &[f32], c: [f64; 2]) -> Vec<[f64; 2]> {
         .collect()
 }
 
-
 /// The maximum of `v` over the (2r+1)² square around each pixel of `rect` (NaN-free values only;
 /// −∞ elsewhere), as an n×n field. Separable: rows, then columns.
 pub(super) fn local_max(v: &[f32], n: usize, rect: Rect, r: usize) -> Vec<f32> {

@@ -169,23 +169,36 @@ pub(super) fn lumen_level(img: &Img, line: &Line, mid: [f64; 2], thr: f32, vmax:
     Lumen::Level(median_f32(&mut vals))
 }
 
+/// What borders the lumen of a section.
+#[derive(Clone, Copy, Debug, PartialEq)]
+pub(super) enum Near {
+    /// Soft tissue at this level.
+    Tissue(f32),
+    /// Bone nearly all round: two materials.
+    Bone,
+    /// Tissue, but no clear level here (the pooled histogram's is used).
+    Unclear,
+}
 
 /// The soft-tissue level next to the lumen: the mode of the smoothed values in the ring 1.5 to
-/// four voxels (`vox` pixels each) outside the scalae `found`, leaving out pixels within two voxels
-/// of bone and values within 15 % of the lumen–bone step of the lumen. None with under 30 such
-/// pixels or under a twentieth of the ring (the lumen is walled by bone: no soft tissue to weigh) or when their values show no
-/// clear peak.
-pub(super) fn tissue_near(img: &Img, found: &[super::regions::Region], lv: &Levels, vox: usize) -> Option<f32> {
+/// four voxels (`vox` pixels each) outside the scalae `found`, leaving out pixels within a voxel
+/// of bone and values within 10 % of the lumen–bone step of the lumen. `Bone` with under 30 such
+/// pixels or under a twentieth of the ring (the lumen is walled by bone: no soft tissue to weigh),
+/// `Unclear` when their values show no clear peak.
+pub(super) fn tissue_near(img: &Img, found: &[super::regions::Region], lv: &Levels, vox: usize) -> Near {
     use super::areas::{local_max, near};
     use super::regions::Rect;
     let n = img.n;
     let union = |i: usize| found.iter().any(|r| r.mask[i]);
-    let bounds = found.iter().map(|r| r.bounds).reduce(|a, b| Rect { a0: a.a0.min(b.a0), a1: a.a1.max(b.a1), b0: a.b0.min(b.b0), b1: a.b1.max(b.b1) })?;
+    let Some(bounds) = found.iter().map(|r| r.bounds).reduce(|a, b| Rect { a0: a.a0.min(b.a0), a1: a.a1.max(b.a1), b0: a.b0.min(b.b0), b1: a.b1.max(b.b1) })
+    else {
+        return Near::Unclear;
+    };
     let outer = near(n, bounds, 4 * vox, union);
     let inner = near(n, bounds, (3 * vox).div_ceil(2), union);
     let reach = bounds.widen(4 * vox, n);
-    let bone_near = local_max(&img.sm, n, reach, 2 * vox);
-    let (lo, hi) = (lv.lumen + 0.15 * (lv.bone - lv.lumen), lv.bone_cut());
+    let bone_near = local_max(&img.sm, n, reach, vox);
+    let (lo, hi) = (lv.lumen + 0.1 * (lv.bone - lv.lumen), lv.bone_cut());
     const B: usize = 64;
     let mut h = [0f64; B];
     let (mut count, mut ring) = (0, 0);
@@ -201,14 +214,14 @@ pub(super) fn tissue_near(img: &Img, found: &[super::regions::Region], lv: &Leve
     }
     // soft tissue must line a fair part of the lumen to weigh: else the lumen is walled by bone
     if count < 30 || count * 20 < ring {
-        return None;
+        return Near::Bone;
     }
     let sm: Vec<f64> = (0..B).map(|i| h[i.saturating_sub(1)..(i + 2).min(B)].iter().sum()).collect();
-    let m = (0..B).max_by(|&a, &b| sm[a].total_cmp(&sm[b]))?;
+    let Some(m) = (0..B).max_by(|&a, &b| sm[a].total_cmp(&sm[b])) else { return Near::Unclear };
     // a real tissue shows as a peak inside the range, well above the flat spread of blurred edges
     let mean = sm.iter().sum::<f64>() / B as f64;
-    if m < B / 10 || m > B - B / 10 || sm[m] < 3.0 * mean {
-        return None;
+    if m < 2 || m > B - B / 10 || sm[m] < 3.0 * mean {
+        return Near::Unclear;
     }
-    Some(lo + (m as f32 + 0.5) / (B as f32 - 1.0) * (hi - lo))
+    Near::Tissue(lo + (m as f32 + 0.5) / (B as f32 - 1.0) * (hi - lo))
 }

@@ -216,7 +216,9 @@ pub fn measure(
     progress.start(2 * geoms.len() as u64);
     let pitch = s.pitch_mm.unwrap_or(f64::INFINITY).min(0.5 * vox.min());
     let vmax = vox.max();
-    let ov_of = |g: &SectionGeom| overrides.iter().filter(|o| (o.s_mm - g.s).abs() <= 0.5 * s.step_mm).min_by(|a, b| (a.s_mm - g.s).abs().total_cmp(&(b.s_mm - g.s).abs()));
+    let ov_of = |g: &SectionGeom| {
+        overrides.iter().filter(|o| (o.s_mm - g.s).abs() <= 0.5 * s.step_mm).min_by(|a, b| (a.s_mm - g.s).abs().total_cmp(&(b.s_mm - g.s).abs()))
+    };
     // first pass: each section's first square, and the histograms that give the levels
     let first: Vec<Img> = geoms
         .par_iter()
@@ -233,12 +235,12 @@ pub fn measure(
     // soft tissue from what actually borders the lumen: the scalae grown in each first square, the
     // ring of pixels just outside them (`levels::tissue_near`), and the median over the
     // neighbouring sections
-    let near: Vec<Option<f32>> = first
+    let near: Vec<levels::Near> = first
         .par_iter()
         .zip(geoms.par_iter())
         .zip(auto.par_iter())
         .map(|((img, g), lv)| {
-            let lv = lv.filter(|l| l.tissue < l.bone)?;
+            let Some(lv) = lv.filter(|l| l.tissue < l.bone) else { return levels::Near::Bone };
             let part = Partition::of(g);
             let (thr, erode) = (lv.lumen_cut(), (vmax / pitch).ceil() as usize);
             let found: Vec<regions::Region> = [1.0f64, -1.0]
@@ -251,12 +253,20 @@ pub fn measure(
             levels::tissue_near(img, &found, &lv, erode)
         })
         .collect();
-    // where no soft tissue lines the lumen nearby, two materials: lumen against bone
+    // over the neighbouring sections: the median tissue level where tissue was seen clearly, two
+    // materials (lumen against bone) where bone walls the lumen, else the pooled histogram's
     for (i, lv) in auto.iter_mut().enumerate() {
         let window = &near[i.saturating_sub(2 * pool)..(i + 2 * pool + 1).min(near.len())];
-        let mut around: Vec<f32> = window.iter().flatten().copied().collect();
+        let mut seen: Vec<f32> = window.iter().filter_map(|x| if let levels::Near::Tissue(t) = x { Some(*t) } else { None }).collect();
+        let walled = window.iter().filter(|x| **x == levels::Near::Bone).count();
         if let Some(lv) = lv.as_mut() {
-            let t = if 3 * around.len() >= window.len() { levels::median_f32(&mut around) } else { lv.bone };
+            let t = if 2 * walled > window.len() {
+                lv.bone
+            } else if 3 * seen.len() >= window.len() {
+                levels::median_f32(&mut seen)
+            } else {
+                lv.tissue
+            };
             lv.tissue = if t > lv.lumen && t < lv.bone { t } else { lv.bone };
         }
     }
@@ -413,10 +423,6 @@ fn section_row(
                 _ => {}
             }
         }
-        if let Ok(e) = std::env::var("DL_LEVELS") {
-            let v: Vec<f32> = e.split(',').map(|x| x.parse().unwrap()).collect();
-            row.levels = Levels { lumen: v[0], tissue: v[1], bone: v[2] };
-        }
         let thr = row.levels.lumen_cut();
         let mut grow_more = false;
         let mut open = false;
@@ -438,13 +444,6 @@ fn section_row(
             }
             open |= r.touches_border || r.touches_nan;
             let (area, field, centroid) = areas::fraction_area(&img, &r, side, &row.levels, band, erode);
-            if std::env::var("DL_DUMP").ok().and_then(|x| x.parse::<f64>().ok()).is_some_and(|x| (x - g.s).abs() < 0.01) {
-                let mut out = format!("{} {} {} {} {}\n", img.n, row.levels.lumen, row.levels.tissue, row.levels.bone, area);
-                for i in 0..img.n * img.n {
-                    out.push_str(&format!("{} {} {}\n", img.v[i], r.mask[i] as u8, field[i]));
-                }
-                std::fs::write(format!("/tmp/dump_{k}.txt"), out).ok();
-            }
             scalae[k] = Scala { area: Some(area), outline: areas::outline(&img, &field, centroid), centroid, seed: Some(img.uv(seed)) };
         }
         if grow_more {
@@ -526,4 +525,3 @@ fn sample_section(stack: &Stack, g: &SectionGeom, line: &Line, half: f64, pitch:
     }
     img
 }
-

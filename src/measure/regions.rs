@@ -142,7 +142,6 @@ pub(super) fn grow(img: &Img, seed: usize, side: f64, thr: f32) -> Region {
     Region { mask, bounds, touches_border, touches_nan }
 }
 
-
 /// The image smoothed by a binomial [1 2 1]/4 kernel applied twice in each direction (σ ≈ one
 /// pixel, half a voxel); a pixel next to a NaN is NaN.
 pub(super) fn smooth(v: &[f32], n: usize) -> Vec<f32> {
@@ -250,7 +249,10 @@ pub(super) fn cut_necks(img: &Img, r: Region, seed: usize, min_px: usize) -> Reg
     }
     // a NaN next to the kept part still counts
     let touches_nan = r.touches_nan
-        && bounds.widen(1, n).pixels(n).any(|i| img.sm[i].is_nan() && [i.wrapping_sub(1), i + 1, i.wrapping_sub(n), i + n].iter().any(|&j| j < n * n && mask[j]));
+        && bounds
+            .widen(1, n)
+            .pixels(n)
+            .any(|i| img.sm[i].is_nan() && [i.wrapping_sub(1), i + 1, i.wrapping_sub(n), i + n].iter().any(|&j| j < n * n && mask[j]));
     Region { mask, bounds, touches_border, touches_nan }
 }
 

@@ -1,0 +1,116 @@
+//! The realistic phantom family (`PhantomSpec::variant`): turns embedded in capsule bone with thin
+//! shared septa, soft tissue lining the lumen, a bony modiolus with nerve canals, fluid- or
+//! air-filled, rings, cupping, drift, contrast-to-noise 5–30, blur, left and right ears tilted up
+//! to 60°. Twelve members at 25–80 µm are measured and compared with their analytic truth (5 µm
+//! rasterization of the same geometry, `phantom::truth`); each prints its share of sound
+//! sections and its area, width and wall errors.
+//!
+//! What is held here is what the method reaches today, as a guard against regressions; the
+//! targets of the measures issue (median ≤ 1.5 %, p95 ≤ 4 %) are not met on this family yet —
+//! soft tissue thinner than about two voxels next to bone (the limbus on the lamina) is still
+//! partly counted as lumen. The printed table is the record.
+
+use ductline::centreline::FitSettings;
+use ductline::cochlea::Greenwood;
+use ductline::measure::{Flag, MeasureSettings};
+use ductline::phantom::{self, PhantomSpec};
+use ductline::progress::Progress;
+
+mod common;
+
+struct Member {
+    n: u64,
+    voxel: [f64; 3],
+}
+
+fn stats(v: &mut [f64]) -> (f64, f64) {
+    if v.is_empty() {
+        return (f64::NAN, f64::NAN);
+    }
+    v.sort_by(f64::total_cmp);
+    (common::quantile(v, 0.5), common::quantile(v, 0.95))
+}
+
+#[test]
+fn family_sweep() {
+    let members = [
+        Member { n: 0, voxel: [80.0; 3] },
+        Member { n: 1, voxel: [70.0; 3] },
+        Member { n: 2, voxel: [60.0, 60.0, 80.0] },
+        Member { n: 3, voxel: [50.0; 3] },
+        Member { n: 4, voxel: [50.0; 3] },
+        Member { n: 5, voxel: [45.0; 3] },
+        Member { n: 6, voxel: [40.0, 40.0, 60.0] },
+        Member { n: 7, voxel: [40.0; 3] },
+        Member { n: 8, voxel: [35.0, 35.0, 50.0] },
+        Member { n: 9, voxel: [65.0; 3] },
+        Member { n: 10, voxel: [30.0; 3] },
+        Member { n: 11, voxel: [25.0, 25.0, 50.0] },
+    ];
+    let gw = Greenwood::preset("human").unwrap();
+    eprintln!("member voxel_um        cnr  air  sound   SV med/p95 %    ST med/p95 %   width µm  wall µm");
+    let mut worst_sv: f64 = 0.0;
+    let mut worst_st: f64 = 0.0;
+    for m in &members {
+        let spec = PhantomSpec { truth_step_deg: 5.0, ..PhantomSpec::variant(m.n, m.voxel) };
+        let ph = phantom::generate(&spec, &Progress::new()).unwrap();
+        let ms = MeasureSettings { step_mm: 0.25, ..Default::default() };
+        let out = ductline::pipeline::run(&ph.stack, &ph.landmarks, &FitSettings::default(), &ms, &[], &gw, &Progress::new()).unwrap();
+        let tmax = spec.theta_max().to_degrees();
+        let truth_at = |a: f64, f: &dyn Fn(&phantom::TruthRow) -> f64| -> f64 {
+            let t = &ph.truth;
+            let k = t.partition_point(|r| r.angle_deg < a).clamp(1, t.len() - 1);
+            let (p, q) = (&t[k - 1], &t[k]);
+            let w = (a - p.angle_deg) / (q.angle_deg - p.angle_deg);
+            f(p) + w * (f(q) - f(p))
+        };
+        let inner: Vec<_> = out.rows.iter().filter(|r| r.angle_deg >= 30.0 && r.angle_deg <= tmax - 30.0).collect();
+        let (mut sv, mut st, mut width, mut wall) = (vec![], vec![], vec![], vec![]);
+        for r in &inner {
+            for a in [r.sv.area, r.st.area].into_iter().flatten() {
+                assert!(a > 0.0, "member {}: a non-positive area {a} at s = {} mm", m.n, r.s_mm);
+            }
+            if let Some(a) = r.sv.area {
+                sv.push((a / truth_at(r.angle_deg, &|t| t.sv_area_mm2) - 1.0).abs());
+            }
+            if let Some(a) = r.st.area {
+                st.push((a / truth_at(r.angle_deg, &|t| t.st_area_mm2) - 1.0).abs());
+            }
+            if let Some(x) = r.partition_width_mm {
+                width.push((x - truth_at(r.angle_deg, &|t| t.partition_width_mm)).abs());
+            }
+            if let Some(x) = r.wall_mm {
+                wall.push((x - truth_at(r.angle_deg, &|t| t.wall_mm)).abs());
+            }
+        }
+        let sound = inner.iter().filter(|r| r.sound()).count() as f64 / inner.len() as f64;
+        let measured = inner.iter().filter(|r| r.sv.area.is_some() && r.st.area.is_some()).count() as f64 / inner.len() as f64;
+        let leaks = inner.iter().filter(|r| r.flags.iter().any(|f| matches!(f, Flag::Open | Flag::LowContrast))).count();
+        let ((svm, sv95), (stm, st95)) = (stats(&mut sv), stats(&mut st));
+        let (wm, _) = stats(&mut width);
+        let (lm, _) = stats(&mut wall);
+        eprintln!(
+            "{:>6} {:<14} {:>5.1} {:>4} {:>5.0} %  {:>5.1} / {:>5.1}   {:>5.1} / {:>5.1}   {:>6.1}  {:>7.1}",
+            m.n,
+            format!("{:?}", m.voxel.map(|x| x as u32)),
+            spec.scanner.cnr.unwrap_or(f64::NAN),
+            if spec.levels[0] < 0.1 { "yes" } else { "no" },
+            100.0 * sound,
+            100.0 * svm,
+            100.0 * sv95,
+            100.0 * stm,
+            100.0 * st95,
+            1000.0 * wm,
+            1000.0 * lm
+        );
+        // areas on nearly every section: no leaks, levels found without thick bone
+        assert!(measured >= 0.9, "member {}: areas on {:.0} % of sections", m.n, 100.0 * measured);
+        assert!(leaks * 20 <= inner.len(), "member {}: {leaks} of {} sections open or without levels", m.n, inner.len());
+        worst_sv = worst_sv.max(svm);
+        worst_st = worst_st.max(stm);
+    }
+    // the state reached (see the module note), with room for other seeds: every member's median
+    // area error
+    assert!(worst_st < 0.2, "worst ST median error {:.1} %", 100.0 * worst_st);
+    assert!(worst_sv < 0.3, "worst SV median error {:.1} %", 100.0 * worst_sv);
+}
