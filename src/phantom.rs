@@ -657,7 +657,7 @@ pub fn generate(spec: &PhantomSpec, progress: &Progress) -> Result<Phantom> {
         let noise = sc.cnr.map_or(spec.noise, |c| contrast / c.max(0.1));
         let centre = [0.5 * (dims[0] - 1) as f64 * vox[0], 0.5 * (dims[1] - 1) as f64 * vox[1]];
         let big_r = centre[0].hypot(centre[1]).max(1e-9);
-        let mut ring_rng = Rng(spec.seed ^ 0x5EED_0F_7124);
+        let mut ring_rng = Rng(spec.seed ^ 0x005E_ED0F_7124);
         let rings: Vec<(f64, f64)> = (0..sc.rings).map(|_| (ring_rng.next() * big_r, if ring_rng.next() < 0.5 { -1.0 } else { 1.0 })).collect();
         let ring_w = vox[0].min(vox[1]);
         let noisy = |k: usize, v: &mut [f32]| {

@@ -146,7 +146,7 @@ pub fn assign(frame: &Frame, lamina: &[V], ligament: &[V]) -> Turns {
             }
         }
     }
-    ambiguous.sort_by(|a, b| (a.0, a.1).cmp(&(b.0, b.1)));
+    ambiguous.sort_by_key(|a| (a.0, a.1));
     ambiguous.dedup_by(|a, b| a.0 == b.0 && a.1 == b.1);
     let [lamina, ligament] = theta;
     Turns { lamina, ligament, reversed, ambiguous }

@@ -84,9 +84,14 @@ pub(super) fn fraction_area(img: &Img, r: &Region, side: f64, lv: &Levels, band:
     let d_bone = chamfer(w, h, |k| img.sm[at(k)] >= bone_level);
     let d_lumen = chamfer(w, h, |k| mask[at(k)]);
     let edge = 2 * 3 * erode as u32;
+    // a pixel a voxel or more outside the lumen whose value sits at the soft-tissue level is soft
+    // tissue even on bone (a blurred lumen–bone edge is brighter there)
+    let tissue_band = (lv.tissue - 0.25 * (lv.tissue - lv.lumen), lv.tissue + 0.1 * (lv.bone - lv.tissue));
     let on_bone = |i: usize| {
         let k = (i / n - reach.b0) * w + i % n - reach.a0;
-        d_bone[k] <= (3 * erode as u32) / 2 || d_bone[k] + d_lumen[k] <= edge
+        let x = img.sm[i];
+        let tissue = d_lumen[k] >= 3 * erode as u32 && x >= tissue_band.0 && x <= tissue_band.1;
+        d_bone[k] <= (3 * erode as u32) / 2 || (d_bone[k] + d_lumen[k] <= edge && !tissue)
     };
     let mut field = vec![0f32; mask.len()];
     for i in reach.pixels(n) {

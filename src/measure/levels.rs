@@ -220,7 +220,7 @@ pub(super) fn tissue_near(img: &Img, found: &[super::regions::Region], lv: &Leve
     let Some(m) = (0..B).max_by(|&a, &b| sm[a].total_cmp(&sm[b])) else { return Near::Unclear };
     // a real tissue shows as a peak inside the range, well above the flat spread of blurred edges
     let mean = sm.iter().sum::<f64>() / B as f64;
-    if m < 2 || m > B - B / 10 || sm[m] < 3.0 * mean {
+    if !(2..=B - B / 10).contains(&m) || sm[m] < 3.0 * mean {
         return Near::Unclear;
     }
     Near::Tissue(lo + (m as f32 + 0.5) / (B as f32 - 1.0) * (hi - lo))

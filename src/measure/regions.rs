@@ -239,8 +239,8 @@ pub(super) fn cut_necks(img: &Img, r: Region, seed: usize, min_px: usize) -> Reg
     }
     let mut mask = vec![false; n * n];
     let (mut touches_border, mut bounds) = (false, Rect { a0: n, a1: 0, b0: n, b1: 0 });
-    for k in 0..w * h {
-        if keep[k] != u32::MAX {
+    for (k, _) in keep.iter().enumerate().filter(|(_, d)| **d != u32::MAX) {
+        {
             let (a, b) = (rc.a0 + k % w, rc.b0 + k / w);
             mask[b * n + a] = true;
             touches_border |= a == 0 || b == 0 || a + 1 == n || b + 1 == n;
