@@ -228,6 +228,10 @@ fn overrides_and_cancel() {
     let r = rows.iter().find(|r| (r.s_mm - 5.0).abs() < 1e-9).unwrap();
     assert!(r.sv.area.is_none() && r.flags.contains(&ductline::measure::Flag::Excluded));
     assert!(rows.iter().filter(|r| r.flags.contains(&ductline::measure::Flag::Excluded)).count() == 1);
+    // levels set with the lumen above bone: a one-line error naming the section, no table
+    let bad = ductline::measure::Override { s_mm: 3.0, levels: Some([58000.0, 9000.0]), ..Default::default() };
+    let e = ductline::measure::measure(&ph.stack, &cl, &ms, &[bad], &gw, &Progress::new()).unwrap_err().to_string();
+    assert!(e.contains("s = 3.00 mm") && e.contains("lumen 58000 must lie below bone 9000"), "{e}");
     let p = Progress::new();
     p.cancel();
     assert!(matches!(ductline::measure::measure(&ph.stack, &cl, &ms, &[], &gw, &p), Err(ductline::Error::Cancelled)));
