@@ -7,8 +7,9 @@ use crate::with_samples;
 
 /// Lateral wall thickness (mm) along the partition direction `dir` from `mid` (section
 /// coordinates): past the lumen, the crossing into bone (halfway from soft tissue to bone, so a
-/// soft-tissue lining is not counted as wall), then the crossing out of it. The profile is the
-/// mean of four lines at ±1 and ±2 pitches off the partition line.
+/// soft-tissue lining is not counted as wall), then the crossing out of it; a wall under three
+/// voxels by those crossings is measured by the bone it holds instead (see below). The profile is
+/// the mean of four lines at ±1 and ±2 pitches off the partition line.
 pub(super) fn wall(stack: &Stack, g: &SectionGeom, mid: [f64; 2], dir: [f64; 2], pitch: f64, capture: f64, lv: &Levels) -> Option<f64> {
     let (lumen_cut, thr, bone) = (lv.lumen_cut(), lv.bone_cut(), lv.bone);
     let vox = stack.voxel.as_ref()?;
@@ -42,7 +43,30 @@ pub(super) fn wall(stack: &Stack, g: &SectionGeom, mid: [f64; 2], dir: [f64; 2],
         return None;
     }
     outside.sort_by(f32::total_cmp);
-    let t_out = (0.5 * (bone + outside[outside.len() / 2])).max(thr);
+    let lo_out = outside[outside.len() / 2];
+    let t_out = (0.5 * (bone + lo_out)).max(thr);
     let down = (up + 1..prof.len()).find(|&i| prof[i] < t_out).unwrap_or(down);
-    Some(cross(down, t_out) - cross(up, thr))
+    let crossing = cross(down, t_out) - cross(up, thr);
+    if crossing >= 3.0 * vox.max() {
+        return Some(crossing);
+    }
+    // A wall within a few voxels of the blur never reaches its full level, and the crossings
+    // close in on each other: take its thickness from the bone it holds instead, the integral of
+    // the bone fraction over the profile from two voxels before it to two voxels after, against
+    // the level inside (soft tissue or lumen) before its peak and the level outside after it.
+    let a = up.saturating_sub(2 * k).max(first_dark);
+    let b = (down + 2 * k).min(prof.len());
+    let mut inner: Vec<f32> = prof[first_dark..a.max(first_dark + 1)].iter().rev().take(k.max(1)).copied().filter(|x| x.is_finite()).collect();
+    if inner.is_empty() || prof[a..b].iter().any(|x| !x.is_finite()) {
+        return Some(crossing);
+    }
+    inner.sort_by(f32::total_cmp);
+    let lo_in = inner[inner.len() / 2];
+    let peak = (a..b).max_by(|&i, &j| prof[i].total_cmp(&prof[j]))?;
+    let frac = |x: f32, lo: f32| ((x - lo) / (bone - lo)) as f64;
+    if !(bone > lo_in && bone > lo_out) {
+        return Some(crossing);
+    }
+    let held: f64 = (a..peak).map(|i| frac(prof[i], lo_in)).sum::<f64>() + (peak..b).map(|i| frac(prof[i], lo_out)).sum::<f64>();
+    Some(held * h)
 }
