@@ -1,7 +1,7 @@
 //! Step 4: partial-volume areas, centroids and outlines.
 
 use super::levels::Levels;
-use super::regions::{BoxCount, Rect, Region, chamfer};
+use super::regions::{Rect, Region, chamfer};
 use super::{Img, OUTLINE_POINTS};
 
 /// Pixels of an n×n image within Euclidean distance `k` (pixels) of a set, the set included;
@@ -69,10 +69,8 @@ pub(super) fn fraction_area(img: &Img, r: &Region, side: f64, lv: &Levels, band:
         }
         (dr, dother)
     };
-    let inner = BoxCount::new(n, r.bounds, |i| mask[i]);
-    let full = ((2 * erode + 1) * (2 * erode + 1)) as u32;
     let mut interior = vec![false; n * n];
-    inner.each_square(n, erode, |i, c| interior[i] = c == full);
+    r.each_interior(n, erode, |i| interior[i] = true);
     // which material a pixel's lumen fraction is taken against: bone where the pixel lies in bone
     // or on a direct lumen–bone edge (nearest region pixel + nearest bone pixel within two
     // voxels: a blurred edge spans about one), soft tissue elsewhere. Bone: smoothed value a fifth of the way from soft tissue to
@@ -164,24 +162,4 @@ pub(super) fn outline(img: &Img, field: &[f32], c: [f64; 2]) -> Vec<[f64; 2]> {
             }
         })
         .collect()
-}
-
-/// The maximum of `v` over the (2r+1)² square around each pixel of `rect` (NaN-free values only;
-/// −∞ elsewhere), as an n×n field. Separable: rows, then columns.
-pub(super) fn local_max(v: &[f32], n: usize, rect: Rect, r: usize) -> Vec<f32> {
-    let mut rows = vec![f32::NEG_INFINITY; n * n];
-    let wide = rect.widen(r, n);
-    for b in wide.b0..wide.b1 {
-        for a in rect.a0..rect.a1 {
-            let m = (a.saturating_sub(r)..(a + r + 1).min(n)).map(|x| v[b * n + x]).filter(|x| x.is_finite()).fold(f32::NEG_INFINITY, f32::max);
-            rows[b * n + a] = m;
-        }
-    }
-    let mut out = vec![f32::NEG_INFINITY; n * n];
-    for b in rect.b0..rect.b1 {
-        for a in rect.a0..rect.a1 {
-            out[b * n + a] = (b.saturating_sub(r)..(b + r + 1).min(n)).map(|y| rows[y * n + a]).fold(f32::NEG_INFINITY, f32::max);
-        }
-    }
-    out
 }

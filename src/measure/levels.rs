@@ -8,7 +8,7 @@
 //! leaves the peaks where pure material is, so thin bony walls do not bias them and no patch of
 //! pure bone is required. Soft tissue is the darkest real peak between them (see `three_levels`).
 
-use super::regions::{BoxCount, find_seed, grow};
+use super::regions::{find_seed, grow};
 use super::{Img, Line};
 use serde::{Deserialize, Serialize};
 
@@ -155,13 +155,7 @@ pub(super) fn lumen_level(img: &Img, line: &Line, mid: [f64; 2], thr: f32, vmax:
         if r.overflows(img.n, band) {
             return Lumen::Overflows;
         }
-        let inside = BoxCount::new(img.n, r.bounds, |i| r.mask[i]);
-        let full = ((2 * erode + 1) * (2 * erode + 1)) as u32;
-        inside.each_square(img.n, erode, |i, c| {
-            if c == full {
-                vals.push(img.v[i]);
-            }
-        });
+        r.each_interior(img.n, erode, |i| vals.push(img.v[i]));
     }
     if vals.len() < 4 {
         return Lumen::Unknown;
@@ -186,7 +180,7 @@ pub(super) enum Near {
 /// pixels or under a twentieth of the ring (the lumen is walled by bone: no soft tissue to weigh),
 /// `Unclear` when their values show no clear peak.
 pub(super) fn tissue_near(img: &Img, found: &[super::regions::Region], lv: &Levels, vox: usize) -> Near {
-    use super::areas::{local_max, near};
+    use super::areas::near;
     use super::regions::Rect;
     let n = img.n;
     let union = |i: usize| found.iter().any(|r| r.mask[i]);
@@ -224,4 +218,24 @@ pub(super) fn tissue_near(img: &Img, found: &[super::regions::Region], lv: &Leve
         return Near::Unclear;
     }
     Near::Tissue(lo + (m as f32 + 0.5) / (B as f32 - 1.0) * (hi - lo))
+}
+
+/// The maximum of `v` over the (2r+1)² square around each pixel of `rect` (NaN-free values only;
+/// −∞ elsewhere), as an n×n field. Separable: rows, then columns.
+fn local_max(v: &[f32], n: usize, rect: super::regions::Rect, r: usize) -> Vec<f32> {
+    let mut rows = vec![f32::NEG_INFINITY; n * n];
+    let wide = rect.widen(r, n);
+    for b in wide.b0..wide.b1 {
+        for a in rect.a0..rect.a1 {
+            let m = (a.saturating_sub(r)..(a + r + 1).min(n)).map(|x| v[b * n + x]).filter(|x| x.is_finite()).fold(f32::NEG_INFINITY, f32::max);
+            rows[b * n + a] = m;
+        }
+    }
+    let mut out = vec![f32::NEG_INFINITY; n * n];
+    for b in rect.b0..rect.b1 {
+        for a in rect.a0..rect.a1 {
+            out[b * n + a] = (b.saturating_sub(r)..(b + r + 1).min(n)).map(|y| rows[y * n + a]).fold(f32::NEG_INFINITY, f32::max);
+        }
+    }
+    out
 }

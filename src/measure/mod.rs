@@ -242,13 +242,11 @@ pub fn measure(
         .map(|((img, g), lv)| {
             let Some(lv) = lv.filter(|l| l.tissue < l.bone) else { return levels::Near::Bone };
             let part = Partition::of(g);
-            let (thr, erode) = (lv.lumen_cut(), (vmax / pitch).ceil() as usize);
+            let erode = (vmax / pitch).ceil() as usize;
             let found: Vec<regions::Region> = [1.0f64, -1.0]
                 .into_iter()
-                .filter_map(|side| {
-                    let sd = regions::find_seed(img, &part.line, part.mid, side, thr, vmax, g.width())?;
-                    Some(regions::cut_necks(img, regions::grow(img, sd, side, thr), sd, erode))
-                })
+                .filter_map(|side| regions::scala(img, &part.line, part.mid, side, lv.lumen_cut(), vmax, g.width(), erode, None))
+                .map(|(_, r)| r)
                 .collect();
             levels::tissue_near(img, &found, &lv, erode)
         })
@@ -429,14 +427,11 @@ fn section_row(
         let mut scalae = [Scala::default(), Scala::default()];
         let mut missing = false;
         for (k, side) in [1.0f64, -1.0].into_iter().enumerate() {
-            let user_seed = ov.and_then(|o| if k == 0 { o.seed_sv } else { o.seed_st });
-            let seed = user_seed.and_then(|q| img.index(q)).or_else(|| regions::find_seed(&img, line, mid, side, thr, vmax, g.width()));
-            let Some(seed) = seed else {
+            let user_seed = ov.and_then(|o| if k == 0 { o.seed_sv } else { o.seed_st }).and_then(|q| img.index(q));
+            let Some((seed, r)) = regions::scala(&img, line, mid, side, thr, vmax, g.width(), erode, user_seed) else {
                 missing = true;
                 continue;
             };
-            let r = regions::grow(&img, seed, side, thr);
-            let r = regions::cut_necks(&img, r, seed, erode);
             // the region and its edge band must fit inside the square
             if r.overflows(img.n, band) && can_grow {
                 grow_more = true;

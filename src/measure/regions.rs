@@ -91,6 +91,17 @@ pub(super) struct Region {
 
 impl Region {
     /// The region comes within `band` pixels of the border of the n×n square.
+    /// Calls `f(i)` for each pixel of the region whose (2r+1)² square lies wholly in it (its
+    /// interior, at least `r` pixels from anything else), on an n×n image.
+    pub(super) fn each_interior(&self, n: usize, r: usize, mut f: impl FnMut(usize)) {
+        let full = ((2 * r + 1) * (2 * r + 1)) as u32;
+        BoxCount::new(n, self.bounds, |i| self.mask[i]).each_square(n, r, |i, c| {
+            if c == full {
+                f(i)
+            }
+        });
+    }
+
     pub(super) fn overflows(&self, n: usize, band: usize) -> bool {
         let b = self.bounds;
         b.a0.min(b.b0).min(n - b.a1).min(n - b.b1) < band
@@ -312,4 +323,23 @@ pub(super) fn chamfer(w: usize, h: usize, set: impl Fn(usize) -> bool) -> Vec<u3
         }
     }
     d
+}
+
+/// The scala on one side of the partition (`side` +1 apical, −1 basal): grown from `seed` (the
+/// user's, else one found near the partition midpoint) below `thr`, its necks cut. None when no
+/// seed is found.
+#[allow(clippy::too_many_arguments)]
+pub(super) fn scala(
+    img: &Img,
+    line: &Line,
+    mid: [f64; 2],
+    side: f64,
+    thr: f32,
+    vmax: f64,
+    width: f64,
+    erode: usize,
+    seed: Option<usize>,
+) -> Option<(usize, Region)> {
+    let seed = seed.or_else(|| find_seed(img, line, mid, side, thr, vmax, width))?;
+    Some((seed, cut_necks(img, grow(img, seed, side, thr), seed, erode)))
 }
