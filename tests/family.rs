@@ -6,9 +6,9 @@
 //! sections and its area, width and wall errors.
 //!
 //! What is held here is what the method reaches today, as a guard against regressions; the
-//! targets of the measures issue (median ≤ 1.5 %, p95 ≤ 4 %) are not met on this family yet —
-//! soft tissue thinner than about two voxels next to bone (the limbus on the lamina) is still
-//! partly counted as lumen. The printed table is the record.
+//! targets of the measures issue (median ≤ 1.5 %, p95 ≤ 4 %) are not met on every member yet —
+//! the soft-tissue level is hard to read from a thin, blurred ligament or limbus (README, limits).
+//! The printed table is the record.
 
 use ductline::centreline::FitSettings;
 use ductline::cochlea::Greenwood;
@@ -111,6 +111,6 @@ fn family_sweep() {
     }
     // the state reached (see the module note), with room for other seeds: every member's median
     // area error
-    assert!(worst_st < 0.2, "worst ST median error {:.1} %", 100.0 * worst_st);
-    assert!(worst_sv < 0.3, "worst SV median error {:.1} %", 100.0 * worst_sv);
+    assert!(worst_st < 0.15, "worst ST median error {:.1} %", 100.0 * worst_st);
+    assert!(worst_sv < 0.22, "worst SV median error {:.1} %", 100.0 * worst_sv);
 }

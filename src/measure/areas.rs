@@ -71,26 +71,48 @@ pub(super) fn fraction_area(img: &Img, r: &Region, side: f64, lv: &Levels, band:
     };
     let mut interior = vec![false; n * n];
     r.each_interior(n, erode, |i| interior[i] = true);
-    // which material a pixel's lumen fraction is taken against: bone where the pixel lies in bone
-    // or on a direct lumen–bone edge (nearest region pixel + nearest bone pixel within two
-    // voxels: a blurred edge spans about one), soft tissue elsewhere. Bone: smoothed value a fifth of the way from soft tissue to
-    // bone, so a thin, blurred septum still counts as bone.
+    // bone: a smoothed value a fifth of the way from soft tissue to bone, so that a thin, blurred
+    // septum still counts as bone
     let two_tissues = lv.tissue < lv.bone;
     let (w, h) = (reach.a1 - reach.a0, reach.b1 - reach.b0);
     let at = |k: usize| (reach.b0 + k / w) * n + reach.a0 + k % w;
     let bone_level = lv.tissue + 0.2 * (lv.bone - lv.tissue);
     let d_bone = chamfer(w, h, |k| img.sm[at(k)] >= bone_level);
     let d_lumen = chamfer(w, h, |k| mask[at(k)]);
-    let edge = 2 * 3 * erode as u32;
+    // one voxel in chamfer units (thirds of a pixel)
+    let vox3 = 3 * erode as u32;
     // a pixel a voxel or more outside the lumen whose value sits at the soft-tissue level is soft
     // tissue even on bone (a blurred lumen–bone edge is brighter there)
     let tissue_band = (lv.tissue - 0.25 * (lv.tissue - lv.lumen), lv.tissue + 0.1 * (lv.bone - lv.tissue));
-    let on_bone = |i: usize| {
+    // Against what a pixel's lumen fraction is taken: bone beyond the stretches of the lumen's
+    // edge that meet bone directly (bone within 1.75 voxels: a blurred lumen–bone edge spans
+    // about one; a soft-tissue layer two voxels or more thick keeps bone farther off), out to the
+    // band; soft tissue elsewhere, but only within 1.5 voxels of the lumen: beyond the lumen's
+    // own blur soft tissue holds no lumen, and a window that ends there keeps a thin layer on
+    // bone from counting as part lumen. A pixel belongs to the stretch of edge nearest to it.
+    enum Ref {
+        Bone,
+        Tissue,
+        None,
+    }
+    let on_bone_edge = chamfer(w, h, |k| mask[at(k)] && 4 * d_bone[k] <= 7 * vox3);
+    let reference = |i: usize| {
         let k = (i / n - reach.b0) * w + i % n - reach.a0;
         let x = img.sm[i];
-        let tissue = d_lumen[k] >= 3 * erode as u32 && x >= tissue_band.0 && x <= tissue_band.1;
-        d_bone[k] <= (3 * erode as u32) / 2 || (d_bone[k] + d_lumen[k] <= edge && !tissue)
+        let tissue = d_lumen[k] >= vox3 && x >= tissue_band.0 && x <= tissue_band.1;
+        if !two_tissues || (on_bone_edge[k] <= d_lumen[k] + 3 && !tissue) {
+            Ref::Bone
+        } else if 2 * d_lumen[k] <= 3 * vox3 {
+            Ref::Tissue
+        } else {
+            Ref::None
+        }
     };
+    // the soft-tissue reference near each pixel: the brightest smoothed value within a voxel,
+    // kept between the tissue level and 30 % of the lumen–tissue step above it (blur leaves the
+    // level found from a thin layer a little low; this lets each pixel's own surroundings say)
+    let local = super::levels::local_max(&img.sm, n, reach, erode);
+    let t_hi = lv.tissue + 0.3 * (lv.tissue - lv.lumen);
     let mut field = vec![0f32; mask.len()];
     for i in reach.pixels(n) {
         let x = img.v[i];
@@ -106,8 +128,14 @@ pub(super) fn fraction_area(img: &Img, r: &Region, side: f64, lv: &Levels, band:
             field[i] = if interior[i] {
                 1.0
             } else {
-                let rf = if !two_tissues || on_bone(i) { lv.bone } else { lv.tissue };
-                (rf - x) / (rf - lv.lumen)
+                match reference(i) {
+                    Ref::Bone => (lv.bone - x) / (lv.bone - lv.lumen),
+                    Ref::Tissue => {
+                        let t = local[i].clamp(lv.tissue, t_hi);
+                        (t - x) / (t - lv.lumen)
+                    }
+                    Ref::None => 0.0,
+                }
             };
         }
     }

@@ -163,66 +163,81 @@ pub(super) fn lumen_level(img: &Img, line: &Line, mid: [f64; 2], thr: f32, vmax:
     Lumen::Level(median_f32(&mut vals))
 }
 
-/// What borders the lumen of a section.
-#[derive(Clone, Copy, Debug, PartialEq)]
-pub(super) enum Near {
-    /// Soft tissue at this level.
-    Tissue(f32),
-    /// Bone nearly all round: two materials.
-    Bone,
-    /// Tissue, but no clear level here (the pooled histogram's is used).
-    Unclear,
-}
+/// Bins of the ring histograms, over q = (v − lumen)/(bone − lumen) ∈ [0, 1).
+pub(super) const RING_BINS: usize = 128;
 
-/// The soft-tissue level next to the lumen: the mode of the smoothed values in the ring 1.5 to
-/// four voxels (`vox` pixels each) outside the scalae `found`, leaving out pixels within a voxel
-/// of bone and values within 10 % of the lumen–bone step of the lumen. `Bone` with under 30 such
-/// pixels or under a twentieth of the ring (the lumen is walled by bone: no soft tissue to weigh),
-/// `Unclear` when their values show no clear peak.
-pub(super) fn tissue_near(img: &Img, found: &[super::regions::Region], lv: &Levels, vox: usize) -> Near {
-    use super::areas::near;
-    use super::regions::Rect;
+/// Histogram of the values in the ring 1.5 to 2.5 voxels (`vox` pixels each) outside the scalae
+/// `found`, binned by q = (v − lumen)/(bone − lumen) so that the rings of neighbouring sections
+/// can be summed. Where soft tissue lines the lumen (spiral ligament, limbus) the ring lies in it,
+/// past most of the blur of its edge, and its values pile up at the soft-tissue level; where bone
+/// walls the lumen they spread over the blurred edge instead.
+pub(super) fn ring_histogram(img: &Img, found: &[super::regions::Region], lv: &Levels, vox: usize) -> Vec<f64> {
+    use super::regions::{Rect, chamfer};
+    let mut h = vec![0.0; RING_BINS];
     let n = img.n;
-    let union = |i: usize| found.iter().any(|r| r.mask[i]);
     let Some(bounds) = found.iter().map(|r| r.bounds).reduce(|a, b| Rect { a0: a.a0.min(b.a0), a1: a.a1.max(b.a1), b0: a.b0.min(b.b0), b1: a.b1.max(b.b1) })
     else {
-        return Near::Unclear;
+        return h;
     };
-    let outer = near(n, bounds, 4 * vox, union);
-    let inner = near(n, bounds, (3 * vox).div_ceil(2), union);
-    let reach = bounds.widen(4 * vox, n);
-    let bone_near = local_max(&img.sm, n, reach, vox);
-    let (lo, hi) = (lv.lumen + 0.1 * (lv.bone - lv.lumen), lv.bone_cut());
-    const B: usize = 64;
-    let mut h = [0f64; B];
-    let (mut count, mut ring) = (0, 0);
-    for i in reach.pixels(n) {
-        let x = img.sm[i];
-        if outer[i] && !inner[i] && x.is_finite() {
-            ring += 1;
-            if bone_near[i] < lv.bone_cut() && x > lo && x < hi {
-                h[(((x - lo) / (hi - lo)) * (B as f32 - 1.0)) as usize] += 1.0;
-                count += 1;
+    let rc = bounds.widen(3 * vox, n);
+    let (w, hh) = (rc.a1 - rc.a0, rc.b1 - rc.b0);
+    let at = |k: usize| (rc.b0 + k / w) * n + rc.a0 + k % w;
+    // chamfer distance in thirds of a pixel: one voxel is 3·vox
+    let d = chamfer(w, hh, |k| found.iter().any(|r| r.mask[at(k)]));
+    let (lo, hi) = ((9 * vox) as u32 / 2, (15 * vox) as u32 / 2);
+    let step = lv.bone - lv.lumen;
+    for (k, &dk) in d.iter().enumerate() {
+        let x = img.v[at(k)];
+        if dk > lo && dk <= hi && x.is_finite() {
+            let q = (x - lv.lumen) / step;
+            if (0.0..1.0).contains(&q) {
+                h[(q * RING_BINS as f32) as usize] += 1.0;
             }
         }
     }
-    // soft tissue must line a fair part of the lumen to weigh: else the lumen is walled by bone
-    if count < 30 || count * 20 < ring {
-        return Near::Bone;
+    h
+}
+
+/// What the ring round the lumen shows (see [`ring_histogram`]).
+#[derive(Clone, Copy, Debug, PartialEq)]
+pub(super) enum Ring {
+    /// Soft tissue at this level, as q = (v − lumen)/(bone − lumen).
+    Tissue(f32),
+    /// Under a fifth of the ring lies below q = 0.65: bone walls the lumen (two materials).
+    Walled,
+    /// Soft tissue, but no clear peak (the tube's histogram is asked instead).
+    Unclear,
+}
+
+/// The soft-tissue level from a summed ring histogram: the darkest clear peak between q = 0.08
+/// and 0.65 (a local maximum over ±4 bins, at least 1.5 times the mean density of the ring above
+/// q = 0.08 and holding a tenth of its pixels within ±6 bins), refined as the mean of its ±4 bins.
+pub(super) fn ring_tissue(h: &[f64]) -> Ring {
+    let n = h.len();
+    let sm: Vec<f64> = (0..n).map(|i| h[i.saturating_sub(1)..(i + 2).min(n)].iter().sum::<f64>() / 3.0).collect();
+    let bin = |q: f64| (q * n as f64) as usize;
+    let total: f64 = h[bin(0.08)..].iter().sum();
+    let mean = total / (n - bin(0.08)) as f64;
+    if total < 30.0 {
+        return Ring::Unclear;
     }
-    let sm: Vec<f64> = (0..B).map(|i| h[i.saturating_sub(1)..(i + 2).min(B)].iter().sum()).collect();
-    let Some(m) = (0..B).max_by(|&a, &b| sm[a].total_cmp(&sm[b])) else { return Near::Unclear };
-    // a real tissue shows as a peak inside the range, well above the flat spread of blurred edges
-    let mean = sm.iter().sum::<f64>() / B as f64;
-    if !(2..=B - B / 10).contains(&m) || sm[m] < 3.0 * mean {
-        return Near::Unclear;
+    if h[bin(0.08)..bin(0.65)].iter().sum::<f64>() < 0.2 * total {
+        return Ring::Walled;
     }
-    Near::Tissue(lo + (m as f32 + 0.5) / (B as f32 - 1.0) * (hi - lo))
+    let peak = (bin(0.08)..bin(0.65)).find(|&i| {
+        let top = (i.saturating_sub(4)..(i + 5).min(n)).all(|j| sm[j] <= sm[i]);
+        let mass: f64 = h[i.saturating_sub(6)..(i + 7).min(n)].iter().sum();
+        top && sm[i] >= 1.5 * mean && mass >= 0.1 * total
+    });
+    let Some(peak) = peak else { return Ring::Unclear };
+    let (a, b) = (peak.saturating_sub(4), (peak + 5).min(n));
+    let (w, m) = (a..b).fold((0.0, 0.0), |(w, m), j| (w + h[j], m + h[j] * (j as f64 + 0.5)));
+    Ring::Tissue((m / w / n as f64) as f32)
 }
 
 /// The maximum of `v` over the (2r+1)² square around each pixel of `rect` (NaN-free values only;
 /// −∞ elsewhere), as an n×n field. Separable: rows, then columns.
-fn local_max(v: &[f32], n: usize, rect: super::regions::Rect, r: usize) -> Vec<f32> {
+pub(super) fn local_max(v: &[f32], n: usize, rect: super::regions::Rect, r: usize) -> Vec<f32> {
     let mut rows = vec![f32::NEG_INFINITY; n * n];
     let wide = rect.widen(r, n);
     for b in wide.b0..wide.b1 {
@@ -238,4 +253,26 @@ fn local_max(v: &[f32], n: usize, rect: super::regions::Rect, r: usize) -> Vec<f
         }
     }
     out
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    /// A ring of soft tissue at q = 0.3 (Gaussian spread 0.03) over a flat spread of blurred
+    /// lumen–bone edges, and a ring of bone only: the level is the peak's centre (to a bin),
+    /// and the bone ring reads as two materials.
+    #[test]
+    fn ring_reads_tissue_or_bone() {
+        let q = |i: usize| (i as f64 + 0.5) / RING_BINS as f64;
+        let tissue: Vec<f64> = (0..RING_BINS).map(|i| 5.0 + 200.0 * (-0.5 * ((q(i) - 0.3) / 0.03).powi(2)).exp()).collect();
+        match ring_tissue(&tissue) {
+            Ring::Tissue(t) => assert!((t - 0.3).abs() < 1.0 / RING_BINS as f32, "{t}"),
+            r => panic!("{r:?}"),
+        }
+        let bone: Vec<f64> = (0..RING_BINS).map(|i| if q(i) > 0.7 { 50.0 } else { 1.0 }).collect();
+        assert_eq!(ring_tissue(&bone), Ring::Walled);
+        // a flat spread with no peak is unclear
+        assert_eq!(ring_tissue(&vec![10.0; RING_BINS]), Ring::Unclear);
+    }
 }

@@ -4,10 +4,13 @@
 //! 1. Resample (here): a square grid normal to the centreline at pitch ≤ half the smallest voxel
 //!    side; the grid grows (×1.25, keeping the samples it has) until both scalae and their edge
 //!    bands lie inside it or the capture limit is reached.
-//! 2. Levels ([`levels`]): lumen, soft-tissue and bone levels from a three-class Otsu split of the
-//!    pooled histogram of the neighbouring sections (a tube around the duct, smoothed along s), as
-//!    the modes of each class — no patch of pure bone is needed, so thin walls do; the lumen level
-//!    is then re-taken from the interior of the scalae themselves.
+//! 2. Levels ([`levels`]): lumen and bone from a three-class Otsu split of the pooled histogram
+//!    of the neighbouring sections (a tube around the duct, smoothed along s), as the modes of the
+//!    darkest and brightest classes — no patch of pure bone is needed, so thin walls do; soft
+//!    tissue from the ring 1.5–2.5 voxels outside the scalae (where a spiral ligament or limbus
+//!    lines them its values pile up at the soft-tissue level), summed over the same tube; a ring
+//!    that is nearly all bone means two materials. The lumen level is then re-taken from the
+//!    interior of the scalae themselves.
 //! 3. Regions ([`regions`]): the partition line through the lamina and ligament points splits the
 //!    lumen. Each scala is grown (4-connected) from a seed on its side over pixels of a lightly
 //!    smoothed image below the lumen/soft-tissue midpoint, so it stops at soft tissue as well as at
@@ -15,9 +18,11 @@
 //!    are cut by a morphological opening by reconstruction, and only the part holding the seed is
 //!    kept. A section that still reaches its border is flagged `open`.
 //! 4. Areas ([`areas`]): interior pixels count whole; pixels near the edge count their lumen
-//!    fraction (ref − v)/(ref − lumen), where ref is the bone level next to bone and the soft-tissue
-//!    level next to soft tissue (soft tissue is not half fluid), over the region's edge and a
-//!    three-voxel band around it (pixels nearer to another lumen region excluded).
+//!    fraction (ref − v)/(ref − lumen). Beyond stretches of edge that meet bone directly, ref is
+//!    the bone level, out to a three-voxel band; elsewhere ref is the soft-tissue level (taken a
+//!    little higher where the pixel's own surroundings are), and only within 1.5 voxels of the
+//!    lumen — soft tissue beyond the lumen's blur holds no lumen, and a thin layer on bone is not
+//!    half fluid. Pixels nearer to another lumen region are left to it.
 //! 5. Wall ([`wall`]): along the partition direction outward, from where bone starts to where it
 //!    ends. Width and wall under one voxel are flagged `below_resolution` and left blank.
 
@@ -232,40 +237,41 @@ pub fn measure(
         .collect::<Result<_>>()?;
     let pool = ((POOL_MM / s.step_mm).round() as usize).clamp(1, 10);
     let mut auto = levels::pooled(&first, pool);
-    // soft tissue from what actually borders the lumen: the scalae grown in each first square, the
-    // ring of pixels just outside them (`levels::tissue_near`), and the median over the
-    // neighbouring sections
-    let near: Vec<levels::Near> = first
+    // soft tissue from what actually borders the lumen: the scalae grown in each first square,
+    // the ring of pixels just outside them (`levels::ring_histogram`), summed over the
+    // neighbouring sections; with no clear soft-tissue peak there, two materials (lumen, bone)
+    let rings: Vec<Vec<f64>> = first
         .par_iter()
         .zip(geoms.par_iter())
         .zip(auto.par_iter())
         .map(|((img, g), lv)| {
-            let Some(lv) = lv.filter(|l| l.tissue < l.bone) else { return levels::Near::Bone };
+            let Some(lv) = lv.filter(|l| l.lumen < l.bone) else { return vec![0.0; levels::RING_BINS] };
             let part = Partition::of(g);
             let erode = (vmax / pitch).ceil() as usize;
+            // grown below a cut that stays under any soft tissue (fluid-filled: 20 % or more of
+            // the lumen–bone step above the lumen), so the ring falls in the tissue, not beyond
+            let cut = lv.lumen_cut().min(lv.lumen + 0.15 * (lv.bone - lv.lumen));
             let found: Vec<regions::Region> = [1.0f64, -1.0]
                 .into_iter()
-                .filter_map(|side| regions::scala(img, &part.line, part.mid, side, lv.lumen_cut(), vmax, g.width(), erode, None))
+                .filter_map(|side| regions::scala(img, &part.line, part.mid, side, cut, vmax, g.width(), erode, None))
                 .map(|(_, r)| r)
                 .collect();
-            levels::tissue_near(img, &found, &lv, erode)
+            levels::ring_histogram(img, &found, &lv, erode)
         })
         .collect();
-    // over the neighbouring sections: the median tissue level where tissue was seen clearly, two
-    // materials (lumen against bone) where bone walls the lumen, else the pooled histogram's
     for (i, lv) in auto.iter_mut().enumerate() {
-        let window = &near[i.saturating_sub(2 * pool)..(i + 2 * pool + 1).min(near.len())];
-        let mut seen: Vec<f32> = window.iter().filter_map(|x| if let levels::Near::Tissue(t) = x { Some(*t) } else { None }).collect();
-        let walled = window.iter().filter(|x| **x == levels::Near::Bone).count();
+        let mut h = vec![0.0; levels::RING_BINS];
+        for r in &rings[i.saturating_sub(2 * pool)..(i + 2 * pool + 1).min(rings.len())] {
+            h.iter_mut().zip(r).for_each(|(a, b)| *a += b);
+        }
         if let Some(lv) = lv.as_mut() {
-            let t = if 2 * walled > window.len() {
-                lv.bone
-            } else if 3 * seen.len() >= window.len() {
-                levels::median_f32(&mut seen)
-            } else {
-                lv.tissue
+            lv.tissue = match levels::ring_tissue(&h) {
+                levels::Ring::Tissue(q) => lv.lumen + q * (lv.bone - lv.lumen),
+                levels::Ring::Walled => lv.bone,
+                // soft tissue without a clear level of its own: the tube's soft-tissue peak if
+                // it has one (see `levels::pooled`), else two materials
+                levels::Ring::Unclear => lv.tissue,
             };
-            lv.tissue = if t > lv.lumen && t < lv.bone { t } else { lv.bone };
         }
     }
     let rows = first
