@@ -200,7 +200,14 @@ pub fn inspect(path: &Path, voxel: Option<String>, bin: usize, crop: Option<Stri
         Some(v) => println!("voxel size:  {}", v.describe()),
         None => println!("voxel size:  unknown (give --voxel-um)"),
     }
-    println!("value range: {lo} … {hi}");
+    if lo <= hi {
+        println!("value range: {lo} … {hi}");
+    } else {
+        println!("value range: none (every sample is NaN)");
+    }
+    if let Some(w) = &st.world {
+        println!("world:       {}", w.describe());
+    }
     let how = if st.samples.is_mapped() { "memory-mapped from the file, read on demand" } else { "in memory" };
     println!("memory:      {} bytes ({:.1} MB), {how}", st.bytes(), st.bytes() as f64 / 1e6);
     if st.origin_vox != [0.0; 3] {

@@ -74,6 +74,7 @@ pub fn overview(stack: &Stack, b: usize) -> Stack {
         origin_vox: std::array::from_fn(|a| stack.origin_vox[a] + (b as f64 - 1.0) / 2.0 * scale[a]),
         path: stack.path.clone(),
         warnings: vec![],
+        world: stack.world.clone(),
     }
 }
 

@@ -149,7 +149,7 @@ pub(super) fn load(dir: &Path, opts: &LoadOptions, progress: &Progress) -> Resul
     if let Kind::Rgb { .. } = kind {
         warnings.push(format!("{}: colour slices turned into grey (BT.601 luma)", dir.display()));
     }
-    Ok(Stack { dims, samples, voxel, origin_vox: [0.0; 3], path: dir.to_path_buf(), warnings })
+    Ok(Stack { dims, samples, voxel, origin_vox: [0.0; 3], path: dir.to_path_buf(), warnings, world: None })
 }
 
 /// Decodes the slices in parallel, one output slice at a time from `bin` files (cropped, binned).

@@ -4,6 +4,7 @@
 //! Stack frame (DESIGN.md): voxel (column i, row j, slice k) has its centre at (i·vx, j·vy, k·vz) mm.
 
 mod folder;
+mod nifti;
 mod tiff;
 pub mod write;
 
@@ -172,6 +173,8 @@ pub enum VoxelSource {
     AssumedIsotropic,
     /// Given by the user (`--voxel-um` or the app).
     User,
+    /// The header of a volume file (NIfTI pixdim).
+    FileHeader,
 }
 
 impl VoxelSource {
@@ -183,6 +186,7 @@ impl VoxelSource {
             VoxelSource::PngPhys => "PNG pHYs",
             VoxelSource::AssumedIsotropic => "assumed equal to x",
             VoxelSource::User => "user",
+            VoxelSource::FileHeader => "file header",
         }
     }
 }
@@ -271,6 +275,28 @@ pub struct Stack {
     pub path: PathBuf,
     /// Non-fatal remarks made while loading (e.g. RGB turned into grey).
     pub warnings: Vec<String>,
+    /// The file's own index-to-world transform, when it has one (NIfTI). Kept and shown; the
+    /// stack frame stays (i·vx, j·vy, k·vz).
+    pub world: Option<World>,
+}
+
+/// A file's index-to-world transform: world = M · (i, j, k, 1), millimetres.
+#[derive(Clone, Debug, PartialEq)]
+pub struct World {
+    /// Rows of the 3×4 matrix.
+    pub matrix: [[f64; 4]; 3],
+    /// The world axes: "RAS" (NIfTI) or "LPS" (DICOM, NRRD, MetaImage).
+    pub frame: &'static str,
+    /// Where it came from (e.g. "NIfTI sform (code 2)").
+    pub source: String,
+}
+
+impl World {
+    /// One line a row, for `inspect`.
+    pub fn describe(&self) -> String {
+        let rows: Vec<String> = self.matrix.iter().map(|r| format!("[{:.4} {:.4} {:.4} {:.4}]", r[0], r[1], r[2], r[3])).collect();
+        format!("{} → {} mm from {}: {}", "(i, j, k, 1)", self.frame, self.source, rows.join(" "))
+    }
 }
 
 impl Stack {
@@ -279,7 +305,7 @@ impl Stack {
         if dims.iter().product::<usize>() != samples.len() {
             return Err(Error::invalid(format!("buffer holds {} samples, dims {:?} need {}", samples.len(), dims, dims.iter().product::<usize>())));
         }
-        Ok(Stack { dims, samples, voxel, origin_vox: [0.0; 3], path: PathBuf::new(), warnings: vec![] })
+        Ok(Stack { dims, samples, voxel, origin_vox: [0.0; 3], path: PathBuf::new(), warnings: vec![], world: None })
     }
 
     /// The voxel size, or a clear error when none is known.
@@ -364,9 +390,17 @@ pub fn load_with_progress(path: &Path, opts: &LoadOptions, progress: &crate::pro
         return Err(Error::invalid(format!("binning must be 1, 2 or 4, got {}", opts.bin)));
     }
     let meta = std::fs::metadata(path).map_err(|e| Error::io(path, e))?;
-    let mut stack = if meta.is_dir() { folder::load(path, opts, progress)? } else { tiff::load(path, opts, progress)? };
+    let mut stack = if meta.is_dir() {
+        folder::load(path, opts, progress)?
+    } else if nifti::claims(path) {
+        nifti::load(path, opts, progress)?
+    } else {
+        tiff::load(path, opts, progress)?
+    };
     if let Some(v) = &opts.voxel {
         stack.voxel = Some(v.clone());
+        // the user's size replaces what the file lacked
+        stack.warnings.retain(|w| !w.contains("gives no slice spacing"));
     }
     // voxel (0,0,0) of a b-binned, cropped buffer covers original voxels c..c+b−1: its centre
     let b = opts.bin as f64;
@@ -495,5 +529,42 @@ pub(crate) fn luma(r: f32, g: f32, b: f32) -> f32 {
 /// Reads only the header facts of a stack (for `inspect` and the memory check).
 pub fn header(path: &Path) -> Result<Header> {
     let meta = std::fs::metadata(path).map_err(|e| Error::io(path, e))?;
-    if meta.is_dir() { folder::header(path) } else { tiff::header(path) }
+    if meta.is_dir() {
+        folder::header(path)
+    } else if nifti::claims(path) {
+        nifti::header(path)
+    } else {
+        tiff::header(path)
+    }
+}
+
+/// Crops and bins a stack read whole into memory (volume files), as `opts` asks.
+pub(crate) fn crop_and_bin(st: Stack, opts: &LoadOptions) -> Result<Stack> {
+    if opts.crop.is_none() && opts.bin == 1 {
+        return Ok(st);
+    }
+    let [nx, ny, _] = st.dims;
+    let crop = crop_box(&st.path, opts.crop, st.dims)?;
+    let b = opts.bin;
+    let size = crop.map(|r| r[1] - r[0]);
+    let dims = [size[0] / b, size[1] / b, size[2].div_ceil(b)];
+    if dims.contains(&0) {
+        return Err(Error::format(&st.path, "stack too small to bin"));
+    }
+    fn run<T: Sample>(v: &[T], nx: usize, ny: usize, crop: [[usize; 2]; 3], b: usize, dims: [usize; 3], conv: fn(f32) -> T) -> Vec<T> {
+        let slice = dims[0] * dims[1];
+        let mut out = vec![T::zeroed(); slice * dims[2]];
+        for (k, o) in out.chunks_mut(slice).enumerate() {
+            let k0 = crop[2][0] + k * b;
+            let pages: Vec<Vec<T>> = (k0..(k0 + b).min(crop[2][1])).map(|z| v[z * nx * ny..(z + 1) * nx * ny].to_vec()).collect();
+            assemble(&pages, nx, [crop[0], crop[1]], b, o, conv);
+        }
+        out
+    }
+    let samples = match &st.samples {
+        Samples::U8(v) => Samples::U8(run(v, nx, ny, crop, b, dims, to_u8).into()),
+        Samples::U16(v) => Samples::U16(run(v, nx, ny, crop, b, dims, to_u16).into()),
+        Samples::F32(v) => Samples::F32(run(v, nx, ny, crop, b, dims, to_f32).into()),
+    };
+    Ok(Stack { dims, samples, ..st })
 }

@@ -27,6 +27,13 @@ pub(crate) enum Kind {
         channels: usize,
         bits: u8,
     },
+    /// Signed 8/16/32-bit, unsigned 32-bit or 64-bit float grey: held as float32 (see
+    /// [`Kind::note`]).
+    Wide {
+        signed: bool,
+        float: bool,
+        bits: u8,
+    },
 }
 
 impl Kind {
@@ -35,17 +42,32 @@ impl Kind {
         match self {
             Kind::Gray8 => "uint8",
             Kind::Gray16 => "uint16",
-            Kind::GrayF32 => "float32",
+            Kind::GrayF32 | Kind::Wide { .. } => "float32",
             Kind::Rgb { bits: 8, .. } => "uint8",
             Kind::Rgb { .. } => "uint16",
         }
+    }
+    /// The file's own sample type where it differs from the one held, and whether every value
+    /// survives the change: a note for `inspect` and the load warnings.
+    pub(crate) fn note(self) -> Option<String> {
+        let Kind::Wide { signed, float, bits } = self else { return None };
+        let name = match (signed, float) {
+            (_, true) => format!("float{bits}"),
+            (true, _) => format!("int{bits}"),
+            _ => format!("uint{bits}"),
+        };
+        Some(match (float, bits) {
+            (false, 8 | 16) => format!("{name} samples held as float32 (every value exact)"),
+            (false, _) => format!("{name} samples held as float32 (exact up to ±16 777 216; larger values are rounded)"),
+            _ => format!("{name} samples held as float32 (about 7 significant digits kept)"),
+        })
     }
     /// Bytes per sample held in memory.
     pub(crate) fn bytes(self) -> usize {
         match self {
             Kind::Gray8 => 1,
             Kind::Gray16 => 2,
-            Kind::GrayF32 => 4,
+            Kind::GrayF32 | Kind::Wide { .. } => 4,
             Kind::Rgb { bits, .. } => bits as usize / 8,
         }
     }
@@ -63,12 +85,16 @@ pub(crate) fn page_kind(path: &Path, page: usize, dec: &mut Dec) -> Result<(usiz
     let (w, h) = dec.dimensions().map_err(perr)?;
     let ct = dec.colortype().map_err(perr)?;
     let fmt = dec.find_tag_unsigned_vec::<u16>(Tag::SampleFormat).map_err(perr)?.and_then(|v| v.first().copied()).unwrap_or(1);
+    layout_supported(dec).map_err(|m| Error::page(path, page, m))?;
     let kind = match (ct, fmt) {
         (ColorType::Gray(8), 1) => Kind::Gray8,
         (ColorType::Gray(16), 1) => Kind::Gray16,
         (ColorType::Gray(32), 3) => Kind::GrayF32,
         (ColorType::RGB(b @ (8 | 16)), 1) => Kind::Rgb { channels: 3, bits: b },
         (ColorType::RGBA(b @ (8 | 16)), 1) => Kind::Rgb { channels: 4, bits: b },
+        (ColorType::Gray(b @ (8 | 16 | 32)), 2) => Kind::Wide { signed: true, float: false, bits: b },
+        (ColorType::Gray(32), 1) => Kind::Wide { signed: false, float: false, bits: 32 },
+        (ColorType::Gray(64), 3) => Kind::Wide { signed: true, float: true, bits: 64 },
         (ct, fmt) => {
             let f = match fmt {
                 1 => "unsigned",
@@ -79,7 +105,7 @@ pub(crate) fn page_kind(path: &Path, page: usize, dec: &mut Dec) -> Result<(usiz
             return Err(Error::page(
                 path,
                 page,
-                format!("unsupported sample format {ct:?} ({f}); ductline reads 8/16-bit unsigned and 32-bit float grey, or RGB(A)"),
+                format!("unsupported sample format {ct:?} ({f}); ductline reads 8/16/32-bit unsigned or signed, 32/64-bit float grey, or RGB(A)"),
             ));
         }
     };
@@ -87,6 +113,39 @@ pub(crate) fn page_kind(path: &Path, page: usize, dec: &mut Dec) -> Result<(usiz
         return Err(Error::page(path, page, "page has zero width or height"));
     }
     Ok((w as usize, h as usize, kind))
+}
+
+/// Refuses page layouts that would otherwise be read with wrong values, and compressions no
+/// decoder here handles, each with a message naming what the page uses.
+fn layout_supported(dec: &mut Dec) -> std::result::Result<(), String> {
+    let spp = tag(dec, Tag::SamplesPerPixel).unwrap_or(1);
+    if spp > 1 && tag(dec, Tag::PlanarConfiguration) == Some(2) {
+        return Err("colour planes stored separately (PlanarConfiguration 2) are not supported; save the channels interleaved or as grey".into());
+    }
+    if tag(dec, Tag::FillOrder) == Some(2) {
+        return Err("bit-reversed bytes (FillOrder 2) are not supported; save with the usual fill order".into());
+    }
+    if tag(dec, Tag::PhotometricInterpretation) == Some(0) {
+        return Err(
+            "min-is-white pages (PhotometricInterpretation 0) are not read, so that no value depends on how the page was compressed; save as min-is-black"
+                .into(),
+        );
+    }
+    let c = tag(dec, Tag::Compression).unwrap_or(1);
+    let name = match c {
+        1 | 5 | 8 | 32946 | 32773 => return Ok(()),
+        2 => "CCITT RLE",
+        3 | 4 => "CCITT fax",
+        6 | 7 => "JPEG",
+        34925 => "LZMA",
+        50000 | 34926 => "Zstd",
+        50001 | 34927 => "WebP",
+        34887 => "LERC",
+        33003 | 33005 | 34712 => "JPEG 2000",
+        50002 => "JPEG XL",
+        _ => "unknown",
+    };
+    Err(format!("compression {name} (code {c}) is not supported; save uncompressed, LZW, Deflate or PackBits"))
 }
 
 /// What walking the page directories tells.
@@ -168,6 +227,9 @@ pub(super) fn load(path: &Path, opts: &LoadOptions, progress: &Progress) -> Resu
     if let Kind::Rgb { .. } = kind {
         warnings.push(format!("{}: colour pages turned into grey (BT.601 luma)", path.display()));
     }
+    if let Some(note) = kind.note() {
+        warnings.push(format!("{}: {note}", path.display()));
+    }
     if let Some(v) = &voxel
         && v.source[2] == VoxelSource::AssumedIsotropic
     {
@@ -179,12 +241,12 @@ pub(super) fn load(path: &Path, opts: &LoadOptions, progress: &Progress) -> Resu
             Kind::Gray8 => try_map::<u8>(path, &w).map(Samples::U8),
             Kind::Gray16 => try_map::<u16>(path, &w).map(Samples::U16),
             Kind::GrayF32 => try_map::<f32>(path, &w).map(Samples::F32),
-            Kind::Rgb { .. } => None,
+            Kind::Rgb { .. } | Kind::Wide { .. } => None,
         };
         if let Some(samples) = mapped {
             progress.start(1);
             progress.add(1);
-            return Ok(Stack { dims, samples, voxel, origin_vox: [0.0; 3], path: path.to_path_buf(), warnings });
+            return Ok(Stack { dims, samples, voxel, origin_vox: [0.0; 3], path: path.to_path_buf(), warnings, world: None });
         }
     }
     drop(w);
@@ -194,9 +256,9 @@ pub(super) fn load(path: &Path, opts: &LoadOptions, progress: &Progress) -> Resu
     let samples = match kind {
         Kind::Gray8 | Kind::Rgb { bits: 8, .. } => Samples::U8(decode::<u8>(path, [nx, ny], kind, b, crop, super::to_u8, progress)?.into()),
         Kind::Gray16 | Kind::Rgb { .. } => Samples::U16(decode::<u16>(path, [nx, ny], kind, b, crop, super::to_u16, progress)?.into()),
-        Kind::GrayF32 => Samples::F32(decode::<f32>(path, [nx, ny], kind, b, crop, super::to_f32, progress)?.into()),
+        Kind::GrayF32 | Kind::Wide { .. } => Samples::F32(decode::<f32>(path, [nx, ny], kind, b, crop, super::to_f32, progress)?.into()),
     };
-    Ok(Stack { dims, samples, voxel, origin_vox: [0.0; 3], path: path.to_path_buf(), warnings })
+    Ok(Stack { dims, samples, voxel, origin_vox: [0.0; 3], path: path.to_path_buf(), warnings, world: None })
 }
 
 /// Decodes pages into one buffer, page groups in parallel (each group with its own file handle).
@@ -355,7 +417,7 @@ pub(crate) fn read_page<T: Sample>(path: &Path, page: usize, dec: &mut Dec, kind
     let perr = |e: tiff::TiffError| Error::page(path, page, format!("cannot decode (truncated or corrupt?): {e}"));
     // uncompressed pages: one positioned read straight into the buffer
     #[cfg(unix)]
-    if !matches!(kind, Kind::Rgb { .. }) {
+    if matches!(kind, Kind::Gray8 | Kind::Gray16 | Kind::GrayF32) {
         let bytes: &mut [u8] = bytemuck::cast_slice_mut(out);
         if let Some(off) = raw_run(dec, bytes.len()) {
             use std::os::unix::fs::FileExt;
@@ -381,6 +443,22 @@ pub(crate) fn read_page<T: Sample>(path: &Path, page: usize, dec: &mut Dec, kind
                     }
                 }
                 _ => return Err(Error::page(path, page, "unexpected colour sample type")),
+            }
+            Ok(())
+        }
+        Kind::Wide { .. } => {
+            use tiff::decoder::DecodingResult as D;
+            let img = dec.read_image().map_err(perr)?;
+            fn put<T: Sample, S: Copy>(out: &mut [T], v: &[S], conv: fn(f32) -> T, f: fn(S) -> f32) {
+                out.iter_mut().zip(v).for_each(|(o, x)| *o = conv(f(*x)));
+            }
+            match &img {
+                D::I8(v) if v.len() == out.len() => put(out, v, conv, |x| x as f32),
+                D::I16(v) if v.len() == out.len() => put(out, v, conv, |x| x as f32),
+                D::I32(v) if v.len() == out.len() => put(out, v, conv, |x| x as f32),
+                D::U32(v) if v.len() == out.len() => put(out, v, conv, |x| x as f32),
+                D::F64(v) if v.len() == out.len() => put(out, v, conv, |x| x as f32),
+                _ => return Err(Error::page(path, page, "decoded samples do not match the page's size or type (corrupt?)")),
             }
             Ok(())
         }
