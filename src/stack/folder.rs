@@ -130,12 +130,7 @@ pub(super) fn load(dir: &Path, opts: &LoadOptions, progress: &Progress) -> Resul
     let files = slice_files(dir)?;
     let (nx, ny, kind, voxel) = check_all(&files)?;
     let b = opts.bin;
-    let crop = super::crop_box(dir, opts.crop, [nx, ny, files.len()])?;
-    let size = crop.map(|r| r[1] - r[0]);
-    let dims = [size[0] / b, size[1] / b, size[2].div_ceil(b)];
-    if dims.contains(&0) {
-        return Err(Error::format(dir, "stack too small to bin"));
-    }
+    let (crop, dims) = super::crop_and_dims(dir, opts.crop, [nx, ny, files.len()], b)?;
     super::check_memory(dir, (dims.iter().product::<usize>() * kind.bytes()) as u64, opts.max_bytes)?;
     let files = &files[crop[2][0]..crop[2][1]];
     progress.start(files.len() as u64);

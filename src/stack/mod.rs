@@ -295,7 +295,7 @@ impl World {
     /// One line a row, for `inspect`.
     pub fn describe(&self) -> String {
         let rows: Vec<String> = self.matrix.iter().map(|r| format!("[{:.4} {:.4} {:.4} {:.4}]", r[0], r[1], r[2], r[3])).collect();
-        format!("{} → {} mm from {}: {}", "(i, j, k, 1)", self.frame, self.source, rows.join(" "))
+        format!("(i, j, k, 1) → {} mm from {}: {}", self.frame, self.source, rows.join(" "))
     }
 }
 
@@ -497,6 +497,18 @@ pub(crate) fn crop_page<T: Sample>(page: &[T], nx: usize, c: [[usize; 2]; 2], ou
     }
 }
 
+/// The crop box (checked, see [`crop_box`]) and the dimensions of the buffer it gives once
+/// binned b×b×b; errors when binning leaves nothing.
+pub(crate) fn crop_and_dims(path: &Path, crop: Option<[[usize; 2]; 3]>, dims: [usize; 3], b: usize) -> Result<([[usize; 2]; 3], [usize; 3])> {
+    let c = crop_box(path, crop, dims)?;
+    let size = c.map(|r| r[1] - r[0]);
+    let out = [size[0] / b, size[1] / b, size[2].div_ceil(b)];
+    if out.contains(&0) {
+        return Err(Error::format(path, "stack too small to bin"));
+    }
+    Ok((c, out))
+}
+
 /// Checks a crop box against the stack's dimensions; the full box when there is none.
 pub(crate) fn crop_box(path: &Path, crop: Option<[[usize; 2]; 3]>, dims: [usize; 3]) -> Result<[[usize; 2]; 3]> {
     let c = crop.unwrap_or(dims.map(|n| [0, n]));
@@ -544,13 +556,8 @@ pub(crate) fn crop_and_bin(st: Stack, opts: &LoadOptions) -> Result<Stack> {
         return Ok(st);
     }
     let [nx, ny, _] = st.dims;
-    let crop = crop_box(&st.path, opts.crop, st.dims)?;
     let b = opts.bin;
-    let size = crop.map(|r| r[1] - r[0]);
-    let dims = [size[0] / b, size[1] / b, size[2].div_ceil(b)];
-    if dims.contains(&0) {
-        return Err(Error::format(&st.path, "stack too small to bin"));
-    }
+    let (crop, dims) = crop_and_dims(&st.path, opts.crop, st.dims, b)?;
     fn run<T: Sample>(v: &[T], nx: usize, ny: usize, crop: [[usize; 2]; 3], b: usize, dims: [usize; 3], conv: fn(f32) -> T) -> Vec<T> {
         let slice = dims[0] * dims[1];
         let mut out = vec![T::zeroed(); slice * dims[2]];

@@ -31,17 +31,23 @@ struct Head {
     big_endian: bool,
 }
 
-/// The whole file, inflated when gzip-compressed (gzip magic 1f 8b, whatever the name).
-fn read_all(path: &Path) -> Result<Vec<u8>> {
-    let raw = std::fs::read(path).map_err(|e| Error::io(path, e))?;
-    if raw.starts_with(&[0x1f, 0x8b]) {
-        let mut out = vec![];
-        flate2::read::MultiGzDecoder::new(&raw[..])
+/// The file's first `limit` bytes (all of it with `u64::MAX`), inflated when gzip-compressed
+/// (gzip magic 1f 8b, whatever the name): the header alone needs no more than 540.
+fn read_start(path: &Path, limit: u64) -> Result<Vec<u8>> {
+    let mut f = std::fs::File::open(path).map_err(|e| Error::io(path, e))?;
+    let mut magic = [0u8; 2];
+    let gz = f.read_exact(&mut magic).is_ok() && magic == [0x1f, 0x8b];
+    std::io::Seek::rewind(&mut f).map_err(|e| Error::io(path, e))?;
+    let mut out = vec![];
+    if gz {
+        flate2::read::MultiGzDecoder::new(std::io::BufReader::new(f))
+            .take(limit)
             .read_to_end(&mut out)
             .map_err(|e| Error::format(path, format!("cannot inflate the gzip stream (truncated or corrupt?): {e}")))?;
-        return Ok(out);
+    } else {
+        f.take(limit).read_to_end(&mut out).map_err(|e| Error::io(path, e))?;
     }
-    Ok(raw)
+    Ok(out)
 }
 
 // the two header layouts are read into one tuple, field by field beside its offset
@@ -199,23 +205,21 @@ fn datatype(path: &Path, code: i16) -> Result<(usize, &'static str)> {
 }
 
 pub(super) fn header(path: &Path) -> Result<super::Header> {
-    let b = read_all(path)?;
-    let h = parse(path, &b)?;
+    let h = parse(path, &read_start(path, 540)?)?;
     let (_, name) = datatype(path, h.datatype)?;
     let voxel = Some(VoxelSize::new(h.voxel_mm, std::array::from_fn(|_| VoxelSource::FileHeader)));
-    let held = if matches!(name, "uint8" | "uint16" | "float32") && !scaled(&h) { name } else { "float32" };
-    Ok(super::Header {
-        dims: h.dims,
-        sample: held,
-        bytes_per_sample: if held == "uint8" {
-            1
-        } else if held == "uint16" {
-            2
-        } else {
-            4
-        },
-        voxel,
-    })
+    let (sample, bytes_per_sample) = held(name, &h);
+    Ok(super::Header { dims: h.dims, sample, bytes_per_sample, voxel })
+}
+
+/// The sample type held in memory and its bytes: the file's own for unscaled uint8, uint16 and
+/// float32, float32 otherwise.
+fn held(name: &'static str, h: &Head) -> (&'static str, usize) {
+    match name {
+        "uint8" if !scaled(h) => ("uint8", 1),
+        "uint16" if !scaled(h) => ("uint16", 2),
+        _ => ("float32", 4),
+    }
 }
 
 /// The scaling changes values: a slope other than 0 or 1, or an intercept other than 0.
@@ -224,10 +228,12 @@ fn scaled(h: &Head) -> bool {
 }
 
 pub(super) fn load(path: &Path, opts: &LoadOptions, progress: &Progress) -> Result<Stack> {
-    let b = read_all(path)?;
-    let h = parse(path, &b)?;
+    // the header first: the memory the volume needs is checked before the file is inflated
+    let h = parse(path, &read_start(path, 540)?)?;
     let (bps, name) = datatype(path, h.datatype)?;
     let n = h.dims.iter().product::<usize>();
+    super::check_memory(path, (n as u64).saturating_mul((bps + held(name, &h).1) as u64), opts.max_bytes)?;
+    let b = read_start(path, (h.offset + n * bps) as u64)?;
     let data = b.get(h.offset..h.offset + n * bps).ok_or_else(|| {
         Error::format(path, format!("the file holds fewer samples than its header's {} × {} × {} (truncated?)", h.dims[0], h.dims[1], h.dims[2]))
     })?;
@@ -260,18 +266,18 @@ pub(super) fn load(path: &Path, opts: &LoadOptions, progress: &Progress) -> Resu
         }
     };
     progress.start(1);
-    let samples = if !scaled(&h) && name == "uint8" {
-        Samples::U8((0..n).map(|i| value(i) as u8).collect::<Vec<_>>().into())
-    } else if !scaled(&h) && name == "uint16" {
-        Samples::U16((0..n).map(|i| value(i) as u16).collect::<Vec<_>>().into())
-    } else {
-        let (m, c) = if scaled(&h) { (h.slope, h.inter) } else { (1.0, 0.0) };
-        if scaled(&h) {
-            warnings.push(format!("{}: {name} samples scaled by {m} and offset by {c} (scl_slope, scl_inter), held as float32", path.display()));
-        } else if name != "float32" {
-            warnings.push(format!("{}: {name} samples held as float32", path.display()));
+    let samples = match held(name, &h).0 {
+        "uint8" => Samples::U8((0..n).map(|i| value(i) as u8).collect::<Vec<_>>().into()),
+        "uint16" => Samples::U16((0..n).map(|i| value(i) as u16).collect::<Vec<_>>().into()),
+        _ => {
+            let (m, c) = if scaled(&h) { (h.slope, h.inter) } else { (1.0, 0.0) };
+            if scaled(&h) {
+                warnings.push(format!("{}: {name} samples scaled by {m} and offset by {c} (scl_slope, scl_inter), held as float32", path.display()));
+            } else if name != "float32" {
+                warnings.push(format!("{}: {name} samples held as float32", path.display()));
+            }
+            Samples::F32((0..n).map(|i| (value(i) * m + c) as f32).collect::<Vec<_>>().into())
         }
-        Samples::F32((0..n).map(|i| (value(i) * m + c) as f32).collect::<Vec<_>>().into())
     };
     progress.add(1);
     let voxel = Some(VoxelSize::new(h.voxel_mm, std::array::from_fn(|_| VoxelSource::FileHeader)));

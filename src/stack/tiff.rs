@@ -217,12 +217,7 @@ pub(super) fn load(path: &Path, opts: &LoadOptions, progress: &Progress) -> Resu
     let voxel = voxel_from_tags(&mut w.dec);
     let (nx, ny, nz, kind) = (w.nx, w.ny, w.pages, w.kind);
     let b = opts.bin;
-    let crop = super::crop_box(path, opts.crop, [nx, ny, nz])?;
-    let size = crop.map(|r| r[1] - r[0]);
-    let dims = [size[0] / b, size[1] / b, size[2].div_ceil(b)];
-    if dims.contains(&0) {
-        return Err(Error::format(path, "stack too small to bin"));
-    }
+    let (crop, dims) = super::crop_and_dims(path, opts.crop, [nx, ny, nz], b)?;
     let mut warnings = vec![];
     if let Kind::Rgb { .. } = kind {
         warnings.push(format!("{}: colour pages turned into grey (BT.601 luma)", path.display()));
@@ -252,7 +247,7 @@ pub(super) fn load(path: &Path, opts: &LoadOptions, progress: &Progress) -> Resu
     drop(w);
     let bytes = (dims.iter().product::<usize>() * kind.bytes()) as u64;
     super::check_memory(path, bytes, opts.max_bytes)?;
-    progress.start(size[2] as u64);
+    progress.start((crop[2][1] - crop[2][0]) as u64);
     let samples = match kind {
         Kind::Gray8 | Kind::Rgb { bits: 8, .. } => Samples::U8(decode::<u8>(path, [nx, ny], kind, b, crop, super::to_u8, progress)?.into()),
         Kind::Gray16 | Kind::Rgb { .. } => Samples::U16(decode::<u16>(path, [nx, ny], kind, b, crop, super::to_u16, progress)?.into()),
