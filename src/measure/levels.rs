@@ -61,14 +61,20 @@ pub(super) fn pooled(imgs: &[Img], pool: usize) -> Vec<Option<Levels>> {
     (0..imgs.len())
         .into_par_iter()
         .map(|i| {
-            let mut h = vec![0.0; BINS];
-            for hh in &hists[i.saturating_sub(pool)..(i + pool + 1).min(hists.len())] {
-                h.iter_mut().zip(hh).for_each(|(a, b)| *a += b);
-            }
+            let h = window_sum(&hists, i, pool);
             let at = |bin: usize| lo + bin as f32 / k;
             three_levels(&h).map(|(a, b, c)| Levels { lumen: at(a), tissue: at(b), bone: at(c) })
         })
         .collect()
+}
+
+/// The sum of the histograms of sections i − k ..= i + k (those that exist): a tube along the duct.
+pub(super) fn window_sum(hists: &[Vec<f64>], i: usize, k: usize) -> Vec<f64> {
+    let mut h = vec![0.0; hists[i].len()];
+    for hh in &hists[i.saturating_sub(k)..(i + k + 1).min(hists.len())] {
+        h.iter_mut().zip(hh).for_each(|(a, b)| *a += b);
+    }
+    h
 }
 
 /// The two thresholds of a three-class Otsu split of a histogram, as bin indices (t1 < t2: class

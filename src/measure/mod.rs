@@ -260,12 +260,8 @@ pub fn measure(
         })
         .collect();
     for (i, lv) in auto.iter_mut().enumerate() {
-        let mut h = vec![0.0; levels::RING_BINS];
-        for r in &rings[i.saturating_sub(2 * pool)..(i + 2 * pool + 1).min(rings.len())] {
-            h.iter_mut().zip(r).for_each(|(a, b)| *a += b);
-        }
         if let Some(lv) = lv.as_mut() {
-            lv.tissue = match levels::ring_tissue(&h) {
+            lv.tissue = match levels::ring_tissue(&levels::window_sum(&rings, i, 2 * pool)) {
                 levels::Ring::Tissue(q) => lv.lumen + q * (lv.bone - lv.lumen),
                 levels::Ring::Walled => lv.bone,
                 // soft tissue without a clear level of its own: the tube's soft-tissue peak if
