@@ -341,6 +341,14 @@ fn reads_nifti_like_nibabel() {
     std::fs::write(&cut, &bytes[..bytes.len() - 10]).unwrap();
     let e = load(&cut).unwrap_err().to_string();
     assert!(e.contains("cut.nii") && e.contains("truncated") && !e.contains('\n'), "{e}");
+    // a sample offset far past any file (NIfTI-1 vox_offset, a float at byte 108) is an error,
+    // not an overflow
+    let mut far = bytes.clone();
+    far[108..112].copy_from_slice(&1e30f32.to_le_bytes());
+    let far_path = dir.path().join("far.nii");
+    std::fs::write(&far_path, &far).unwrap();
+    let e = load(&far_path).unwrap_err().to_string();
+    assert!(e.contains("far.nii") && e.contains("truncated"), "{e}");
     let junk = dir.path().join("junk.nii");
     std::fs::write(&junk, vec![7u8; 400]).unwrap();
     let e = load(&junk).unwrap_err().to_string();

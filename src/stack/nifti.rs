@@ -137,7 +137,7 @@ fn parse(path: &Path, b: &[u8]) -> Result<Head> {
     if d.iter().any(|n| !(1..=1 << 20).contains(n)) {
         return Err(bad(&format!("NIfTI dimensions {} × {} × {} are not a volume", d[0], d[1], d[2])));
     }
-    let extra: i64 = (4..=nd as usize).map(size).product::<i64>().max(1) - 1;
+    let extra: i64 = (4..=nd as usize).map(size).fold(1i64, |a, x| a.saturating_mul(x.max(1))) - 1;
     let scale = match units & 7 {
         1 => Some(1000.0),
         2 => Some(1.0),
@@ -174,7 +174,9 @@ fn parse(path: &Path, b: &[u8]) -> Result<Head> {
             source: "NIfTI voxel sizes (no qform or sform)".into(),
         }
     };
-    let offset = if offset >= if v2 { 540.0 } else { 348.0 } { offset as usize } else { if v2 { 544 } else { 352 } };
+    // samples start after the header and its 4-byte extension flag at the earliest
+    let header_len = if v2 { 540.0 } else { 348.0 };
+    let offset = if offset >= header_len { offset as usize } else { header_len as usize + 4 };
     Ok(Head {
         dims: d.map(|x| x as usize),
         extra_volumes: extra as usize,
@@ -233,8 +235,9 @@ pub(super) fn load(path: &Path, opts: &LoadOptions, progress: &Progress) -> Resu
     let (bps, name) = datatype(path, h.datatype)?;
     let n = h.dims.iter().product::<usize>();
     super::check_memory(path, (n as u64).saturating_mul((bps + held(name, &h).1) as u64), opts.max_bytes)?;
-    let b = read_start(path, (h.offset + n * bps) as u64)?;
-    let data = b.get(h.offset..h.offset + n * bps).ok_or_else(|| {
+    let end = h.offset.saturating_add(n * bps);
+    let b = read_start(path, end as u64)?;
+    let data = b.get(h.offset..end).ok_or_else(|| {
         Error::format(path, format!("the file holds fewer samples than its header's {} × {} × {} (truncated?)", h.dims[0], h.dims[1], h.dims[2]))
     })?;
     let mut warnings = vec![];
