@@ -39,9 +39,10 @@ pub(super) fn near(n: usize, rect: Rect, k: usize, set: impl Fn(usize) -> bool) 
 /// fraction field (0 outside) and the fraction-weighted centroid. Region pixels at least `erode`
 /// pixels inside count 1; the others, and the band pixels (on the region's side, within `band`
 /// pixels of it and no nearer to another dark pixel there), count (ref − v)/(ref − lumen), with
-/// ref the bone level in bone and on direct lumen–bone edges and the soft-tissue level elsewhere
-/// (a soft-tissue layer over 1.5 voxels thick counts as tissue, not as a blurred bone edge). The
-/// fractions are not clipped, so noise averages out instead of biasing the sum.
+/// ref the level of the material beyond the lumen there: what the ray from the nearest edge pixel
+/// met first (soft tissue or bone; `levels::plateaus`), else bone where bone lies within 1.75
+/// voxels of the edge. Past a soft-tissue plateau a pixel holds no lumen. The fractions are not
+/// clipped, so noise averages out instead of biasing the sum.
 pub(super) fn fraction_area(img: &Img, r: &Region, side: f64, lv: &Levels, band: usize, erode: usize) -> (f64, Vec<f32>, [f64; 2]) {
     let (n, mask) = (img.n, &r.mask);
     let thr = lv.lumen_cut();
@@ -95,9 +96,45 @@ pub(super) fn fraction_area(img: &Img, r: &Region, side: f64, lv: &Levels, band:
         Tissue,
         None,
     }
-    let on_bone_edge = chamfer(w, h, |k| mask[at(k)] && 4 * d_bone[k] <= 7 * vox3);
+    // Each edge pixel's ray says which material lies beyond it (`levels::plateaus`): the pixels
+    // along a ray take that material as their reference out to its plateau, and beyond a soft-
+    // tissue plateau hold no lumen (a thin ligament or limbus on bone is not a blurred bone edge).
+    // Where no ray says (it crossed a thin septum or the partition, or ran past a corner), the
+    // stretch of edge nearest the pixel decides: bone-walled where bone lies within 1.75 voxels.
+    let mut by_ray = vec![0u8; w * h]; // 1: soft tissue, 2: bone, 3: past a soft-tissue plateau
+    let mut lined = vec![0u8; w * h];
+    if two_tissues {
+        let cell = |x: f64, y: f64| -> Option<usize> {
+            let (x, y) = (x.round(), y.round());
+            let inside = x >= reach.a0 as f64 && y >= reach.b0 as f64 && x < reach.a1 as f64 && y < reach.b1 as f64;
+            inside.then(|| (y as usize - reach.b0) * w + x as usize - reach.a0)
+        };
+        for p in super::levels::plateaus(img, &[mask], r.bounds, lv, erode) {
+            let kind = if p.value < lv.bone_cut() { 1 } else { 2 };
+            let (a, b) = ((p.pixel % n) as f64, (p.pixel / n) as f64);
+            lined[(p.pixel / n - reach.b0) * w + p.pixel % n - reach.a0] = kind;
+            let mut t = 0.0;
+            while t <= band as f64 {
+                let mark = if kind == 1 && t > p.at { 3 } else { kind };
+                if let Some(c) = cell(a + t * p.dir[0], b + t * p.dir[1])
+                    && !mask[at(c)]
+                    && (by_ray[c] == 0 || mark == 1)
+                {
+                    by_ray[c] = mark;
+                }
+                t += 0.5;
+            }
+        }
+    }
+    let on_bone_edge = chamfer(w, h, |k| mask[at(k)] && (lined[k] == 2 || (lined[k] == 0 && 4 * d_bone[k] <= 7 * vox3)));
     let reference = |i: usize| {
         let k = (i / n - reach.b0) * w + i % n - reach.a0;
+        match by_ray[k] {
+            1 => return Ref::Tissue,
+            2 => return Ref::Bone,
+            3 => return Ref::None,
+            _ => {}
+        }
         let x = img.sm[i];
         let tissue = d_lumen[k] >= vox3 && x >= tissue_band.0 && x <= tissue_band.1;
         if !two_tissues || (on_bone_edge[k] <= d_lumen[k] + 3 && !tissue) {
@@ -108,11 +145,6 @@ pub(super) fn fraction_area(img: &Img, r: &Region, side: f64, lv: &Levels, band:
             Ref::None
         }
     };
-    // the soft-tissue reference near each pixel: the brightest smoothed value within a voxel,
-    // kept between the tissue level and 30 % of the lumen–tissue step above it (blur leaves the
-    // level found from a thin layer a little low; this lets each pixel's own surroundings say)
-    let local = super::levels::local_max(&img.sm, n, reach, erode);
-    let t_hi = lv.tissue + 0.3 * (lv.tissue - lv.lumen);
     let mut field = vec![0f32; mask.len()];
     for i in reach.pixels(n) {
         let x = img.v[i];
@@ -130,10 +162,7 @@ pub(super) fn fraction_area(img: &Img, r: &Region, side: f64, lv: &Levels, band:
             } else {
                 match reference(i) {
                     Ref::Bone => (lv.bone - x) / (lv.bone - lv.lumen),
-                    Ref::Tissue => {
-                        let t = local[i].clamp(lv.tissue, t_hi);
-                        (t - x) / (t - lv.lumen)
-                    }
+                    Ref::Tissue => (lv.tissue - x) / (lv.tissue - lv.lumen),
                     Ref::None => 0.0,
                 }
             };

@@ -237,36 +237,54 @@ pub fn measure(
         .collect::<Result<_>>()?;
     let pool = ((POOL_MM / s.step_mm).round() as usize).clamp(1, 10);
     let mut auto = levels::pooled(&first, pool);
-    // soft tissue from what actually borders the lumen: the scalae grown in each first square,
-    // the ring of pixels just outside them (`levels::ring_histogram`), summed over the
-    // neighbouring sections; with no clear soft-tissue peak there, two materials (lumen, bone)
-    let rings: Vec<Vec<f64>> = first
+    // soft tissue from the lateral wall next to the partition's outer end: the scalae grown in
+    // each first square, the mean profile of rays across the wall there summed over the tube of
+    // neighbouring sections, fitted by a blurred lumen | soft tissue | bone model
+    // (`levels::wall_level`) every `pool` sections; a section takes the nearest fit
+    let profiles: Vec<(Vec<f64>, usize)> = first
         .par_iter()
         .zip(geoms.par_iter())
         .zip(auto.par_iter())
         .map(|((img, g), lv)| {
-            let Some(lv) = lv.filter(|l| l.lumen < l.bone) else { return vec![0.0; levels::RING_BINS] };
+            let Some(lv) = lv.filter(|l| l.lumen < l.bone) else { return (vec![], 0) };
             let part = Partition::of(g);
             let erode = (vmax / pitch).ceil() as usize;
             // grown below a cut that stays under any soft tissue (fluid-filled: 20 % or more of
-            // the lumen–bone step above the lumen), so the ring falls in the tissue, not beyond
+            // the lumen–bone step above the lumen), so the rays start before the tissue does
             let cut = lv.lumen_cut().min(lv.lumen + 0.15 * (lv.bone - lv.lumen));
             let found: Vec<regions::Region> = [1.0f64, -1.0]
                 .into_iter()
                 .filter_map(|side| regions::scala(img, &part.line, part.mid, side, cut, vmax, g.width(), erode, None))
                 .map(|(_, r)| r)
                 .collect();
-            levels::ring_histogram(img, &found, &lv, erode)
+            levels::wall_profile(img, &found, &lv, g.to_plane(g.ligament), part.dir, (0.3f64).max(3.0 * vmax))
+        })
+        .collect();
+    let fitted: Vec<(usize, levels::Wall)> = (0..profiles.len())
+        .into_par_iter()
+        .step_by(pool)
+        .filter_map(|i| {
+            let tube = &profiles[i.saturating_sub(2 * pool)..(i + 2 * pool + 1).min(profiles.len())];
+            let len = tube.iter().map(|p| p.0.len()).max()?;
+            let (mut sum, mut rays) = (vec![0.0; len], 0);
+            for (p, k) in tube.iter().filter(|p| p.0.len() == len) {
+                sum.iter_mut().zip(p).for_each(|(a, b)| *a += b);
+                rays += k;
+            }
+            if rays < 10 {
+                return None;
+            }
+            sum.iter_mut().for_each(|a| *a /= rays as f64);
+            levels::wall_level(&sum, pitch).map(|q| (i, q))
         })
         .collect();
     for (i, lv) in auto.iter_mut().enumerate() {
-        if let Some(lv) = lv.as_mut() {
-            lv.tissue = match levels::ring_tissue(&levels::window_sum(&rings, i, 2 * pool)) {
-                levels::Ring::Tissue(q) => lv.lumen + q * (lv.bone - lv.lumen),
-                levels::Ring::Walled => lv.bone,
-                // soft tissue without a clear level of its own: the tube's soft-tissue peak if
-                // it has one (see `levels::pooled`), else two materials
-                levels::Ring::Unclear => lv.tissue,
+        // with no wall profile anywhere: the tube's soft-tissue peak if it has one (see
+        // `levels::pooled`), else two materials
+        if let (Some(lv), Some(&(_, wall))) = (lv.as_mut(), fitted.iter().min_by_key(|f| f.0.abs_diff(i))) {
+            lv.tissue = match wall {
+                levels::Wall::Layer(q) => lv.lumen + q * (lv.bone - lv.lumen),
+                levels::Wall::Bare => lv.bone,
             };
         }
     }

@@ -72,6 +72,10 @@ pub(super) struct Rect {
 }
 
 impl Rect {
+    /// The smallest rectangle holding both.
+    pub(super) fn union(self, o: Rect) -> Rect {
+        Rect { a0: self.a0.min(o.a0), a1: self.a1.max(o.a1), b0: self.b0.min(o.b0), b1: self.b1.max(o.b1) }
+    }
     /// Widened by `k` pixels on every side, within an n×n image.
     pub(super) fn widen(self, k: usize, n: usize) -> Rect {
         Rect { a0: self.a0.saturating_sub(k), a1: (self.a1 + k).min(n), b0: self.b0.saturating_sub(k), b1: (self.b1 + k).min(n) }
