@@ -266,8 +266,8 @@ pub(super) fn wall_profile(img: &Img, found: &[super::regions::Region], lv: &Lev
 /// The profile is fitted, up to its highest point, by a blurred lumen | soft tissue | bone model
 /// q(x) = t·(Φ((x − a)/σ) − Φ((x − a − w)/σ)) + b·Φ((x − a − w)/σ) (Φ the normal distribution
 /// function, the lumen at 0): for each edge position a, layer thickness w and blur σ (up to
-/// 0.15 mm) t and b follow by linear least squares; a grid in half pixels finds the best fit and a
-/// grid eight times finer around it refines it. The level is t/b (the bone behind a thin wall can
+/// 0.15 mm) t and b follow by linear least squares; a coarse grid (half pixels, or coarser on long
+/// profiles) finds the best fit and a grid eight times finer around it refines it. The level is t/b (the bone behind a thin wall can
 /// stay below the tube's bone level). Fitting the whole edge reads the level of a layer too thin
 /// or too blurred to show a plateau of its own (the saddle between its edges lies below it).
 /// Where the layer leaves over 80 % of the misfit of lumen straight against bone, is thinner
@@ -302,14 +302,17 @@ pub(super) fn wall_level(p: &[f64], pitch: f64) -> Option<Wall> {
         let fitted: f64 = (0..2).map(|u| c[u] * (0..2).map(|v| m[u][v] * c[v]).sum::<f64>()).sum();
         Some((yy - 2.0 * (c[0] * r[0] + c[1] * r[1]) + fitted, c))
     };
-    // coarse: positions and blur in whole half pixels, Φ from one table per blur
+    // coarse: positions and blur every g half pixels (g keeps the grid near 32 steps a side),
+    // Φ from one table per blur; then fine: eighths of g within one coarse step of the best
     let len = p.len() as isize;
+    let g = (len / 32).max(1);
+    let smax = ((0.15 / (0.5 * pitch)) as isize).max(2);
     let mut best = (f64::INFINITY, [0.0; 2], 0.0, 0.0, 0.0); // sse, [t, b], a, w, σ
-    for s in 1..=((0.15 / (0.5 * pitch)) as isize).max(2) {
+    for s in (1..=smax).step_by(g as usize) {
         let table: Vec<f64> = (-len..=len).map(|d| phi(d as f64 / s as f64)).collect();
         let at = |i: usize, c: isize| table[(i as isize - c + len) as usize];
-        for a in 0..len / 2 {
-            for w in 0..len - a {
+        for a in (0..len / 2).step_by(g as usize) {
+            for w in (0..len - a).step_by(g as usize) {
                 if let Some((sse, c)) = solve(&|i| (at(i, a), at(i, a + w)))
                     && sse < best.0
                 {
@@ -318,12 +321,12 @@ pub(super) fn wall_level(p: &[f64], pitch: f64) -> Option<Wall> {
             }
         }
     }
-    // fine: eighths of a half pixel within one coarse step of the best
+    let fine = |k: isize| k as f64 * g as f64 / 8.0;
     let (a0, w0, s0) = (best.2, best.3, best.4);
     for da in -8..=8 {
         for dw in -8..=8 {
             for ds in -4..=4 {
-                let (a, w, s) = (a0 + da as f64 / 8.0, w0 + dw as f64 / 8.0, s0 + ds as f64 / 8.0);
+                let (a, w, s) = (a0 + fine(da), w0 + fine(dw), s0 + fine(ds));
                 if w < 0.0 || s < 0.5 {
                     continue;
                 }
@@ -344,8 +347,8 @@ pub(super) fn wall_level(p: &[f64], pitch: f64) -> Option<Wall> {
         if ff > 0.0 { yy - fy * fy / ff } else { f64::INFINITY }
     };
     let mut bare = (f64::INFINITY, 0.0, 0.0);
-    for s in 1..=((0.15 / (0.5 * pitch)) as isize).max(2) {
-        for a in 0..len {
+    for s in (1..=smax).step_by(g as usize) {
+        for a in (0..len).step_by(g as usize) {
             let sse = bare_fit(&|i| phi((i as f64 - a as f64) / s as f64));
             if sse < bare.0 {
                 bare = (sse, a as f64, s as f64);
@@ -355,7 +358,7 @@ pub(super) fn wall_level(p: &[f64], pitch: f64) -> Option<Wall> {
     let (a0, s0) = (bare.1, bare.2);
     for da in -8..=8 {
         for ds in -4..=4 {
-            let (a, s) = (a0 + da as f64 / 8.0, s0 + ds as f64 / 8.0);
+            let (a, s) = (a0 + fine(da), s0 + fine(ds));
             if s >= 0.5 {
                 bare.0 = bare.0.min(bare_fit(&|i| phi((i as f64 - a) / s)));
             }

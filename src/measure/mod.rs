@@ -240,7 +240,7 @@ pub fn measure(
     // soft tissue from the lateral wall next to the partition's outer end: the scalae grown in
     // each first square, the mean profile of rays across the wall there summed over the tube of
     // neighbouring sections, fitted by a blurred lumen | soft tissue | bone model
-    // (`levels::wall_level`) every `pool` sections; a section takes the nearest fit
+    // (`levels::wall_level`) every 2·`pool` sections; a section takes the nearest fit
     let profiles: Vec<(Vec<f64>, usize)> = first
         .par_iter()
         .zip(geoms.par_iter())
@@ -262,7 +262,7 @@ pub fn measure(
         .collect();
     let fitted: Vec<(usize, levels::Wall)> = (0..profiles.len())
         .into_par_iter()
-        .step_by(pool)
+        .step_by(2 * pool)
         .filter_map(|i| {
             let tube = &profiles[i.saturating_sub(2 * pool)..(i + 2 * pool + 1).min(profiles.len())];
             let len = tube.iter().map(|p| p.0.len()).max()?;

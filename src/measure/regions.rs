@@ -233,22 +233,28 @@ pub(super) fn cut_necks(img: &Img, r: Region, seed: usize, min_px: usize) -> Reg
             }
         }
     }
-    let mut heap: std::collections::BinaryHeap<std::cmp::Reverse<(u32, usize)>> = core.iter().map(|&k| std::cmp::Reverse((0, k))).collect();
-    while let Some(std::cmp::Reverse((dist, k))) = heap.pop() {
-        if dist > keep[k] {
-            continue;
-        }
-        let (x, y) = (k % w, k / w);
-        for (dx, dy, c) in [(-1, 0, 3), (1, 0, 3), (0, -1, 3), (0, 1, 3), (-1, -1, 4), (1, -1, 4), (-1, 1, 4), (1, 1, 4)] {
-            let (xx, yy) = (x as isize + dx, y as isize + dy);
-            if xx < 0 || yy < 0 || xx >= w as isize || yy >= h as isize {
+    // chamfer distances grow from the core in small integer steps: a bucket per distance
+    // (Dial's shortest-path queue) instead of a heap
+    let limit = (2 * rho + 2) as usize;
+    let mut buckets: Vec<Vec<usize>> = vec![vec![]; limit + 1];
+    buckets[0] = core;
+    for dist in 0..=limit {
+        while let Some(k) = buckets[dist].pop() {
+            if dist as u32 > keep[k] {
                 continue;
             }
-            let j = yy as usize * w + xx as usize;
-            let nd = dist + c;
-            if d[j] > 0 && nd <= 2 * rho + 2 && nd < keep[j] {
-                keep[j] = nd;
-                heap.push(std::cmp::Reverse((nd, j)));
+            let (x, y) = (k % w, k / w);
+            for (dx, dy, c) in [(-1, 0, 3), (1, 0, 3), (0, -1, 3), (0, 1, 3), (-1, -1, 4), (1, -1, 4), (-1, 1, 4), (1, 1, 4)] {
+                let (xx, yy) = (x as isize + dx, y as isize + dy);
+                if xx < 0 || yy < 0 || xx >= w as isize || yy >= h as isize {
+                    continue;
+                }
+                let j = yy as usize * w + xx as usize;
+                let nd = dist + c;
+                if d[j] > 0 && nd <= limit && (nd as u32) < keep[j] {
+                    keep[j] = nd as u32;
+                    buckets[nd].push(j);
+                }
             }
         }
     }
