@@ -354,3 +354,62 @@ fn reads_nifti_like_nibabel() {
     let e = load(&junk).unwrap_err().to_string();
     assert!(e.contains("junk.nii") && e.contains("not a NIfTI"), "{e}");
 }
+
+/// NRRD written by pynrrd (gzip, big-endian raw, detached header) and MetaImage written by
+/// SimpleITK (plain, zlib-compressed, detached data): the values each library reads back, its
+/// spacing, and its index-to-world transform (LPS). Fixtures: tests/fixtures/make_fixtures.py.
+#[test]
+fn reads_nrrd_like_pynrrd_and_metaimage_like_simpleitk() {
+    let manifest: serde_json::Value = serde_json::from_str(&std::fs::read_to_string(fixture("manifest.json")).unwrap()).unwrap();
+    let files = manifest["volumes"].as_array().unwrap();
+    assert!(files.len() >= 6);
+    for f in files {
+        let name = f["name"].as_str().unwrap();
+        let st = load(&fixture(&format!("volumes/{name}"))).unwrap_or_else(|e| panic!("{name}: {e}"));
+        let shape: Vec<usize> = f["shape"].as_array().unwrap().iter().map(|x| x.as_u64().unwrap() as usize).collect();
+        assert_eq!(st.dims.to_vec(), shape, "{name}: dims");
+        let raw = std::fs::read(fixture(&format!("volumes/{name}.expected.raw"))).unwrap();
+        let want: Vec<f64> = raw.chunks_exact(8).map(|c| f64::from_le_bytes(c.try_into().unwrap())).collect();
+        assert_eq!(want.len(), st.samples.len(), "{name}");
+        for (i, w) in want.iter().enumerate() {
+            let got = st.samples.get(i) as f64;
+            assert!((got - w).abs() <= 1e-6 * w.abs().max(1.0), "{name}: sample {i}: {got} vs {w}");
+        }
+        let spacing: Vec<f64> = f["spacing"].as_array().unwrap().iter().map(|x| x.as_f64().unwrap()).collect();
+        let vox = st.voxel.as_ref().unwrap_or_else(|| panic!("{name}: no voxel size"));
+        for a in 0..3 {
+            assert!((vox.mm[a] - spacing[a]).abs() < 1e-9, "{name}: voxel {:?} vs {spacing:?}", vox.mm);
+        }
+        let world = st.world.as_ref().unwrap_or_else(|| panic!("{name}: no world transform"));
+        assert_eq!(world.frame, f["frame"].as_str().unwrap(), "{name}");
+        for (r, row) in f["affine"].as_array().unwrap().iter().enumerate() {
+            for (c, x) in row.as_array().unwrap().iter().enumerate() {
+                let x = x.as_f64().unwrap();
+                assert!((world.matrix[r][c] - x).abs() < 1e-9, "{name}: world [{r}][{c}] {} vs {x}", world.matrix[r][c]);
+            }
+        }
+    }
+    // the header alone (inspect) agrees with the load
+    let h = ductline::stack::header(&fixture("volumes/ct_int16.mha")).unwrap();
+    assert_eq!((h.dims, h.sample), ([10, 9, 6], "float32"));
+    // bad input: one line naming the file and what is wrong
+    let dir = tempfile::tempdir().unwrap();
+    let bytes = std::fs::read(fixture("volumes/ct_int16.mha")).unwrap();
+    let cut = dir.path().join("cut.mha");
+    std::fs::write(&cut, &bytes[..bytes.len() - 10]).unwrap();
+    let e = load(&cut).unwrap_err().to_string();
+    assert!(e.contains("cut.mha") && e.contains("truncated") && !e.contains('\n'), "{e}");
+    let gz = std::fs::read(fixture("volumes/ct_int16_gzip.nrrd")).unwrap();
+    let cut = dir.path().join("cut.nrrd");
+    std::fs::write(&cut, &gz[..gz.len() - 30]).unwrap();
+    let e = load(&cut).unwrap_err().to_string();
+    assert!(e.contains("cut.nrrd") && (e.contains("truncated") || e.contains("corrupt")) && !e.contains('\n'), "{e}");
+    let vec = dir.path().join("vector.nrrd");
+    std::fs::write(&vec, "NRRD0004\ntype: float\ndimension: 4\nsizes: 3 4 5 6\nencoding: raw\n\n").unwrap();
+    let e = load(&vec).unwrap_err().to_string();
+    assert!(e.contains("vector.nrrd") && e.contains("grey"), "{e}");
+    let junk = dir.path().join("junk.mhd");
+    std::fs::write(&junk, "this is not a header\n").unwrap();
+    let e = load(&junk).unwrap_err().to_string();
+    assert!(e.contains("junk.mhd") && e.contains("MetaImage"), "{e}");
+}

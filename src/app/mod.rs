@@ -313,7 +313,7 @@ impl DuctApp {
                 d = d.set_directory(s);
             }
             match what {
-                Pending::Open => d.add_filter("stack or project", &["tif", "tiff", "nii", "gz", "json", "png"]).pick_file(),
+                Pending::Open => d.add_filter("stack or project", &["tif", "tiff", "nii", "gz", "nrrd", "nhdr", "mha", "mhd", "json", "png"]).pick_file(),
                 Pending::ImportLandmarks => d.add_filter("landmarks", &["csv"]).pick_file(),
                 Pending::ExportLandmarks => d.set_file_name("landmarks.csv").save_file(),
                 Pending::SaveAs => d.set_file_name("specimen.ductline.json").save_file(),

@@ -5,6 +5,8 @@
 
 mod folder;
 mod nifti;
+mod nrrd;
+mod raw;
 mod tiff;
 pub mod write;
 
@@ -394,6 +396,8 @@ pub fn load_with_progress(path: &Path, opts: &LoadOptions, progress: &crate::pro
         folder::load(path, opts, progress)?
     } else if nifti::claims(path) {
         nifti::load(path, opts, progress)?
+    } else if nrrd::claims(path) {
+        nrrd::load(path, opts, progress)?
     } else {
         tiff::load(path, opts, progress)?
     };
@@ -545,6 +549,8 @@ pub fn header(path: &Path) -> Result<Header> {
         folder::header(path)
     } else if nifti::claims(path) {
         nifti::header(path)
+    } else if nrrd::claims(path) {
+        nrrd::header(path)
     } else {
         tiff::header(path)
     }

@@ -4,7 +4,8 @@
 //! index-to-world transform (sform, else qform, else the voxel sizes) is kept as
 //! [`super::World`] in RAS millimetres. The stack frame itself stays (i·vx, j·vy, k·vz).
 
-use super::{LoadOptions, Samples, Stack, VoxelSize, VoxelSource, World};
+use super::raw::{self, Kind};
+use super::{LoadOptions, Stack, VoxelSize, VoxelSource, World};
 use crate::progress::Progress;
 use crate::{Error, Result};
 use std::io::Read;
@@ -191,37 +192,27 @@ fn parse(path: &Path, b: &[u8]) -> Result<Head> {
     })
 }
 
-/// Bytes a sample and the type's name, for the datatypes read here.
-fn datatype(path: &Path, code: i16) -> Result<(usize, &'static str)> {
+/// The sample type of a NIfTI datatype code, for the types read here.
+fn datatype(path: &Path, code: i16) -> Result<Kind> {
     Ok(match code {
-        2 => (1, "uint8"),
-        4 => (2, "int16"),
-        8 => (4, "int32"),
-        16 => (4, "float32"),
-        64 => (8, "float64"),
-        256 => (1, "int8"),
-        512 => (2, "uint16"),
-        768 => (4, "uint32"),
+        2 => Kind::U8,
+        4 => Kind::I16,
+        8 => Kind::I32,
+        16 => Kind::F32,
+        64 => Kind::F64,
+        256 => Kind::I8,
+        512 => Kind::U16,
+        768 => Kind::U32,
         c => return Err(Error::format(path, format!("NIfTI datatype {c} is not supported (grey 8/16/32-bit integers and 32/64-bit floats are)"))),
     })
 }
 
 pub(super) fn header(path: &Path) -> Result<super::Header> {
     let h = parse(path, &read_start(path, 540)?)?;
-    let (_, name) = datatype(path, h.datatype)?;
+    let kind = datatype(path, h.datatype)?;
     let voxel = Some(VoxelSize::new(h.voxel_mm, std::array::from_fn(|_| VoxelSource::FileHeader)));
-    let (sample, bytes_per_sample) = held(name, &h);
+    let (sample, bytes_per_sample) = kind.held(scaled(&h));
     Ok(super::Header { dims: h.dims, sample, bytes_per_sample, voxel })
-}
-
-/// The sample type held in memory and its bytes: the file's own for unscaled uint8, uint16 and
-/// float32, float32 otherwise.
-fn held(name: &'static str, h: &Head) -> (&'static str, usize) {
-    match name {
-        "uint8" if !scaled(h) => ("uint8", 1),
-        "uint16" if !scaled(h) => ("uint16", 2),
-        _ => ("float32", 4),
-    }
 }
 
 /// The scaling changes values: a slope other than 0 or 1, or an intercept other than 0.
@@ -232,10 +223,10 @@ fn scaled(h: &Head) -> bool {
 pub(super) fn load(path: &Path, opts: &LoadOptions, progress: &Progress) -> Result<Stack> {
     // the header first: the memory the volume needs is checked before the file is inflated
     let h = parse(path, &read_start(path, 540)?)?;
-    let (bps, name) = datatype(path, h.datatype)?;
+    let kind = datatype(path, h.datatype)?;
     let n = h.dims.iter().product::<usize>();
-    super::check_memory(path, (n as u64).saturating_mul((bps + held(name, &h).1) as u64), opts.max_bytes)?;
-    let end = h.offset.saturating_add(n * bps);
+    super::check_memory(path, (n as u64).saturating_mul((kind.bytes() + kind.held(scaled(&h)).1) as u64), opts.max_bytes)?;
+    let end = h.offset.saturating_add(n * kind.bytes());
     let b = read_start(path, end as u64)?;
     let data = b.get(h.offset..end).ok_or_else(|| {
         Error::format(path, format!("the file holds fewer samples than its header's {} × {} × {} (truncated?)", h.dims[0], h.dims[1], h.dims[2]))
@@ -247,41 +238,9 @@ pub(super) fn load(path: &Path, opts: &LoadOptions, progress: &Progress) -> Resu
     if !h.units_known {
         warnings.push(format!("{}: the header gives no spatial unit; millimetres assumed", path.display()));
     }
-    let word = |o: usize| -> [u8; 8] {
-        let mut a = [0u8; 8];
-        a[..bps].copy_from_slice(&data[o * bps..(o + 1) * bps]);
-        if h.big_endian {
-            a[..bps].reverse();
-        }
-        a
-    };
-    let value = |i: usize| -> f64 {
-        let w = word(i);
-        match h.datatype {
-            2 => w[0] as f64,
-            256 => w[0] as i8 as f64,
-            4 => i16::from_le_bytes([w[0], w[1]]) as f64,
-            512 => u16::from_le_bytes([w[0], w[1]]) as f64,
-            8 => i32::from_le_bytes(w[..4].try_into().unwrap()) as f64,
-            768 => u32::from_le_bytes(w[..4].try_into().unwrap()) as f64,
-            16 => f32::from_le_bytes(w[..4].try_into().unwrap()) as f64,
-            _ => f64::from_le_bytes(w),
-        }
-    };
     progress.start(1);
-    let samples = match held(name, &h).0 {
-        "uint8" => Samples::U8((0..n).map(|i| value(i) as u8).collect::<Vec<_>>().into()),
-        "uint16" => Samples::U16((0..n).map(|i| value(i) as u16).collect::<Vec<_>>().into()),
-        _ => {
-            let (m, c) = if scaled(&h) { (h.slope, h.inter) } else { (1.0, 0.0) };
-            if scaled(&h) {
-                warnings.push(format!("{}: {name} samples scaled by {m} and offset by {c} (scl_slope, scl_inter), held as float32", path.display()));
-            } else if name != "float32" {
-                warnings.push(format!("{}: {name} samples held as float32", path.display()));
-            }
-            Samples::F32((0..n).map(|i| (value(i) * m + c) as f32).collect::<Vec<_>>().into())
-        }
-    };
+    let (samples, notes) = raw::decode(path, data, kind, h.big_endian, n, scaled(&h).then_some((h.slope, h.inter, "scl_slope, scl_inter")))?;
+    warnings.extend(notes);
     progress.add(1);
     let voxel = Some(VoxelSize::new(h.voxel_mm, std::array::from_fn(|_| VoxelSource::FileHeader)));
     let stack = Stack { dims: h.dims, samples, voxel, origin_vox: [0.0; 3], path: path.to_path_buf(), warnings, world: Some(h.world) };
