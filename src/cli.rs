@@ -66,6 +66,10 @@ pub enum Cmd {
         /// Load only a sub-volume, in voxel indices of the whole stack (half-open ranges).
         #[arg(long, value_name = "I0:I1,J0:J1,K0:K1")]
         crop: Option<String>,
+        /// The frame of the landmark CSV: the stack's (i·vx, j·vy, k·vz mm) or the file's world
+        /// frame (NIfTI: RAS; NRRD, MetaImage: LPS, as the file says).
+        #[arg(long, value_name = "stack|world", default_value = "stack")]
+        landmarks_frame: String,
     },
 }
 
@@ -320,9 +324,16 @@ pub struct MeasureArgs {
     pub species: Option<String>,
     pub bin: usize,
     pub crop: Option<String>,
+    pub landmarks_frame: String,
 }
 
 pub fn measure(a: MeasureArgs) -> Result<()> {
+    let world = match a.landmarks_frame.as_str() {
+        "stack" => false,
+        "world" if a.landmarks.is_some() => true,
+        "world" => bail!("--landmarks-frame world applies to a landmark CSV (--landmarks); a project keeps its landmarks in the stack frame"),
+        other => bail!("--landmarks-frame must be stack or world, not {other:?}"),
+    };
     let (stack_path, mut prj) = match (&a.project, &a.stack, &a.landmarks) {
         (Some(p), None, None) => {
             let prj = project::Project::load(p)?;
@@ -355,9 +366,22 @@ pub fn measure(a: MeasureArgs) -> Result<()> {
         eprintln!("warning: {w}");
     }
     st.voxel()?;
+    // world-frame landmarks into the stack frame, by the file's own index-to-world transform
+    if world {
+        let src = a.landmarks.as_deref().unwrap_or(Path::new(""));
+        let w = st.world.as_ref().ok_or_else(|| anyhow::anyhow!("{}: the file has no index-to-world transform; --landmarks-frame world needs one", stack_path.display()))?;
+        let mm = st.voxel()?.original_mm;
+        for l in &mut prj.landmarks {
+            l.p = w.to_stack(l.p, mm).ok_or_else(|| anyhow::anyhow!("{}: its index-to-world matrix is singular", stack_path.display()))?;
+        }
+        if let Some((i, l)) = landmarks::first_outside(&prj.landmarks, &st) {
+            bail!("{}: landmark #{} ({}) maps to ({:.3}, {:.3}, {:.3}) mm in the stack frame, outside the stack (is the world frame {}?)", src.display(), i + 1, l.kind.as_str(), l.p[0], l.p[1], l.p[2], w.frame);
+        }
+    }
     // the landmarks must lie inside the stack: a CSV names the line, a project the landmark
     let src = a.landmarks.clone().or(a.project.clone()).unwrap_or_default();
     match &a.landmarks {
+        Some(_) if world => {}
         Some(l) => drop(landmarks::read_csv(l, Some(&st))?),
         None => {
             if let Some((i, l)) = landmarks::first_outside(&prj.landmarks, &st) {

@@ -183,4 +183,15 @@ fn failures_exit_non_zero_with_one_line() {
     assert!(failure(&ductline(&["inspect", s(&stack), "--voxel-um", "0"])).contains("positive"));
     let e = failure(&ductline(&["measure", "--stack", s(&stack), "--landmarks", s(&lm), "--out", s(&out), "--species", "dragon"]));
     assert!(e.contains("dragon"), "{e}");
+    // world-frame landmarks need a file with an index-to-world transform; a world point mapping
+    // outside the stack is named with the frame it was read in
+    std::fs::write(&lm, "kind,x_mm,y_mm,z_mm\nlamina,0.1,0.1,0.01\n").unwrap();
+    let e = failure(&ductline(&["measure", "--stack", s(&stack), "--landmarks", s(&lm), "--out", s(&out), "--landmarks-frame", "world"]));
+    assert!(e.contains("u16_ome.tif") && e.contains("index-to-world"), "{e}");
+    let nii = common::fixture("nifti/u8_plain.nii");
+    std::fs::write(&lm, "kind,x_mm,y_mm,z_mm\nlamina,-5,0.05,0.05\n").unwrap();
+    let e = failure(&ductline(&["measure", "--stack", s(&nii), "--landmarks", s(&lm), "--out", s(&out), "--landmarks-frame", "world"]));
+    assert!(e.contains("l.csv") && e.contains("outside the stack") && e.contains("RAS"), "{e}");
+    let e = failure(&ductline(&["measure", "--stack", s(&nii), "--landmarks", s(&lm), "--out", s(&out), "--landmarks-frame", "scanner"]));
+    assert!(e.contains("stack or world"), "{e}");
 }

@@ -327,6 +327,7 @@ fn reads_nifti_like_nibabel() {
                 assert!((world.matrix[r][c] - x).abs() < 1e-5, "{name}: affine [{r}][{c}] {} vs {x}", world.matrix[r][c]);
             }
         }
+        world_points_come_home(name, &f["affine"], world, vox.mm);
     }
     // scaled int16 is held as float32 and said so
     let ct = load(&fixture("nifti/ct_int16_scaled.nii.gz")).unwrap();
@@ -388,6 +389,7 @@ fn reads_nrrd_like_pynrrd_and_metaimage_like_simpleitk() {
                 assert!((world.matrix[r][c] - x).abs() < 1e-9, "{name}: world [{r}][{c}] {} vs {x}", world.matrix[r][c]);
             }
         }
+        world_points_come_home(name, &f["affine"], world, vox.mm);
     }
     // the header alone (inspect) agrees with the load
     let h = ductline::stack::header(&fixture("volumes/ct_int16.mha")).unwrap();
@@ -412,4 +414,17 @@ fn reads_nrrd_like_pynrrd_and_metaimage_like_simpleitk() {
     std::fs::write(&junk, "this is not a header\n").unwrap();
     let e = load(&junk).unwrap_err().to_string();
     assert!(e.contains("junk.mhd") && e.contains("MetaImage"), "{e}");
+}
+
+/// `--landmarks-frame world`: a point the reference library's affine puts at index (i, j, k)
+/// comes back to the stack-frame point (i·vx, j·vy, k·vz) through `World::to_stack`.
+fn world_points_come_home(name: &str, affine: &serde_json::Value, world: &stack::World, vox: [f64; 3]) {
+    let a: Vec<Vec<f64>> = affine.as_array().unwrap().iter().map(|r| r.as_array().unwrap().iter().map(|x| x.as_f64().unwrap()).collect()).collect();
+    for idx in [[0.0, 0.0, 0.0], [3.0, 1.5, 2.0], [7.25, 5.0, 0.5]] {
+        let p: [f64; 3] = std::array::from_fn(|r| a[r][0] * idx[0] + a[r][1] * idx[1] + a[r][2] * idx[2] + a[r][3]);
+        let q = world.to_stack(p, vox).unwrap();
+        for k in 0..3 {
+            assert!((q[k] - idx[k] * vox[k]).abs() < 1e-6, "{name}: index {idx:?} came back as {q:?}");
+        }
+    }
 }

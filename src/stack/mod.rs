@@ -299,6 +299,35 @@ impl World {
         let rows: Vec<String> = self.matrix.iter().map(|r| format!("[{:.4} {:.4} {:.4} {:.4}]", r[0], r[1], r[2], r[3])).collect();
         format!("(i, j, k, 1) → {} mm from {}: {}", self.frame, self.source, rows.join(" "))
     }
+
+    /// The stack-frame point (mm: i·vx, j·vy, k·vz) of a world point `p` (mm, in this
+    /// transform's frame), for voxel sizes `voxel_mm`; None when the matrix is singular.
+    ///
+    /// ```
+    /// use ductline::stack::World;
+    /// // index axes scaled by 0.05, 0.05, 0.08 mm, rotated 90° about z, origin at (10, 20, 30)
+    /// let w = World { matrix: [[0.0, -0.05, 0.0, 10.0], [0.05, 0.0, 0.0, 20.0], [0.0, 0.0, 0.08, 30.0]], frame: "RAS", source: "example".into() };
+    /// // index (2, 4, 5) lies at world (10 − 0.2, 20 + 0.1, 30 + 0.4)
+    /// let p = w.to_stack([9.8, 20.1, 30.4], [0.05, 0.05, 0.08]).unwrap();
+    /// assert!((p[0] - 0.1).abs() < 1e-12 && (p[1] - 0.2).abs() < 1e-12 && (p[2] - 0.4).abs() < 1e-12);
+    /// ```
+    pub fn to_stack(&self, p: [f64; 3], voxel_mm: [f64; 3]) -> Option<[f64; 3]> {
+        let m = &self.matrix;
+        let a = |r: usize, c: usize| m[r][c];
+        let det = a(0, 0) * (a(1, 1) * a(2, 2) - a(1, 2) * a(2, 1)) - a(0, 1) * (a(1, 0) * a(2, 2) - a(1, 2) * a(2, 0)) + a(0, 2) * (a(1, 0) * a(2, 1) - a(1, 1) * a(2, 0));
+        if !(det.abs() > 1e-300) || !det.is_finite() {
+            return None;
+        }
+        let d = [p[0] - a(0, 3), p[1] - a(1, 3), p[2] - a(2, 3)];
+        // Cramer's rule: index k is det(A with column k replaced by d) / det(A)
+        let idx: [f64; 3] = std::array::from_fn(|k| {
+            let col = |r: usize, c: usize| if c == k { d[r] } else { a(r, c) };
+            (col(0, 0) * (col(1, 1) * col(2, 2) - col(1, 2) * col(2, 1)) - col(0, 1) * (col(1, 0) * col(2, 2) - col(1, 2) * col(2, 0))
+                + col(0, 2) * (col(1, 0) * col(2, 1) - col(1, 1) * col(2, 0)))
+                / det
+        });
+        Some(std::array::from_fn(|k| idx[k] * voxel_mm[k]))
+    }
 }
 
 impl Stack {
