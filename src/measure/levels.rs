@@ -193,9 +193,10 @@ pub(super) struct Plateau {
 /// edge (within its first 1.5 voxels), the plateau is where the rise is least before it climbs
 /// again (by half the edge's rise) or two voxels have passed: inside a soft-tissue layer however
 /// thin or blurred (the saddle between its edge and the bone's behind it), or in bone where bone
-/// walls the lumen. A ray whose value falls back
-/// toward the lumen past that point (the crest of a thin septum between two lumens) or that
-/// reaches a region again says nothing about any material and is dropped.
+/// walls the lumen. A ray whose value falls back toward the lumen past that point (the crest of
+/// a thin septum between two lumens) or that reaches a region again says nothing about any
+/// material and is dropped. The value says which material (the area step compares it with the
+/// soft-tissue–bone midpoint); the soft-tissue level itself comes from [`wall_level`].
 pub(super) fn plateaus(img: &Img, masks: &[&[bool]], bounds: super::regions::Rect, lv: &Levels, vox: usize) -> Vec<Plateau> {
     let step = lv.bone - lv.lumen;
     let reach = 8 * vox; // half-pixel steps: four voxels
@@ -231,7 +232,7 @@ pub(super) fn plateaus(img: &Img, masks: &[&[bool]], bounds: super::regions::Rec
 }
 
 /// Length of a lateral-wall profile (mm): the thickest spiral ligament and the bone behind it.
-pub(super) const PROFILE_MM: f64 = 0.6;
+const PROFILE_MM: f64 = 0.6;
 
 /// The summed profile, in q = (v − lumen)/(bone − lumen), across the lateral wall next to the
 /// partition's outer end, and the number of rays summed (see [`wall_level`]).
