@@ -368,15 +368,7 @@ pub fn measure(a: MeasureArgs) -> Result<()> {
     st.voxel()?;
     // world-frame landmarks into the stack frame, by the file's own index-to-world transform
     if world {
-        let src = a.landmarks.as_deref().unwrap_or(Path::new(""));
-        let w = st.world.as_ref().ok_or_else(|| anyhow::anyhow!("{}: the file has no index-to-world transform; --landmarks-frame world needs one", stack_path.display()))?;
-        let mm = st.voxel()?.original_mm;
-        for l in &mut prj.landmarks {
-            l.p = w.to_stack(l.p, mm).ok_or_else(|| anyhow::anyhow!("{}: its index-to-world matrix is singular", stack_path.display()))?;
-        }
-        if let Some((i, l)) = landmarks::first_outside(&prj.landmarks, &st) {
-            bail!("{}: landmark #{} ({}) maps to ({:.3}, {:.3}, {:.3}) mm in the stack frame, outside the stack (is the world frame {}?)", src.display(), i + 1, l.kind.as_str(), l.p[0], l.p[1], l.p[2], w.frame);
-        }
+        prj.landmarks = landmarks::from_world(&prj.landmarks, &st, a.landmarks.as_deref().unwrap_or(Path::new("")))?;
     }
     // the landmarks must lie inside the stack: a CSV names the line, a project the landmark
     let src = a.landmarks.clone().or(a.project.clone()).unwrap_or_default();

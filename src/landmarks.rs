@@ -85,6 +85,36 @@ pub fn parse_csv(text: &str, path: &Path, stack: Option<&Stack>) -> Result<Vec<L
     Ok(out)
 }
 
+/// Landmarks given in the stack file's world frame (`stack.world`: NIfTI RAS, NRRD its space,
+/// MetaImage LPS), mapped into the stack frame through the file's index-to-world transform.
+/// `source` names the landmark file in errors: a stack with no such transform, or a landmark that
+/// maps outside the stack (the frame it was read in is named).
+pub fn from_world(items: &[Landmark], stack: &Stack, source: &Path) -> Result<Vec<Landmark>> {
+    let w = stack
+        .world
+        .as_ref()
+        .ok_or_else(|| Error::invalid(format!("{}: the file has no index-to-world transform; world-frame landmarks need one", stack.path.display())))?;
+    let mm = stack.voxel()?.original_mm;
+    let mut out = Vec::with_capacity(items.len());
+    for (i, l) in items.iter().enumerate() {
+        let p = w.to_stack(l.p, mm).ok_or_else(|| Error::invalid(format!("{}: its index-to-world matrix is singular", stack.path.display())))?;
+        if !stack.contains_mm(p) {
+            return Err(Error::invalid(format!(
+                "{}: landmark #{} ({}) maps to ({:.3}, {:.3}, {:.3}) mm in the stack frame, outside the stack (is the world frame {}?)",
+                source.display(),
+                i + 1,
+                l.kind.as_str(),
+                p[0],
+                p[1],
+                p[2],
+                w.frame
+            )));
+        }
+        out.push(Landmark { p, ..*l });
+    }
+    Ok(out)
+}
+
 /// The first landmark (index, landmark) lying outside the stack, if any.
 pub fn first_outside(items: &[Landmark], stack: &Stack) -> Option<(usize, Landmark)> {
     items.iter().enumerate().find(|(_, l)| !stack.contains_mm(l.p)).map(|(i, l)| (i, *l))

@@ -63,8 +63,10 @@ pub mod palette {
 pub enum Cmd {
     Open(PathBuf),
     OpenDialog,
-    ImportLandmarksDialog,
-    ImportLandmarks(PathBuf),
+    /// Ask for a landmark CSV; `true`: its points are in the file's world frame.
+    ImportLandmarksDialog(bool),
+    /// Import a landmark CSV; `true`: its points are in the file's world frame.
+    ImportLandmarks(PathBuf, bool),
     ExportLandmarksDialog,
     ExportLandmarks(PathBuf),
     Save,
@@ -104,7 +106,7 @@ pub struct Loaded {
 #[derive(Clone, Copy, Debug)]
 enum Pending {
     Open,
-    ImportLandmarks,
+    ImportLandmarks(bool),
     ExportLandmarks,
     SaveAs,
     ExportTable,
@@ -244,7 +246,7 @@ impl DuctApp {
             if let Some(p) = res {
                 self.apply(match what {
                     Pending::Open => Cmd::Open(p),
-                    Pending::ImportLandmarks => Cmd::ImportLandmarks(p),
+                    Pending::ImportLandmarks(world) => Cmd::ImportLandmarks(p, world),
                     Pending::ExportLandmarks => Cmd::ExportLandmarks(p),
                     Pending::SaveAs => Cmd::SaveAs(p),
                     Pending::ExportTable => Cmd::ExportTable(p),
@@ -314,7 +316,7 @@ impl DuctApp {
             }
             match what {
                 Pending::Open => d.add_filter("stack or project", &["tif", "tiff", "nii", "gz", "nrrd", "nhdr", "mha", "mhd", "json", "png"]).pick_file(),
-                Pending::ImportLandmarks => d.add_filter("landmarks", &["csv"]).pick_file(),
+                Pending::ImportLandmarks(_) => d.add_filter("landmarks", &["csv"]).pick_file(),
                 Pending::ExportLandmarks => d.set_file_name("landmarks.csv").save_file(),
                 Pending::SaveAs => d.set_file_name("specimen.ductline.json").save_file(),
                 Pending::ExportTable => d.set_file_name("geometry.csv").add_filter("CSV or JSON table", &["csv", "json"]).save_file(),
@@ -345,7 +347,7 @@ impl DuctApp {
                 self.load = Some(Job::spawn("loading", move |prog| load(&p, opts, prog)));
             }
             Cmd::OpenDialog => self.ask(Pending::Open),
-            Cmd::ImportLandmarksDialog => self.ask(Pending::ImportLandmarks),
+            Cmd::ImportLandmarksDialog(world) => self.ask(Pending::ImportLandmarks(world)),
             Cmd::ExportLandmarksDialog => self.ask(Pending::ExportLandmarks),
             Cmd::SaveAsDialog => self.ask(Pending::SaveAs),
             Cmd::ExportTableDialog => self.ask(Pending::ExportTable),
@@ -398,13 +400,22 @@ impl DuctApp {
             Cmd::Undo => Ok(if doc.lms.undo() { "undone".into() } else { "nothing to undo".into() }),
             Cmd::Redo => Ok(if doc.lms.redo() { "redone".into() } else { "nothing to redo".into() }),
             Cmd::Refit => Ok(String::new()),
-            Cmd::ImportLandmarks(p) => ductline::landmarks::read_csv(&p, Some(&doc.stack)).map_err(|e| e.to_string()).map(|items| {
-                let n = items.len();
-                for lm in items {
-                    doc.lms.add(lm);
-                }
-                format!("imported {n} landmarks from {}", p.display())
-            }),
+            Cmd::ImportLandmarks(p, world) => {
+                // world-frame points are checked against the stack once mapped into its frame
+                let read = if world {
+                    ductline::landmarks::read_csv(&p, None).and_then(|items| ductline::landmarks::from_world(&items, &doc.stack, &p))
+                } else {
+                    ductline::landmarks::read_csv(&p, Some(&doc.stack))
+                };
+                read.map_err(|e| e.to_string()).map(|items| {
+                    let n = items.len();
+                    for lm in items {
+                        doc.lms.add(lm);
+                    }
+                    let frame = if world { doc.stack.world.as_ref().map(|w| format!(" (world frame {})", w.frame)).unwrap_or_default() } else { String::new() };
+                    format!("imported {n} landmarks from {}{frame}", p.display())
+                })
+            }
             Cmd::ExportLandmarks(p) => ductline::landmarks::write_csv(&p, &doc.lms.items).map(|_| format!("wrote {}", p.display())).map_err(|e| e.to_string()),
             Cmd::Save => match doc.project_path.clone() {
                 Some(p) => save(doc, &p),
@@ -566,7 +577,17 @@ impl DuctApp {
                 }
                 ui.separator();
                 if ui.button("Import landmarks (CSV)…").clicked() {
-                    cmds.push(Cmd::ImportLandmarksDialog);
+                    cmds.push(Cmd::ImportLandmarksDialog(false));
+                }
+                // only a volume file with an index-to-world transform has a world frame
+                let world = self.doc.as_ref().and_then(|d| d.stack.world.as_ref()).map(|w| w.frame);
+                let label = format!("Import landmarks in the file's world frame{} (CSV)…", world.map(|f| format!(", {f}")).unwrap_or_default());
+                if ui
+                    .add_enabled(world.is_some(), egui::Button::new(label))
+                    .on_disabled_hover_text("this stack's file has no index-to-world transform")
+                    .clicked()
+                {
+                    cmds.push(Cmd::ImportLandmarksDialog(true));
                 }
                 if ui.button("Export landmarks (CSV)…").clicked() {
                     cmds.push(Cmd::ExportLandmarksDialog);
@@ -735,7 +756,7 @@ impl DuctApp {
         }
         cmds.extend(self.windows_ui(&ctx));
         for c in cmds {
-            let edits = matches!(c, Cmd::Edit(_) | Cmd::Undo | Cmd::Redo | Cmd::Refit | Cmd::ImportLandmarks(_));
+            let edits = matches!(c, Cmd::Edit(_) | Cmd::Undo | Cmd::Redo | Cmd::Refit | Cmd::ImportLandmarks(..));
             self.apply(c);
             if edits && let Some(d) = &mut self.doc {
                 d.refit();

@@ -4,7 +4,7 @@ use super::{Cmd, DuctApp, sample_path};
 use ductline::landmarks::Kind;
 use egui::Role;
 use egui_kittest::Harness;
-use egui_kittest::kittest::Queryable;
+use egui_kittest::kittest::{NodeT, Queryable};
 use std::path::PathBuf;
 use std::time::Duration;
 
@@ -190,4 +190,50 @@ fn load_options_bin_and_crop() {
     h.state_mut().apply(Cmd::Open(sample_path()));
     h.step();
     assert!(h.state().status.contains("--crop"), "{}", h.state().status);
+}
+
+/// A NIfTI stack offers world-frame landmark import (its frame named); the imported points land
+/// where the file's affine (as nibabel reports it, tests/fixtures/manifest.json) says. A TIFF
+/// stack offers it disabled.
+#[test]
+fn world_frame_landmark_import() {
+    let nii = PathBuf::from(env!("CARGO_MANIFEST_DIR")).join("tests/fixtures/nifti/u16_qform.nii");
+    let mut h = harness(Some(nii));
+    wait(&mut h, "the NIfTI stack", |a| a.doc.is_some());
+    h.get_by_role_and_label(egui::Role::Button, "Specimen").click();
+    h.step();
+    h.step();
+    assert!(!h.get_by_label_contains("world frame, RAS").accesskit_node().is_disabled(), "the item is enabled for a file with a world frame");
+    let manifest: serde_json::Value =
+        serde_json::from_str(&std::fs::read_to_string(PathBuf::from(env!("CARGO_MANIFEST_DIR")).join("tests/fixtures/manifest.json")).unwrap()).unwrap();
+    let f = manifest["nifti"].as_array().unwrap().iter().find(|f| f["name"] == "u16_qform.nii").unwrap();
+    let a: Vec<Vec<f64>> = f["affine"].as_array().unwrap().iter().map(|r| r.as_array().unwrap().iter().map(|x| x.as_f64().unwrap()).collect()).collect();
+    let zooms: Vec<f64> = f["zooms"].as_array().unwrap().iter().map(|x| x.as_f64().unwrap()).collect();
+    let idx = [2.0, 3.0, 1.5];
+    let p: Vec<f64> = (0..3).map(|r| a[r][0] * idx[0] + a[r][1] * idx[1] + a[r][2] * idx[2] + a[r][3]).collect();
+    let dir = tempfile::tempdir().unwrap();
+    let csv = dir.path().join("world.csv");
+    std::fs::write(&csv, format!("kind,x_mm,y_mm,z_mm\nlamina,{},{},{}\n", p[0], p[1], p[2])).unwrap();
+    let n0 = count(&h);
+    h.state_mut().apply(Cmd::ImportLandmarks(csv.clone(), true));
+    h.step();
+    assert_eq!(count(&h), n0 + 1, "{}", h.state().status);
+    let got = h.state().doc.as_ref().unwrap().lms.items.last().unwrap().p;
+    for k in 0..3 {
+        assert!((got[k] - idx[k] * zooms[k]).abs() < 1e-6, "{got:?}");
+    }
+    assert!(h.state().status.contains("world frame RAS"), "{}", h.state().status);
+    // the same file read in the stack frame lies outside this 7 × 6 × 4 stack: refused, named
+    h.state_mut().apply(Cmd::ImportLandmarks(csv, false));
+    h.step();
+    assert_eq!(count(&h), n0 + 1);
+    assert!(h.state().status.contains("world.csv"), "{}", h.state().status);
+
+    // a TIFF stack has no world frame
+    let mut h = harness(Some(sample_path()));
+    wait(&mut h, "the sample", |a| a.doc.is_some());
+    h.get_by_role_and_label(egui::Role::Button, "Specimen").click();
+    h.step();
+    h.step();
+    assert!(h.get_by_label_contains("Import landmarks in the file's world frame").accesskit_node().is_disabled());
 }

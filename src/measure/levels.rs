@@ -403,7 +403,14 @@ fn phi(z: f64) -> f64 {
 /// `keep(pixel, direction)` holds: (pixel, unit direction, `len` smoothed values every half
 /// pixel). Rays that leave the image or enter a region again from their `skip`-th sample on are
 /// left out.
-fn edge_rays(img: &Img, masks: &[&[bool]], bounds: super::regions::Rect, len: usize, skip: usize, keep: impl Fn(usize, [f64; 2]) -> bool) -> Vec<(usize, [f64; 2], Vec<f32>)> {
+fn edge_rays(
+    img: &Img,
+    masks: &[&[bool]],
+    bounds: super::regions::Rect,
+    len: usize,
+    skip: usize,
+    keep: impl Fn(usize, [f64; 2]) -> bool,
+) -> Vec<(usize, [f64; 2], Vec<f32>)> {
     let n = img.n;
     let any = |k: usize| masks.iter().any(|m| m[k]);
     let mut out = vec![];
@@ -477,4 +484,3 @@ mod tests {
         assert_eq!(wall_level(&step, pitch), Some(Wall::Bare));
     }
 }
-

@@ -314,7 +314,8 @@ impl World {
     pub fn to_stack(&self, p: [f64; 3], voxel_mm: [f64; 3]) -> Option<[f64; 3]> {
         let m = &self.matrix;
         let a = |r: usize, c: usize| m[r][c];
-        let det = a(0, 0) * (a(1, 1) * a(2, 2) - a(1, 2) * a(2, 1)) - a(0, 1) * (a(1, 0) * a(2, 2) - a(1, 2) * a(2, 0)) + a(0, 2) * (a(1, 0) * a(2, 1) - a(1, 1) * a(2, 0));
+        let det = a(0, 0) * (a(1, 1) * a(2, 2) - a(1, 2) * a(2, 1)) - a(0, 1) * (a(1, 0) * a(2, 2) - a(1, 2) * a(2, 0))
+            + a(0, 2) * (a(1, 0) * a(2, 1) - a(1, 1) * a(2, 0));
         if !(det.abs() > 1e-300) || !det.is_finite() {
             return None;
         }

@@ -303,7 +303,9 @@ pub(super) fn load(path: &Path, opts: &LoadOptions, progress: &Progress) -> Resu
     let len = f.metadata().map_err(|e| Error::io(df, e))?.len();
     let start = match h.offset {
         Some(o) => o,
-        None => len.checked_sub(need).ok_or_else(|| Error::format(df, format!("the file is shorter than the {need} bytes of samples its header describes (truncated?)")))?,
+        None => len
+            .checked_sub(need)
+            .ok_or_else(|| Error::format(df, format!("the file is shorter than the {need} bytes of samples its header describes (truncated?)")))?,
     };
     std::io::Seek::seek(&mut f, std::io::SeekFrom::Start(start)).map_err(|e| Error::io(df, e))?;
     let want = need + h.skip_inflated;

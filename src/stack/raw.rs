@@ -60,7 +60,10 @@ impl Kind {
 pub(super) fn decode(path: &Path, data: &[u8], kind: Kind, big_endian: bool, n: usize, scale: Option<(f64, f64, &str)>) -> Result<(Samples, Vec<String>)> {
     let bps = kind.bytes();
     if data.len() < n * bps {
-        return Err(Error::format(path, format!("the file holds {} bytes of samples where {n} {} samples need {} (truncated?)", data.len(), kind.name(), n * bps)));
+        return Err(Error::format(
+            path,
+            format!("the file holds {} bytes of samples where {n} {} samples need {} (truncated?)", data.len(), kind.name(), n * bps),
+        ));
     }
     let word = |o: usize| -> [u8; 8] {
         let mut a = [0u8; 8];
