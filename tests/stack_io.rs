@@ -303,31 +303,7 @@ fn reads_nifti_like_nibabel() {
     let files = manifest["nifti"].as_array().unwrap();
     assert!(files.len() >= 4);
     for f in files {
-        let name = f["name"].as_str().unwrap();
-        let st = load(&fixture(&format!("nifti/{name}"))).unwrap_or_else(|e| panic!("{name}: {e}"));
-        let shape: Vec<usize> = f["shape"].as_array().unwrap().iter().map(|x| x.as_u64().unwrap() as usize).collect();
-        assert_eq!(st.dims.to_vec(), shape, "{name}: dims");
-        let raw = std::fs::read(fixture(&format!("nifti/{name}.expected.raw"))).unwrap();
-        let want: Vec<f64> = raw.chunks_exact(8).map(|c| f64::from_le_bytes(c.try_into().unwrap())).collect();
-        assert_eq!(want.len(), st.samples.len());
-        for (i, w) in want.iter().enumerate() {
-            let got = st.samples.get(i) as f64;
-            assert!((got - w).abs() <= 1e-6 * w.abs().max(1.0), "{name}: sample {i}: {got} vs {w}");
-        }
-        let zooms: Vec<f64> = f["zooms"].as_array().unwrap().iter().map(|x| x.as_f64().unwrap()).collect();
-        let vox = st.voxel.as_ref().unwrap();
-        for a in 0..3 {
-            assert!((vox.mm[a] - zooms[a]).abs() < 1e-6, "{name}: voxel {:?} vs {zooms:?}", vox.mm);
-        }
-        let world = st.world.as_ref().unwrap_or_else(|| panic!("{name}: no world transform"));
-        assert_eq!(world.frame, "RAS");
-        for (r, row) in f["affine"].as_array().unwrap().iter().enumerate() {
-            for (c, x) in row.as_array().unwrap().iter().enumerate() {
-                let x = x.as_f64().unwrap();
-                assert!((world.matrix[r][c] - x).abs() < 1e-5, "{name}: affine [{r}][{c}] {} vs {x}", world.matrix[r][c]);
-            }
-        }
-        world_points_come_home(name, &f["affine"], world, vox.mm);
+        matches_reference("nifti", f, "zooms", "RAS", 1e-5);
     }
     // scaled int16 is held as float32 and said so
     let ct = load(&fixture("nifti/ct_int16_scaled.nii.gz")).unwrap();
@@ -365,31 +341,7 @@ fn reads_nrrd_like_pynrrd_and_metaimage_like_simpleitk() {
     let files = manifest["volumes"].as_array().unwrap();
     assert!(files.len() >= 6);
     for f in files {
-        let name = f["name"].as_str().unwrap();
-        let st = load(&fixture(&format!("volumes/{name}"))).unwrap_or_else(|e| panic!("{name}: {e}"));
-        let shape: Vec<usize> = f["shape"].as_array().unwrap().iter().map(|x| x.as_u64().unwrap() as usize).collect();
-        assert_eq!(st.dims.to_vec(), shape, "{name}: dims");
-        let raw = std::fs::read(fixture(&format!("volumes/{name}.expected.raw"))).unwrap();
-        let want: Vec<f64> = raw.chunks_exact(8).map(|c| f64::from_le_bytes(c.try_into().unwrap())).collect();
-        assert_eq!(want.len(), st.samples.len(), "{name}");
-        for (i, w) in want.iter().enumerate() {
-            let got = st.samples.get(i) as f64;
-            assert!((got - w).abs() <= 1e-6 * w.abs().max(1.0), "{name}: sample {i}: {got} vs {w}");
-        }
-        let spacing: Vec<f64> = f["spacing"].as_array().unwrap().iter().map(|x| x.as_f64().unwrap()).collect();
-        let vox = st.voxel.as_ref().unwrap_or_else(|| panic!("{name}: no voxel size"));
-        for a in 0..3 {
-            assert!((vox.mm[a] - spacing[a]).abs() < 1e-9, "{name}: voxel {:?} vs {spacing:?}", vox.mm);
-        }
-        let world = st.world.as_ref().unwrap_or_else(|| panic!("{name}: no world transform"));
-        assert_eq!(world.frame, f["frame"].as_str().unwrap(), "{name}");
-        for (r, row) in f["affine"].as_array().unwrap().iter().enumerate() {
-            for (c, x) in row.as_array().unwrap().iter().enumerate() {
-                let x = x.as_f64().unwrap();
-                assert!((world.matrix[r][c] - x).abs() < 1e-9, "{name}: world [{r}][{c}] {} vs {x}", world.matrix[r][c]);
-            }
-        }
-        world_points_come_home(name, &f["affine"], world, vox.mm);
+        matches_reference("volumes", f, "spacing", f["frame"].as_str().unwrap(), 1e-9);
     }
     // the header alone (inspect) agrees with the load
     let h = ductline::stack::header(&fixture("volumes/ct_int16.mha")).unwrap();
@@ -427,4 +379,35 @@ fn world_points_come_home(name: &str, affine: &serde_json::Value, world: &stack:
             assert!((q[k] - idx[k] * vox[k]).abs() < 1e-6, "{name}: index {idx:?} came back as {q:?}");
         }
     }
+}
+
+/// A volume fixture read as its writing library reads it back (manifest entry `f` under `dir`):
+/// shape, every sample, voxel sizes (manifest key `sizes`) and the world transform in `frame`,
+/// to `tol`; and world points come home through `World::to_stack`.
+fn matches_reference(dir: &str, f: &serde_json::Value, sizes: &str, frame: &str, tol: f64) {
+    let name = f["name"].as_str().unwrap();
+    let st = load(&fixture(&format!("{dir}/{name}"))).unwrap_or_else(|e| panic!("{name}: {e}"));
+    let shape: Vec<usize> = f["shape"].as_array().unwrap().iter().map(|x| x.as_u64().unwrap() as usize).collect();
+    assert_eq!(st.dims.to_vec(), shape, "{name}: dims");
+    let raw = std::fs::read(fixture(&format!("{dir}/{name}.expected.raw"))).unwrap();
+    let want: Vec<f64> = raw.chunks_exact(8).map(|c| f64::from_le_bytes(c.try_into().unwrap())).collect();
+    assert_eq!(want.len(), st.samples.len(), "{name}");
+    for (i, w) in want.iter().enumerate() {
+        let got = st.samples.get(i) as f64;
+        assert!((got - w).abs() <= 1e-6 * w.abs().max(1.0), "{name}: sample {i}: {got} vs {w}");
+    }
+    let size: Vec<f64> = f[sizes].as_array().unwrap().iter().map(|x| x.as_f64().unwrap()).collect();
+    let vox = st.voxel.as_ref().unwrap_or_else(|| panic!("{name}: no voxel size"));
+    for a in 0..3 {
+        assert!((vox.mm[a] - size[a]).abs() < tol, "{name}: voxel {:?} vs {size:?}", vox.mm);
+    }
+    let world = st.world.as_ref().unwrap_or_else(|| panic!("{name}: no world transform"));
+    assert_eq!(world.frame, frame, "{name}");
+    for (r, row) in f["affine"].as_array().unwrap().iter().enumerate() {
+        for (c, x) in row.as_array().unwrap().iter().enumerate() {
+            let x = x.as_f64().unwrap();
+            assert!((world.matrix[r][c] - x).abs() < tol, "{name}: world [{r}][{c}] {} vs {x}", world.matrix[r][c]);
+        }
+    }
+    world_points_come_home(name, &f["affine"], world, vox.mm);
 }
