@@ -85,24 +85,22 @@ pub(super) fn fraction_area(img: &Img, r: &Region, side: f64, lv: &Levels, band:
     // a pixel a voxel or more outside the lumen whose value sits at the soft-tissue level is soft
     // tissue even on bone (a blurred lumen–bone edge is brighter there)
     let tissue_band = (lv.tissue - 0.25 * (lv.tissue - lv.lumen), lv.tissue + 0.1 * (lv.bone - lv.tissue));
-    // Against what a pixel's lumen fraction is taken: bone beyond the stretches of the lumen's
-    // edge that meet bone directly (bone within 1.75 voxels: a blurred lumen–bone edge spans
-    // about one; a soft-tissue layer two voxels or more thick keeps bone farther off), out to the
-    // band; soft tissue elsewhere, but only within 1.5 voxels of the lumen: beyond the lumen's
-    // own blur soft tissue holds no lumen, and a window that ends there keeps a thin layer on
-    // bone from counting as part lumen. A pixel belongs to the stretch of edge nearest to it.
+    // Against what a pixel's lumen fraction is taken. Each edge pixel's ray says which material
+    // lies beyond it (`levels::plateaus`): the pixels along a ray take that material as their
+    // reference out to its plateau, and past a soft-tissue plateau hold no lumen (a thin ligament
+    // or limbus on bone is not a blurred bone edge). Where no ray says (it crossed a thin septum or
+    // the partition, or ran past a corner), the stretch of edge nearest the pixel decides: bone
+    // beyond stretches that meet bone directly (bone within 1.75 voxels; an edge with a ray
+    // counts as its ray says), out to the band; soft tissue elsewhere, but only within 1.5 voxels
+    // of the lumen: beyond the lumen's own blur soft tissue holds no lumen.
+    #[derive(Clone, Copy, PartialEq)]
     enum Ref {
         Bone,
         Tissue,
         None,
     }
-    // Each edge pixel's ray says which material lies beyond it (`levels::plateaus`): the pixels
-    // along a ray take that material as their reference out to its plateau, and beyond a soft-
-    // tissue plateau hold no lumen (a thin ligament or limbus on bone is not a blurred bone edge).
-    // Where no ray says (it crossed a thin septum or the partition, or ran past a corner), the
-    // stretch of edge nearest the pixel decides: bone-walled where bone lies within 1.75 voxels.
-    let mut by_ray = vec![0u8; w * h]; // 1: soft tissue, 2: bone, 3: past a soft-tissue plateau
-    let mut lined = vec![0u8; w * h];
+    let mut by_ray: Vec<Option<Ref>> = vec![None; w * h];
+    let mut lined: Vec<Option<Ref>> = vec![None; w * h];
     if two_tissues {
         let cell = |x: f64, y: f64| -> Option<usize> {
             let (x, y) = (x.round(), y.round());
@@ -110,30 +108,28 @@ pub(super) fn fraction_area(img: &Img, r: &Region, side: f64, lv: &Levels, band:
             inside.then(|| (y as usize - reach.b0) * w + x as usize - reach.a0)
         };
         for p in super::levels::plateaus(img, &[mask], r.bounds, lv, erode) {
-            let kind = if p.value < lv.bone_cut() { 1 } else { 2 };
+            let kind = if p.value < lv.bone_cut() { Ref::Tissue } else { Ref::Bone };
             let (a, b) = ((p.pixel % n) as f64, (p.pixel / n) as f64);
-            lined[(p.pixel / n - reach.b0) * w + p.pixel % n - reach.a0] = kind;
+            lined[(p.pixel / n - reach.b0) * w + p.pixel % n - reach.a0] = Some(kind);
             let mut t = 0.0;
             while t <= band as f64 {
-                let mark = if kind == 1 && t > p.at { 3 } else { kind };
+                let mark = if kind == Ref::Tissue && t > p.at { Ref::None } else { kind };
+                // soft tissue met by any ray wins over what other rays say of the pixel
                 if let Some(c) = cell(a + t * p.dir[0], b + t * p.dir[1])
                     && !mask[at(c)]
-                    && (by_ray[c] == 0 || mark == 1)
+                    && (by_ray[c].is_none() || mark == Ref::Tissue)
                 {
-                    by_ray[c] = mark;
+                    by_ray[c] = Some(mark);
                 }
                 t += 0.5;
             }
         }
     }
-    let on_bone_edge = chamfer(w, h, |k| mask[at(k)] && (lined[k] == 2 || (lined[k] == 0 && 4 * d_bone[k] <= 7 * vox3)));
+    let on_bone_edge = chamfer(w, h, |k| mask[at(k)] && lined[k].map_or(4 * d_bone[k] <= 7 * vox3, |r| r == Ref::Bone));
     let reference = |i: usize| {
         let k = (i / n - reach.b0) * w + i % n - reach.a0;
-        match by_ray[k] {
-            1 => return Ref::Tissue,
-            2 => return Ref::Bone,
-            3 => return Ref::None,
-            _ => {}
+        if let Some(r) = by_ray[k] {
+            return r;
         }
         let x = img.sm[i];
         let tissue = d_lumen[k] >= vox3 && x >= tissue_band.0 && x <= tissue_band.1;
