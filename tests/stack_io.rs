@@ -368,6 +368,42 @@ fn reads_nrrd_like_pynrrd_and_metaimage_like_simpleitk() {
     assert!(e.contains("junk.mhd") && e.contains("MetaImage"), "{e}");
 }
 
+/// DICOM written by pydicom: a series of single-frame CT files (signed 16-bit, rescale slope and
+/// intercept, oblique orientation, file names and instance numbers out of slice order) beside a
+/// smaller second series, and one enhanced multi-frame file with its frames stored in reverse:
+/// the values pydicom reads back rescaled, sorted by position along the slice normal; the
+/// spacing; the index-to-world transform (LPS) from the image plane attributes. Fixtures:
+/// tests/fixtures/make_fixtures.py.
+#[test]
+fn reads_dicom_like_pydicom() {
+    let manifest: serde_json::Value = serde_json::from_str(&std::fs::read_to_string(fixture("manifest.json")).unwrap()).unwrap();
+    let files = manifest["dicom"].as_array().unwrap();
+    assert_eq!(files.len(), 2);
+    for f in files {
+        matches_reference("dicom", f, "spacing", "LPS", 1e-9);
+    }
+    // the larger series is read, and the note says another was left
+    let st = load(&fixture("dicom/series")).unwrap();
+    assert!(st.warnings.iter().any(|w| w.contains("2 series") && w.contains("(2 slices)")), "{:?}", st.warnings);
+    assert_eq!(st.samples.type_name(), "float32");
+    let h = ductline::stack::header(&fixture("dicom/series")).unwrap();
+    assert_eq!((h.dims, h.sample), ([10, 9, 7], "float32"));
+    // bad input: one line naming the file and what is wrong
+    let e = load(&fixture("dicom/refuse_rle.dcm")).unwrap_err().to_string();
+    assert!(e.contains("refuse_rle.dcm") && e.contains("1.2.840.10008.1.2.5") && e.contains("not supported") && !e.contains('\n'), "{e}");
+    let dir = tempfile::tempdir().unwrap();
+    let one = std::fs::read(fixture("dicom/series/IMG003.dcm")).unwrap();
+    std::fs::write(dir.path().join("a.dcm"), &one).unwrap();
+    std::fs::write(dir.path().join("b.dcm"), &one).unwrap();
+    let e = load(dir.path()).unwrap_err().to_string();
+    assert!(e.contains("same position") && !e.contains('\n'), "{e}");
+    let cut = dir.path().join("cut");
+    std::fs::create_dir(&cut).unwrap();
+    std::fs::write(cut.join("x.dcm"), &one[..one.len() - 40]).unwrap();
+    let e = load(&cut).unwrap_err().to_string();
+    assert!(e.contains("x.dcm") && !e.contains('\n'), "{e}");
+}
+
 /// `--landmarks-frame world`: a point the reference library's affine puts at index (i, j, k)
 /// comes back to the stack-frame point (i·vx, j·vy, k·vz) through `World::to_stack`.
 fn world_points_come_home(name: &str, affine: &serde_json::Value, world: &stack::World, vox: [f64; 3]) {

@@ -315,7 +315,9 @@ impl DuctApp {
                 d = d.set_directory(s);
             }
             match what {
-                Pending::Open => d.add_filter("stack or project", &["tif", "tiff", "nii", "gz", "nrrd", "nhdr", "mha", "mhd", "json", "png"]).pick_file(),
+                Pending::Open => {
+                    d.add_filter("stack or project", &["tif", "tiff", "nii", "gz", "nrrd", "nhdr", "mha", "mhd", "dcm", "json", "png"]).pick_file()
+                }
                 Pending::ImportLandmarks(_) => d.add_filter("landmarks", &["csv"]).pick_file(),
                 Pending::ExportLandmarks => d.set_file_name("landmarks.csv").save_file(),
                 Pending::SaveAs => d.set_file_name("specimen.ductline.json").save_file(),

@@ -3,6 +3,7 @@
 //!
 //! Stack frame (DESIGN.md): voxel (column i, row j, slice k) has its centre at (i·vx, j·vy, k·vz) mm.
 
+mod dicom;
 mod folder;
 mod nifti;
 mod nrrd;
@@ -411,7 +412,8 @@ impl Stack {
     }
 }
 
-/// Loads a multi-page TIFF, or a folder of single-page TIFF/PNG slices in natural order.
+/// Loads a stack: a multi-page TIFF, a folder of single-page TIFF/PNG slices in natural order, a
+/// NIfTI, NRRD or MetaImage volume, or DICOM (a folder holding a series, or one multi-frame file).
 pub fn load(path: &Path, opts: &LoadOptions) -> Result<Stack> {
     load_with_progress(path, opts, &crate::progress::Progress::new())
 }
@@ -423,11 +425,13 @@ pub fn load_with_progress(path: &Path, opts: &LoadOptions, progress: &crate::pro
     }
     let meta = std::fs::metadata(path).map_err(|e| Error::io(path, e))?;
     let mut stack = if meta.is_dir() {
-        folder::load(path, opts, progress)?
+        if dicom::claims_dir(path) { dicom::load(path, opts, progress)? } else { folder::load(path, opts, progress)? }
     } else if nifti::claims(path) {
         nifti::load(path, opts, progress)?
     } else if nrrd::claims(path) {
         nrrd::load(path, opts, progress)?
+    } else if dicom::claims(path) {
+        dicom::load(path, opts, progress)?
     } else {
         tiff::load(path, opts, progress)?
     };
@@ -576,11 +580,13 @@ pub(crate) fn luma(r: f32, g: f32, b: f32) -> f32 {
 pub fn header(path: &Path) -> Result<Header> {
     let meta = std::fs::metadata(path).map_err(|e| Error::io(path, e))?;
     if meta.is_dir() {
-        folder::header(path)
+        if dicom::claims_dir(path) { dicom::header(path) } else { folder::header(path) }
     } else if nifti::claims(path) {
         nifti::header(path)
     } else if nrrd::claims(path) {
         nrrd::header(path)
+    } else if dicom::claims(path) {
+        dicom::header(path)
     } else {
         tiff::header(path)
     }
