@@ -35,6 +35,9 @@ pub struct Doc {
     pub overview: Option<Arc<Stack>>,
     /// Size and fingerprint of the stack on disk, taken once when it was loaded (for saves).
     pub fingerprint: Option<(u64, String)>,
+    /// The folder unsaved work is kept in (the user's data folder; never beside the stack, which
+    /// may be read-only or the bundled sample in the install).
+    pub autosave_dir: PathBuf,
 }
 
 impl Doc {
@@ -58,6 +61,7 @@ impl Doc {
             window,
             user_voxel: false,
             overview: None,
+            autosave_dir: default_autosave_dir(),
             fingerprint: None,
         };
         d.refit();
@@ -127,20 +131,28 @@ impl Doc {
         Some(b)
     }
 
-    /// Where unsaved work is kept every 30 s: beside the project, or beside the stack.
+    /// Where unsaved work is kept every 30 s (see [`autosave_path`]).
     pub fn autosave_path(&self) -> PathBuf {
-        autosave_path(self.project_path.as_deref(), &self.stack_path)
+        autosave_path(&self.autosave_dir, self.project_path.as_deref(), &self.stack_path)
     }
 }
 
-pub fn autosave_path(project: Option<&Path>, stack: &Path) -> PathBuf {
-    match project {
-        Some(p) => p.with_extension("autosave.json"),
-        None => {
-            let stem = stack.file_stem().map(|s| s.to_string_lossy().to_string()).unwrap_or_else(|| "stack".into());
-            stack.parent().unwrap_or(Path::new(".")).join(format!("{stem}.ductline-autosave.json"))
-        }
-    }
+/// The per-user folder for autosaves: the platform's data folder (on Linux
+/// `$XDG_DATA_HOME/ductline/autosave`, else `~/.local/share/ductline/autosave`), else the
+/// temporary folder.
+pub fn default_autosave_dir() -> PathBuf {
+    directories::ProjectDirs::from("", "", "ductline").map(|d| d.data_dir().join("autosave")).unwrap_or_else(|| std::env::temp_dir().join("ductline-autosave"))
+}
+
+/// The autosave file of a project (or of a stack opened without one) in `dir`: its name and a
+/// hash of its absolute path, so two specimens of the same name never share one.
+pub fn autosave_path(dir: &Path, project: Option<&Path>, stack: &Path) -> PathBuf {
+    let of = project.unwrap_or(stack);
+    let abs = std::path::absolute(of).unwrap_or_else(|_| of.to_path_buf());
+    // FNV-1a, 64 bits (a stable hash: the name must be the same in the next session)
+    let h = abs.to_string_lossy().bytes().fold(0xcbf2_9ce4_8422_2325u64, |h, b| (h ^ b as u64).wrapping_mul(0x0100_0000_01b3));
+    let stem = of.file_name().map(|s| s.to_string_lossy().replace(".ductline.json", "").replace(".json", "")).unwrap_or_else(|| "stack".into());
+    dir.join(format!("{stem}-{h:016x}.autosave.json"))
 }
 
 /// Value range and automatic window of a stack (reads it all: call it off the UI thread).

@@ -45,7 +45,14 @@ impl Inspector {
                 ("ST area", f(row.st.area, "mm²")),
                 ("partition width", f(row.partition_width_mm, "mm")),
                 ("wall", f(row.wall_mm, "mm")),
-                ("levels lumen / soft tissue / bone", format!("{:.0} / {:.0} / {:.0}", row.levels.lumen, row.levels.tissue, row.levels.bone)),
+                ("levels lumen / soft tissue / bone", {
+                    let l = row.levels;
+                    if [l.lumen, l.tissue, l.bone].iter().all(|x| x.is_finite()) {
+                        format!("{:.0} / {:.0} / {:.0}", l.lumen, l.tissue, l.bone)
+                    } else {
+                        "—".into()
+                    }
+                }),
                 ("flags", if row.flags.is_empty() { "sound".into() } else { row.flag_words() }),
             ] {
                 ui.label(k);
@@ -67,14 +74,19 @@ impl Inspector {
         });
         ui.horizontal(|ui| {
             let mut fixed = ov.levels.is_some();
-            let mut lv = ov.levels.unwrap_or([row.levels.lumen, row.levels.bone]);
+            // a section measured without levels (excluded, or too little contrast) starts from
+            // the stack's value range
+            let found = [row.levels.lumen, row.levels.bone];
+            let start = if found.iter().all(|x| x.is_finite()) { found } else { [doc.range.0, doc.range.1] };
+            let mut lv = ov.levels.unwrap_or(start);
             let c = ui.checkbox(&mut fixed, "fixed levels").on_hover_text("Use these fluid and bone grey levels for this section instead of finding them");
             let l = ui.label("fluid");
             let a = ui.add_enabled(fixed, egui::DragValue::new(&mut lv[0]).speed(10.0)).labelled_by(l.id).on_hover_text("Grey level of fluid in this section");
             let l = ui.label("bone");
             let b = ui.add_enabled(fixed, egui::DragValue::new(&mut lv[1]).speed(10.0)).labelled_by(l.id).on_hover_text("Grey level of bone in this section");
-            if c.changed() || a.changed() || b.changed() {
-                cmds.push(Cmd::SetOverride(Override { levels: fixed.then_some(lv), ..ov.clone() }));
+            let new = fixed.then_some(lv);
+            if (c.changed() || a.changed() || b.changed()) && new != ov.levels && lv.iter().all(|x| x.is_finite()) {
+                cmds.push(Cmd::SetOverride(Override { levels: new, ..ov.clone() }));
             }
         });
         // the section image

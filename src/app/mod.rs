@@ -63,6 +63,15 @@ pub mod palette {
 pub enum Cmd {
     Open(PathBuf),
     OpenDialog,
+    /// Ask for a slice folder or DICOM series folder.
+    OpenFolderDialog,
+    /// Quit, asking first when there is unsaved work.
+    Quit,
+    /// Quit now: after a save (only if it left nothing unsaved), or dropping the unsaved work
+    /// (`discard`: its autosave too).
+    QuitNow {
+        discard: bool,
+    },
     /// Ask for a landmark CSV; `true`: its points are in the file's world frame.
     ImportLandmarksDialog(bool),
     /// Import a landmark CSV; `true`: its points are in the file's world frame.
@@ -104,8 +113,9 @@ pub struct Loaded {
 }
 
 #[derive(Clone, Copy, Debug)]
-enum Pending {
+pub enum Pending {
     Open,
+    OpenFolder,
     ImportLandmarks(bool),
     ExportLandmarks,
     SaveAs,
@@ -123,7 +133,18 @@ pub struct DuctApp {
     load: Option<Job<Result<Loaded, String>>>,
     run: Option<Job<Result<Outcome, String>>>,
     overview: Option<Job<Stack>>,
-    dialog: Option<(Pending, Receiver<Option<PathBuf>>)>,
+    /// The system file dialog, running on its own thread, and when it was opened.
+    dialog: Option<(Pending, Receiver<Option<PathBuf>>, Instant)>,
+    /// ductline's own file dialog: used when the system one is unavailable or fails.
+    pub in_app: Option<(Pending, egui_file::FileDialog)>,
+    /// Try the system file dialog first (it needs a desktop portal on Linux).
+    pub native_dialogs: bool,
+    /// Asked to quit with unsaved work: the prompt is showing.
+    pub confirm_quit: bool,
+    /// Quitting: the window closes this frame.
+    pub quit: bool,
+    /// The window title last sent: "FILE — ductline", with * after FILE while unsaved.
+    pub title: String,
     pub status: String,
     show_help: bool,
     show_about: bool,
@@ -132,6 +153,8 @@ pub struct DuctApp {
     recent: Vec<PathBuf>,
     /// Where the recent-files list is kept (None: not kept, as in tests).
     recent_file: Option<PathBuf>,
+    /// Where autosaves go (the user's data folder; tests give a temporary one).
+    pub autosave_dir: PathBuf,
     /// Binning (1, 2 or 4) and crop box (`I0:I1,J0:J1,K0:K1`, empty = whole) for the next open.
     pub load_bin: usize,
     pub load_crop: String,
@@ -180,6 +203,12 @@ impl DuctApp {
             run: None,
             overview: None,
             dialog: None,
+            in_app: None,
+            // the system dialog talks to the desktop portal over the session bus
+            native_dialogs: cfg!(not(target_os = "linux")) || std::env::var_os("DBUS_SESSION_BUS_ADDRESS").is_some(),
+            confirm_quit: false,
+            quit: false,
+            title: String::new(),
             status: "Ready. Open a stack, slice folder or project (ctrl+O, or drop it here).".into(),
             show_help: false,
             show_about: false,
@@ -187,6 +216,7 @@ impl DuctApp {
             last_autosave: Instant::now(),
             recent,
             recent_file,
+            autosave_dir: doc::default_autosave_dir(),
             load_bin: 1,
             load_crop: String::new(),
             show_load_opts: false,
@@ -238,20 +268,21 @@ impl DuctApp {
                 doc.overview = Some(std::sync::Arc::new(ov));
             }
         }
-        if let Some((what, rx)) = &self.dialog
+        if let Some((what, rx, opened)) = &self.dialog
             && let Ok(res) = rx.try_recv()
         {
-            let what = *what;
+            let (what, quick) = (*what, opened.elapsed() < Duration::from_millis(400));
             self.dialog = None;
-            if let Some(p) = res {
-                self.apply(match what {
-                    Pending::Open => Cmd::Open(p),
-                    Pending::ImportLandmarks(world) => Cmd::ImportLandmarks(p, world),
-                    Pending::ExportLandmarks => Cmd::ExportLandmarks(p),
-                    Pending::SaveAs => Cmd::SaveAs(p),
-                    Pending::ExportTable => Cmd::ExportTable(p),
-                    Pending::ExportStl => Cmd::ExportStl(p),
-                });
+            match res {
+                Some(p) => self.apply(chosen(what, p)),
+                // back at once with nothing: no dialog service answered (a person takes longer
+                // to cancel); ductline's own dialog from now on
+                None if quick => {
+                    self.native_dialogs = false;
+                    self.status = "The system file dialog is not available here (no desktop portal): using ductline's own.".into();
+                    self.ask(what);
+                }
+                None => {}
             }
         }
     }
@@ -259,6 +290,7 @@ impl DuctApp {
     fn loaded(&mut self, l: Loaded) {
         let mut doc = Doc::new(l.stack, l.stack_path.clone(), l.looks);
         doc.fingerprint = l.fingerprint;
+        doc.autosave_dir = self.autosave_dir.clone();
         let mut msg = format!("opened {}", l.stack_path.display());
         if let Some(w) = l.changed {
             msg = format!("warning: {w}");
@@ -305,10 +337,40 @@ impl DuctApp {
     }
 
     fn ask(&mut self, what: Pending) {
-        if self.dialog.is_some() {
+        if self.dialog.is_some() || self.in_app.is_some() {
             return;
         }
         let start = self.doc.as_ref().and_then(|d| d.project_path.clone().or(Some(d.stack_path.clone()))).and_then(|p| p.parent().map(Path::to_path_buf));
+        let name = match what {
+            Pending::ExportLandmarks => "landmarks.csv",
+            Pending::SaveAs => "specimen.ductline.json",
+            Pending::ExportTable => "geometry.csv",
+            _ => "",
+        };
+        if !self.native_dialogs {
+            use egui_file::FileDialog as F;
+            let mut d = match what {
+                Pending::Open | Pending::ImportLandmarks(_) => F::open_file(),
+                Pending::OpenFolder | Pending::ExportStl => F::select_folder(),
+                Pending::ExportLandmarks | Pending::SaveAs | Pending::ExportTable => F::save_file().default_filename(name),
+            };
+            if let Some(s) = start {
+                d = d.initial_path(s);
+            }
+            let title = match what {
+                Pending::Open => "Open a stack, volume or project",
+                Pending::OpenFolder => "Open a slice folder or DICOM series",
+                Pending::ImportLandmarks(_) => "Import landmarks (CSV)",
+                Pending::ExportLandmarks => "Export landmarks (CSV)",
+                Pending::SaveAs => "Save the project as",
+                Pending::ExportTable => "Export the geometry table (.csv or .json)",
+                Pending::ExportStl => "Folder for the lumen surfaces (STL)",
+            };
+            let mut d = d.title(title).id(egui::Id::unique("in-app-file-dialog"));
+            d.open();
+            self.in_app = Some((what, d));
+            return;
+        }
         let rx = jobs::dialog(move || {
             let mut d = rfd::FileDialog::new();
             if let Some(s) = start {
@@ -318,14 +380,29 @@ impl DuctApp {
                 Pending::Open => {
                     d.add_filter("stack or project", &["tif", "tiff", "nii", "gz", "nrrd", "nhdr", "mha", "mhd", "dcm", "json", "png"]).pick_file()
                 }
+                Pending::OpenFolder | Pending::ExportStl => d.pick_folder(),
                 Pending::ImportLandmarks(_) => d.add_filter("landmarks", &["csv"]).pick_file(),
-                Pending::ExportLandmarks => d.set_file_name("landmarks.csv").save_file(),
-                Pending::SaveAs => d.set_file_name("specimen.ductline.json").save_file(),
-                Pending::ExportTable => d.set_file_name("geometry.csv").add_filter("CSV or JSON table", &["csv", "json"]).save_file(),
-                Pending::ExportStl => d.pick_folder(),
+                Pending::ExportLandmarks | Pending::SaveAs => d.set_file_name(name).save_file(),
+                Pending::ExportTable => d.set_file_name(name).add_filter("CSV or JSON table", &["csv", "json"]).save_file(),
             }
         });
-        self.dialog = Some((what, rx));
+        self.dialog = Some((what, rx, Instant::now()));
+    }
+
+    /// ductline's own file dialog, while one is open: what it gives becomes a command.
+    fn in_app_dialog_ui(&mut self, ctx: &egui::Context) -> Option<Cmd> {
+        let (what, d) = self.in_app.as_mut()?;
+        d.show(ctx);
+        let what = *what;
+        if d.selected() {
+            let p = d.path().map(Path::to_path_buf);
+            self.in_app = None;
+            return p.map(|p| chosen(what, p));
+        }
+        if matches!(d.state(), egui_file::State::Cancelled | egui_file::State::Closed) {
+            self.in_app = None;
+        }
+        None
     }
 
     /// The one place that changes the document.
@@ -349,6 +426,30 @@ impl DuctApp {
                 self.load = Some(Job::spawn("loading", move |prog| load(&p, opts, prog)));
             }
             Cmd::OpenDialog => self.ask(Pending::Open),
+            Cmd::OpenFolderDialog => self.ask(Pending::OpenFolder),
+            Cmd::Quit => {
+                if self.doc.as_ref().is_some_and(|d| d.dirty) {
+                    self.confirm_quit = true;
+                } else {
+                    self.quit = true;
+                }
+            }
+            Cmd::QuitNow { discard } => {
+                self.confirm_quit = false;
+                match &self.doc {
+                    Some(d) if d.dirty && !discard => {} // the save failed: its error is in the status bar
+                    Some(d) => {
+                        if discard {
+                            let _ = std::fs::remove_file(d.autosave_path());
+                            if let Some(d) = self.doc.as_mut() {
+                                d.dirty = false;
+                            }
+                        }
+                        self.quit = true;
+                    }
+                    None => self.quit = true,
+                }
+            }
             Cmd::ImportLandmarksDialog(world) => self.ask(Pending::ImportLandmarks(world)),
             Cmd::ExportLandmarksDialog => self.ask(Pending::ExportLandmarks),
             Cmd::SaveAsDialog => self.ask(Pending::SaveAs),
@@ -458,6 +559,7 @@ impl DuctApp {
                 self.selected_row = i;
                 Ok(String::new())
             }
+            Cmd::SetOverride(o) if doc.overrides.contains(&o) => Ok(String::new()),
             Cmd::SetOverride(o) => {
                 doc.overrides.retain(|x| (x.s_mm - o.s_mm).abs() > 1e-9);
                 doc.overrides.push(o);
@@ -517,6 +619,9 @@ impl DuctApp {
             if i.consume_key(Modifiers::COMMAND, Key::O) {
                 cmds.push(Cmd::OpenDialog);
             }
+            if i.consume_key(Modifiers::COMMAND, Key::Q) {
+                cmds.push(Cmd::Quit);
+            }
             if i.consume_key(Modifiers::NONE, Key::F1) {
                 self.show_help = !self.show_help;
             }
@@ -544,6 +649,7 @@ impl DuctApp {
         }
         self.last_autosave = Instant::now();
         let path = doc.autosave_path();
+        let _ = std::fs::create_dir_all(&doc.autosave_dir);
         match doc.to_project(&path).and_then(|p| p.save(&path)) {
             Ok(()) => {}
             Err(e) => self.status = format!("autosave failed: {e}"),
@@ -556,6 +662,9 @@ impl DuctApp {
             ui.menu_button("Specimen", |ui| {
                 if ui.button("Open stack or project…  (ctrl+O)").clicked() {
                     cmds.push(Cmd::OpenDialog);
+                }
+                if ui.button("Open slice folder or DICOM series…").clicked() {
+                    cmds.push(Cmd::OpenFolderDialog);
                 }
                 ui.menu_button("Recent", |ui| {
                     for p in self.recent.clone() {
@@ -571,14 +680,16 @@ impl DuctApp {
                     self.show_load_opts = true;
                 }
                 ui.separator();
-                if ui.button("Save project  (ctrl+S)").clicked() {
+                let open = self.doc.is_some();
+                let measured = self.doc.as_ref().is_some_and(|d| d.outcome.is_some());
+                if ui.add_enabled(open, egui::Button::new("Save project  (ctrl+S)")).clicked() {
                     cmds.push(Cmd::Save);
                 }
-                if ui.button("Save project as…").clicked() {
+                if ui.add_enabled(open, egui::Button::new("Save project as…")).clicked() {
                     cmds.push(Cmd::SaveAsDialog);
                 }
                 ui.separator();
-                if ui.button("Import landmarks (CSV)…").clicked() {
+                if ui.add_enabled(open, egui::Button::new("Import landmarks (CSV)…")).clicked() {
                     cmds.push(Cmd::ImportLandmarksDialog(false));
                 }
                 // only a volume file with an index-to-world transform has a world frame
@@ -591,14 +702,19 @@ impl DuctApp {
                 {
                     cmds.push(Cmd::ImportLandmarksDialog(true));
                 }
-                if ui.button("Export landmarks (CSV)…").clicked() {
+                if ui.add_enabled(open, egui::Button::new("Export landmarks (CSV)…")).clicked() {
                     cmds.push(Cmd::ExportLandmarksDialog);
                 }
-                if ui.button("Export geometry table (CSV/JSON)…").clicked() {
+                let not_yet = "measure first (Fit & measure)";
+                if ui.add_enabled(measured, egui::Button::new("Export geometry table (CSV/JSON)…")).on_disabled_hover_text(not_yet).clicked() {
                     cmds.push(Cmd::ExportTableDialog);
                 }
-                if ui.button("Export lumen surfaces (STL)…").clicked() {
+                if ui.add_enabled(measured, egui::Button::new("Export lumen surfaces (STL)…")).on_disabled_hover_text(not_yet).clicked() {
                     cmds.push(Cmd::ExportStlDialog);
+                }
+                ui.separator();
+                if ui.button("Quit  (ctrl+Q)").clicked() {
+                    cmds.push(Cmd::Quit);
                 }
             });
             ui.menu_button("Edit", |ui| {
@@ -691,6 +807,29 @@ impl DuctApp {
             ui.small("They apply to every open until changed.");
         });
         (self.load_bin, self.load_crop) = (bin, crop);
+        if self.confirm_quit {
+            let named = self.doc.as_ref().map(|d| (d.project_path.is_some(), d.project_path.clone().unwrap_or_else(|| d.stack_path.clone())));
+            egui::Modal::new(egui::Id::unique("confirm-quit")).show(ctx, |ui| {
+                let (has_project, path) = named.clone().unwrap_or((false, PathBuf::new()));
+                ui.label(format!("{} has unsaved changes.", path.file_name().map(|n| n.to_string_lossy().to_string()).unwrap_or_default()));
+                ui.horizontal(|ui| {
+                    if has_project && ui.button("Save and quit").clicked() {
+                        cmds.push(Cmd::Save);
+                        cmds.push(Cmd::QuitNow { discard: false });
+                    }
+                    if !has_project && ui.button("Save as…").clicked() {
+                        self.confirm_quit = false;
+                        cmds.push(Cmd::SaveAsDialog);
+                    }
+                    if ui.button("Quit without saving").clicked() {
+                        cmds.push(Cmd::QuitNow { discard: true });
+                    }
+                    if ui.button("Cancel").clicked() {
+                        self.confirm_quit = false;
+                    }
+                });
+            });
+        }
         if let Some(p) = &self.recovery {
             let text = format!("Unsaved work from an earlier session was kept in\n{}\nRecover it?", p.display());
             egui::Modal::new(egui::Id::unique("recover")).show(ctx, |ui| {
@@ -712,6 +851,9 @@ impl DuctApp {
     pub fn frame_ui(&mut self, ui: &mut egui::Ui) {
         self.poll();
         let ctx = ui.ctx().clone();
+        install_fonts(&ctx);
+        // a click that closes a menu must not also act on what lies under it
+        let popup_was_open = egui::Popup::is_any_open(&ctx);
         let mut cmds = self.input(&ctx);
         egui::Panel::top("menu").show(ui, |ui| cmds.extend(self.menu_ui(ui)));
         egui::Panel::bottom("status").show(ui, |ui| self.status_ui(ui));
@@ -735,6 +877,7 @@ impl DuctApp {
                 let rows = doc.outcome.as_ref().map(|o| o.rows.as_slice()).unwrap_or(&[]);
                 cmds.extend(profile::profile_ui(ui, &mut self.profile, rows, self.selected_row));
             });
+            view.popup_was_open = popup_was_open;
             egui::CentralPanel::default().show(ui, |ui| cmds.extend(view.tracing_ui(ui, doc)));
         } else {
             egui::CentralPanel::default().show(ui, |ui| {
@@ -757,6 +900,7 @@ impl DuctApp {
             });
         }
         cmds.extend(self.windows_ui(&ctx));
+        cmds.extend(self.in_app_dialog_ui(&ctx));
         for c in cmds {
             let edits = matches!(c, Cmd::Edit(_) | Cmd::Undo | Cmd::Redo | Cmd::Refit | Cmd::ImportLandmarks(..));
             self.apply(c);
@@ -767,9 +911,28 @@ impl DuctApp {
         }
         if ctx.input(|i| i.viewport().close_requested()) {
             self.autosave(true);
+            if !self.quit && self.doc.as_ref().is_some_and(|d| d.dirty) {
+                ctx.send_viewport_cmd(egui::ViewportCommand::CancelClose);
+                self.confirm_quit = true;
+            }
+        }
+        if self.quit {
+            ctx.send_viewport_cmd(egui::ViewportCommand::Close);
         }
         self.autosave(false);
-        if self.busy() || self.dialog.is_some() {
+        let title = match &self.doc {
+            Some(d) => {
+                let f = d.project_path.as_ref().unwrap_or(&d.stack_path);
+                let name = f.file_name().map(|n| n.to_string_lossy().to_string()).unwrap_or_else(|| f.display().to_string());
+                format!("{name}{} — ductline", if d.dirty { "*" } else { "" })
+            }
+            None => "ductline".into(),
+        };
+        if title != self.title {
+            ctx.send_viewport_cmd(egui::ViewportCommand::Title(title.clone()));
+            self.title = title;
+        }
+        if self.busy() || self.dialog.is_some() || self.in_app.is_some() {
             ctx.request_repaint_after(Duration::from_millis(100));
         }
     }
@@ -823,4 +986,29 @@ fn export_table(doc: &Doc, p: &Path) -> Result<String, String> {
     };
     project::write_atomic(p, &bytes).map_err(|e| e.to_string())?;
     Ok(format!("wrote {}", p.display()))
+}
+
+/// The command for a path a file dialog gave.
+fn chosen(what: Pending, p: PathBuf) -> Cmd {
+    match what {
+        Pending::Open | Pending::OpenFolder => Cmd::Open(p),
+        Pending::ImportLandmarks(world) => Cmd::ImportLandmarks(p, world),
+        Pending::ExportLandmarks => Cmd::ExportLandmarks(p),
+        Pending::SaveAs => Cmd::SaveAs(p),
+        Pending::ExportTable => Cmd::ExportTable(p),
+        Pending::ExportStl => Cmd::ExportStl(p),
+    }
+}
+
+/// Adds symbol fonts as the last fallbacks of both families (once; later calls find them
+/// there): the file dialog draws folder, file and arrow symbols the default font lacks.
+fn install_fonts(ctx: &egui::Context) {
+    use egui::epaint::text::{FontInsert, FontPriority, InsertFontFamily};
+    for (name, data) in [("ductline-symbols", emoji_fonts::EMOJI_ICON), ("ductline-emoji", emoji_fonts::NOTO_EMOJI_REGULAR)] {
+        let families = [egui::FontFamily::Proportional, egui::FontFamily::Monospace]
+            .into_iter()
+            .map(|family| InsertFontFamily { family, priority: FontPriority::Lowest })
+            .collect();
+        ctx.add_font(FontInsert::new(name, egui::FontData::from_static(data), families));
+    }
 }

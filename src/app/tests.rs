@@ -9,7 +9,16 @@ use std::path::PathBuf;
 use std::time::Duration;
 
 fn harness(open: Option<PathBuf>) -> Harness<'static, DuctApp> {
-    Harness::builder().with_size(egui::vec2(1500.0, 950.0)).build_ui_state(|ui, app: &mut DuctApp| app.frame_ui(ui), DuctApp::new(open, None))
+    harness_with(open, tempfile::tempdir().unwrap().keep(), egui::vec2(1500.0, 950.0))
+}
+
+/// The app at a window size, autosaving into `autosave_dir` (never the user's own data folder),
+/// with the in-app file dialog (tests have no desktop portal).
+fn harness_with(open: Option<PathBuf>, autosave_dir: PathBuf, size: egui::Vec2) -> Harness<'static, DuctApp> {
+    let mut app = DuctApp::new(open, None);
+    app.autosave_dir = autosave_dir;
+    app.native_dialogs = false;
+    Harness::builder().with_size(size).build_ui_state(|ui, app: &mut DuctApp| app.frame_ui(ui), app)
 }
 
 /// Steps the UI until `cond` holds (background work finishes on its own threads).
@@ -120,7 +129,8 @@ fn autosave_and_recovery() {
         std::fs::copy(src.parent().unwrap().join(f), dir.path().join(f)).unwrap();
     }
     let prj = dir.path().join("phantom.ductline.json");
-    let mut h = harness(Some(prj.clone()));
+    let saves = dir.path().join("autosaves");
+    let mut h = harness_with(Some(prj.clone()), saves.clone(), egui::vec2(1500.0, 950.0));
     wait(&mut h, "the project", |a| a.doc.is_some());
     assert!(h.state().recovery.is_none());
     let n0 = count(&h);
@@ -134,8 +144,9 @@ fn autosave_and_recovery() {
     h.step();
     assert!(auto.exists(), "autosaved after 30 s");
     drop(h);
+    assert!(auto.starts_with(&saves), "autosaves go to the data folder, not beside the project: {}", auto.display());
     // a new session on the same project offers the recovery
-    let mut h = harness(Some(prj.clone()));
+    let mut h = harness_with(Some(prj.clone()), saves.clone(), egui::vec2(1500.0, 950.0));
     wait(&mut h, "the project", |a| a.doc.is_some());
     assert_eq!(count(&h), n0, "the saved project is unchanged");
     assert!(h.state().recovery.is_some());
@@ -236,4 +247,187 @@ fn world_frame_landmark_import() {
     h.step();
     h.step();
     assert!(h.get_by_label_contains("Import landmarks in the file's world frame").accesskit_node().is_disabled());
+}
+
+/// A copy of the bundled sample (stack, and project when `project`) in a fresh folder.
+fn sample_copy(project: bool) -> (tempfile::TempDir, PathBuf) {
+    let dir = tempfile::tempdir().unwrap();
+    let src = sample_path();
+    std::fs::copy(src.parent().unwrap().join("phantom.tif"), dir.path().join("phantom.tif")).unwrap();
+    if project {
+        std::fs::copy(&src, dir.path().join("phantom.ductline.json")).unwrap();
+    }
+    let open = dir.path().join(if project { "phantom.ductline.json" } else { "phantom.tif" });
+    (dir, open)
+}
+
+/// Bug: with no desktop portal the system dialog returned nothing and nothing said why, so a
+/// project started from a TIFF could not be saved. Now the app falls back to its own dialog
+/// (saying so), and a typed file name is saved to.
+#[test]
+fn fallback_dialog_saves_a_project_at_a_typed_name() {
+    let (dir, tif) = sample_copy(false);
+    let mut h = harness(Some(tif));
+    wait(&mut h, "the stack", |a| a.doc.is_some());
+    // nothing measured yet: the exports are offered disabled
+    h.get_by_role_and_label(Role::Button, "Specimen").click();
+    h.step();
+    h.step();
+    assert!(h.get_by_label_contains("Export geometry table").accesskit_node().is_disabled());
+    assert!(h.get_by_label_contains("Export lumen surfaces").accesskit_node().is_disabled());
+    h.get_by_label_contains("Save project as").click();
+    h.step();
+    h.step();
+    assert!(h.state().in_app.is_some(), "ductline's own dialog opened");
+    h.step();
+    // the file-name field, as the dialog fills it in
+    let name = h.get_all_by_role(Role::TextInput).find(|n| n.value().as_deref() == Some("specimen.ductline.json")).expect("the file-name field");
+    name.set_text_value_accesskit("typed.ductline.json");
+    h.step();
+    h.get_by_role_and_label(Role::Button, "Save").click();
+    h.step();
+    h.step();
+    let saved = dir.path().join("typed.ductline.json");
+    assert!(saved.exists(), "{}: {}", saved.display(), h.state().status);
+    assert_eq!(h.state().doc.as_ref().unwrap().project_path.as_deref(), Some(saved.as_path()));
+    assert_eq!(h.state().title, "typed.ductline.json — ductline");
+}
+
+/// The system dialog that comes back empty at once (no portal service answered) hands over to
+/// ductline's own, with a visible message.
+#[test]
+fn no_portal_falls_back_with_a_message() {
+    let (_dir, tif) = sample_copy(false);
+    let mut h = harness(Some(tif));
+    wait(&mut h, "the stack", |a| a.doc.is_some());
+    // a system dialog that cannot open: the portal's bus is pointed at nothing
+    // SAFETY: tests in this binary do not read this variable concurrently
+    unsafe { std::env::set_var("DBUS_SESSION_BUS_ADDRESS", "unix:path=/nonexistent/ductline-test-bus") };
+    h.state_mut().native_dialogs = true;
+    h.state_mut().apply(Cmd::SaveAsDialog);
+    wait(&mut h, "the fallback dialog", |a| a.in_app.is_some());
+    assert!(h.state().status.contains("using ductline's own"), "{}", h.state().status);
+    h.get_by_label_contains(&h.state().status.clone());
+}
+
+/// Bug: selecting an excluded section showed levels "NaN / NaN", the fixed-level fields "inf",
+/// and set the override again every frame, so "results are older" never cleared.
+#[test]
+fn an_excluded_section_settles() {
+    let mut h = harness(Some(sample_path()));
+    wait(&mut h, "the sample", |a| a.doc.is_some());
+    let s0 = {
+        h.state_mut().apply(Cmd::Measure);
+        wait(&mut h, "the measurement", |a| !a.busy());
+        h.state().doc.as_ref().unwrap().outcome.as_ref().unwrap().rows[3].s_mm
+    };
+    h.state_mut().apply(Cmd::SetOverride(ductline::measure::Override { s_mm: s0, exclude: true, ..Default::default() }));
+    h.state_mut().apply(Cmd::Measure);
+    wait(&mut h, "the second measurement", |a| !a.busy());
+    h.state_mut().apply(Cmd::SelectRow(Some(3)));
+    for _ in 0..5 {
+        h.step();
+    }
+    let doc = h.state().doc.as_ref().unwrap();
+    assert!(!doc.stale, "selecting the section changed nothing: {}", h.state().status);
+    assert_eq!(doc.overrides.len(), 1);
+    assert!(!h.state().status.contains("override set"), "{}", h.state().status);
+    assert!(h.query_by_label_contains("NaN").is_none() && h.query_by_label_contains("inf").is_none());
+    h.get_by_label("excluded");
+}
+
+/// Bug: the click that closed an open menu also placed a landmark.
+#[test]
+fn a_click_that_closes_a_menu_places_nothing() {
+    let mut h = harness(Some(sample_path()));
+    wait(&mut h, "the sample", |a| a.doc.is_some());
+    let n0 = count(&h);
+    h.get_by_role_and_label(Role::Button, "Specimen").click();
+    h.step();
+    h.step();
+    assert!(h.query_by_label_contains("Save project as").is_some(), "the menu is open");
+    h.get_by_label("Tracing view").click();
+    h.step();
+    h.step();
+    assert_eq!(count(&h), n0, "the click only closed the menu");
+    assert!(h.query_by_label_contains("Save project as").is_none(), "the menu closed");
+    h.get_by_label("Tracing view").click();
+    h.step();
+    h.step();
+    assert_eq!(count(&h), n0 + 1, "the next click places");
+}
+
+/// Bug: one wheel notch moved 2–4 slices (the smoothed scroll spread over frames). One notch,
+/// in lines or in points, is one slice.
+#[test]
+fn one_wheel_notch_one_slice() {
+    let mut h = harness(Some(sample_path()));
+    wait(&mut h, "the sample", |a| a.doc.is_some());
+    h.get_by_label("Tracing view").hover();
+    h.step();
+    let k0 = h.state().view.as_ref().unwrap().index[2];
+    let wheel = |unit, dy| egui::Event::MouseWheel {
+        unit,
+        delta: egui::vec2(0.0, dy),
+        phase: egui::TouchPhase::Move,
+        source: egui::MouseWheelSource::Wheel,
+        modifiers: egui::Modifiers::NONE,
+    };
+    h.event(wheel(egui::MouseWheelUnit::Line, 1.0));
+    for _ in 0..10 {
+        h.step();
+    }
+    assert_eq!(h.state().view.as_ref().unwrap().index[2], k0 + 1);
+    h.event(wheel(egui::MouseWheelUnit::Point, -50.0));
+    for _ in 0..10 {
+        h.step();
+    }
+    assert_eq!(h.state().view.as_ref().unwrap().index[2], k0);
+}
+
+/// Bug: the bundled sample autosaved into its own folder in the source tree. Autosaves go to
+/// the data folder given to the app (the user's, outside tests).
+#[test]
+fn the_sample_autosaves_outside_its_folder() {
+    let saves = tempfile::tempdir().unwrap();
+    let mut h = harness_with(Some(sample_path()), saves.path().to_path_buf(), egui::vec2(1500.0, 950.0));
+    wait(&mut h, "the sample", |a| a.doc.is_some());
+    h.get_by_label("Tracing view").click();
+    h.step();
+    h.state_mut().last_autosave -= Duration::from_secs(31);
+    h.step();
+    let auto = h.state().doc.as_ref().unwrap().autosave_path();
+    assert!(auto.exists() && auto.starts_with(saves.path()), "{}", auto.display());
+    let sample_dir = sample_path().parent().unwrap().to_path_buf();
+    let strays: Vec<_> =
+        std::fs::read_dir(&sample_dir).unwrap().filter_map(|e| e.ok()).filter(|e| e.file_name().to_string_lossy().contains("autosave")).collect();
+    assert!(strays.is_empty(), "nothing written beside the sample: {strays:?}");
+}
+
+/// The title names the file and marks unsaved work; Quit with unsaved work asks first.
+#[test]
+fn title_and_quit_prompt() {
+    let (_dir, prj) = sample_copy(true);
+    let mut h = harness(Some(prj));
+    wait(&mut h, "the project", |a| a.doc.is_some());
+    assert_eq!(h.state().title, "phantom.ductline.json — ductline");
+    h.get_by_label("Tracing view").click();
+    h.step();
+    h.step();
+    assert_eq!(h.state().title, "phantom.ductline.json* — ductline");
+    h.key_press_modifiers(egui::Modifiers::COMMAND, egui::Key::Q);
+    h.step();
+    h.step();
+    assert!(h.state().confirm_quit && !h.state().quit);
+    h.get_by_label_contains("has unsaved changes");
+    h.get_by_role_and_label(Role::Button, "Cancel").click();
+    h.step();
+    assert!(!h.state().confirm_quit && !h.state().quit);
+    h.state_mut().apply(Cmd::Quit);
+    h.step();
+    h.get_by_role_and_label(Role::Button, "Save and quit").click();
+    h.step();
+    h.step();
+    assert!(h.state().quit, "{}", h.state().status);
+    assert!(!h.state().doc.as_ref().unwrap().dirty, "saved before quitting");
 }

@@ -59,6 +59,10 @@ pub struct View {
     pub hover: Option<Hover>,
     cache: Option<(String, PlaneMap, Vec<f32>)>,
     tex: Option<(String, egui::TextureHandle)>,
+    /// Wheel travel not yet turned into steps (notches).
+    wheel: f32,
+    /// A menu or popup was open when this frame began: a click then only closes it.
+    pub popup_was_open: bool,
 }
 
 impl View {
@@ -75,6 +79,8 @@ impl View {
             hover: None,
             cache: None,
             tex: None,
+            wheel: 0.0,
+            popup_was_open: false,
         }
     }
 
@@ -294,6 +300,7 @@ impl View {
             cmds.push(Cmd::Edit(Edit::Move { index: i, to }));
         }
         if resp.clicked()
+            && !self.popup_was_open
             && let Some(pos) = resp.interact_pointer_pos()
         {
             match nearest(pos) {
@@ -313,12 +320,21 @@ impl View {
             self.selected = None;
         }
         if resp.hovered() {
-            let (scroll, zoom) = ui.input(|i| (i.smooth_scroll_delta.y, i.zoom_delta()));
+            let (notches, zoom) = ui.input(|i| (wheel_notches(&i.events), i.zoom_delta()));
             if zoom != 1.0 {
                 self.zoom = (self.zoom * zoom).clamp(0.2, 40.0);
-            } else if scroll.abs() > 0.5 {
-                self.step(if scroll > 0.0 { 1 } else { -1 }, doc);
+            } else {
+                // one notch, one step: the raw wheel events, not the smoothed scroll (which
+                // spreads one notch over several frames)
+                self.wheel += notches;
+                while self.wheel.abs() >= 1.0 {
+                    let dir = self.wheel.signum();
+                    self.step(dir as i32, doc);
+                    self.wheel -= dir;
+                }
             }
+        } else {
+            self.wheel = 0.0;
         }
         resp.on_hover_text("Click: place the active landmark kind · drag a mark: move it · right-click a mark: delete · drag elsewhere: pan · wheel: next slice or angle · ctrl+wheel: zoom");
         cmds
@@ -420,4 +436,20 @@ pub fn mark(p: &egui::Painter, s: Pos2, kind: Kind, fade: f32, selected: bool, f
     if selected {
         p.circle_stroke(s, r + 3.0, Stroke::new(1.5, Color32::WHITE));
     }
+}
+
+/// Wheel travel this frame without ctrl or command (those zoom), in notches: a line is one
+/// notch, 50 points one (a usual line height), a page ten. Positive: toward the user.
+pub fn wheel_notches(events: &[egui::Event]) -> f32 {
+    events
+        .iter()
+        .filter_map(|e| match e {
+            egui::Event::MouseWheel { unit, delta, modifiers, .. } if !modifiers.ctrl && !modifiers.command => Some(match unit {
+                egui::MouseWheelUnit::Line => delta.y,
+                egui::MouseWheelUnit::Point => delta.y / 50.0,
+                egui::MouseWheelUnit::Page => 10.0 * delta.y,
+            }),
+            _ => None,
+        })
+        .sum()
 }
