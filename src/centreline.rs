@@ -10,6 +10,7 @@ use crate::spiral;
 use crate::spline::SmoothSpline;
 use crate::{Error, Result};
 use serde::{Deserialize, Serialize};
+use std::f64::consts::PI;
 
 /// Fit settings the user can change.
 #[derive(Clone, Debug, PartialEq, Serialize, Deserialize)]
@@ -305,6 +306,21 @@ impl Centreline {
         let (_, d1, d2) = self.local3(t);
         let c = v3::norm(v3::cross(d1, d2));
         if c == 0.0 { f64::INFINITY } else { v3::norm(d1).powi(3) / c }
+    }
+
+    /// The angle along the spiral (degrees, unwrapped as in the landmark list and the table) of a
+    /// point at cochlear radius `r` mm, wrapped angle `angle_deg` and height `h` mm: of the turns
+    /// the wrapped angle falls on, the one whose midline passes nearest (r, h).
+    pub fn unwrap_deg(&self, r: f64, angle_deg: f64, h: f64) -> f64 {
+        (-2..=5)
+            .map(|k| angle_deg + 360.0 * k as f64)
+            .filter(|a| (self.t0 - PI..=self.t1 + PI).contains(&a.to_radians()))
+            .map(|a| {
+                let (rm, hm) = self.radius_height(a.to_radians().clamp(self.t0, self.t1));
+                (a, (r - rm).hypot(h - hm))
+            })
+            .min_by(|x, y| x.1.total_cmp(&y.1))
+            .map_or(angle_deg, |x| x.0)
     }
 
     /// (radius, height) of the midline at θ.

@@ -217,3 +217,22 @@ fn bundled_sample_with_a_stray_click() {
     let warnings = ductline::pipeline::fit_warnings(&cl, &more);
     assert!(warnings.iter().any(|w| w.contains(&format!("#{} (lamina)", more.len()))), "{warnings:?}");
 }
+
+/// The wrapped angle of a point (atan2, −180…180°) is unwrapped to the turn the point lies on:
+/// for points on the fitted midline of a 2.5-turn spiral, the angle it was sampled at (the
+/// angle convention of the landmark list and the table).
+#[test]
+fn wrapped_angles_unwrap_to_their_turn() {
+    let sp = spec(1.4);
+    let cl = fit(&trace(&sp, 15.0, 0.0, 0.0, false), 0.04);
+    for deg in [20.0, 200.0, 380.0, 530.0, 700.0, 850.0] {
+        let t = f64::to_radians(deg);
+        if t < cl.t0 || t > cl.t1 {
+            continue;
+        }
+        let [r, a, h] = cl.frame.to_cochlear(cl.point(t));
+        assert!(a > -180.0 && a <= 180.0);
+        let back = cl.unwrap_deg(r, a, h);
+        assert!((back - deg).abs() < 1e-6, "{deg}° came back as {back}°");
+    }
+}

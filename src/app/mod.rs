@@ -557,6 +557,11 @@ impl DuctApp {
             }
             Cmd::SelectRow(i) => {
                 self.selected_row = i;
+                // the tracing view follows: the radial cut at the section's angle
+                if let (Some(row), Some(v)) = (i.and_then(|i| doc.outcome.as_ref().and_then(|o| o.rows.get(i))), &mut self.view) {
+                    v.plane = tracing::Plane::Radial;
+                    v.angle_deg = row.angle_deg;
+                }
                 Ok(String::new())
             }
             Cmd::SetOverride(o) if doc.overrides.contains(&o) => Ok(String::new()),
@@ -624,6 +629,16 @@ impl DuctApp {
             }
             if i.consume_key(Modifiers::NONE, Key::F1) {
                 self.show_help = !self.show_help;
+            }
+            // coarse steps: 10° on the radial cut, 10 slices on a stack plane
+            for (k, dir) in [(Key::PageUp, 1), (Key::PageDown, -1)] {
+                if i.consume_key(Modifiers::NONE, k)
+                    && let (Some(v), Some(d)) = (&mut self.view, &self.doc)
+                {
+                    for _ in 0..5 {
+                        v.step(dir, d);
+                    }
+                }
             }
             for (k, kind) in [Key::Num1, Key::Num2, Key::Num3, Key::Num4, Key::Num5].into_iter().zip(Kind::ALL) {
                 if i.consume_key(Modifiers::NONE, k)
@@ -743,7 +758,8 @@ impl DuctApp {
             if let Some(h) = self.view.as_ref().and_then(|v| v.hover.as_ref()) {
                 ui.monospace(format!("x {:.3}  y {:.3}  z {:.3} mm", h.p[0], h.p[1], h.p[2]));
                 if let Some(c) = h.cochlear {
-                    ui.monospace(format!("│ r {:.3} mm  θ {:.1}°  h {:.3} mm", c[0], c[1], c[2]));
+                    ui.monospace(format!("│ r {:.3} mm  θ {:.1}°  h {:.3} mm", c[0], c[1], c[2]))
+                        .on_hover_text("θ from the round window along the spiral, as in the landmark list and the table (0–900° and beyond)");
                 }
                 ui.monospace(format!("│ value {}", if h.value.is_nan() { "—".to_string() } else { format!("{:.1}", h.value) }));
                 ui.separator();
@@ -762,12 +778,14 @@ impl DuctApp {
                     ("right-click a mark", "delete it"),
                     ("Delete", "delete the selected landmark"),
                     ("1 … 5", "active kind: axis_base, axis_apex, window, lamina, ligament"),
-                    ("wheel", "next slice, or 2° on the radial cut"),
+                    ("wheel", "next slice, or 2° on the radial cut (one notch, one step)"),
+                    ("PgUp / PgDn", "10 slices, or 10° on the radial cut"),
                     ("ctrl+wheel", "zoom"),
                     ("drag", "pan"),
                     ("ctrl+Z / ctrl+shift+Z", "undo / redo"),
                     ("ctrl+S", "save the project"),
                     ("ctrl+O", "open a stack, slice folder or project"),
+                    ("ctrl+Q", "quit (asks first when work is unsaved)"),
                     ("F1", "this list"),
                 ] {
                     ui.monospace(k);

@@ -204,7 +204,7 @@ impl Side {
             order.sort_by(|a, b| theta.get(&a.0).unwrap_or(&f64::NEG_INFINITY).total_cmp(theta.get(&b.0).unwrap_or(&f64::NEG_INFINITY)));
         }
         let flagged: Vec<usize> = doc.fitted.as_ref().map(|c| c.flagged().iter().map(|f| f.0).collect()).unwrap_or_default();
-        egui::ScrollArea::vertical().id_salt("lm-list").max_height(180.0).show(ui, |ui| {
+        egui::ScrollArea::vertical().id_salt("lm-list").max_height((0.45 * ui.available_height()).max(180.0)).show(ui, |ui| {
             egui::Grid::new("lm-grid").num_columns(4).striped(true).show(ui, |ui| {
                 ui.small("#");
                 ui.small("kind");

@@ -100,6 +100,14 @@ fn measure_then_profile_and_inspector() {
     h.step();
     let sel = h.state().selected_row.unwrap();
     assert!(sel > 10, "the click selected a section along the profile, got {sel}");
+    // the tracing view goes there: the radial cut at the section's angle
+    let want = h.state().doc.as_ref().unwrap().outcome.as_ref().unwrap().rows[sel].angle_deg;
+    let v = h.state().view.as_ref().unwrap();
+    assert!(v.plane == crate::app::tracing::Plane::Radial && (v.angle_deg - want).abs() < 1e-9, "{:?} at {}°", v.plane, v.angle_deg);
+    // PgUp steps the cut by 10°
+    h.key_press(egui::Key::PageUp);
+    h.step();
+    assert!((h.state().view.as_ref().unwrap().angle_deg - want - 10.0).abs() < 1e-9);
     // exclude it: an override the next measure applies
     h.get_by_role_and_label(Role::CheckBox, "exclude").click();
     h.step();

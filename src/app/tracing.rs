@@ -273,7 +273,11 @@ impl View {
         if let Some(pos) = resp.hover_pos() {
             let p = to_stack(pos);
             let value = doc.stack.sample_mm(p);
-            let cochlear = doc.fitted.as_ref().ok().map(|c| c.frame.to_cochlear(p));
+            // θ unwrapped along the spiral, the convention of the landmark list and the table
+            let cochlear = doc.fitted.as_ref().ok().map(|c| {
+                let [r, a, h] = c.frame.to_cochlear(p);
+                [r, c.unwrap_deg(r, a, h), h]
+            });
             self.hover = Some(Hover { p, cochlear, value });
         } else {
             self.hover = None;
@@ -360,9 +364,9 @@ impl View {
     fn toolbar_ui(&mut self, ui: &mut egui::Ui, doc: &Doc) {
         ui.horizontal(|ui| {
             for (p, label, tip) in [
-                (Plane::Slice(2), "k plane", "Stack slices: constant slice index k (x right, y down)"),
-                (Plane::Slice(1), "j plane", "Constant row index j (x right, z down)"),
-                (Plane::Slice(0), "i plane", "Constant column index i (y right, z down)"),
+                (Plane::Slice(2), "Slices (xy)", "The stack's own slices: constant slice index k (x right, y down)"),
+                (Plane::Slice(1), "Rows (xz)", "Across the slices at one image row j (x right, z down)"),
+                (Plane::Slice(0), "Columns (yz)", "Across the slices at one image column i (y right, z down)"),
                 (Plane::Radial, "Radial cut", "The plane through the modiolar axis at the chosen angle (apex up)"),
             ] {
                 if ui.selectable_label(self.plane == p, label).on_hover_text(tip).clicked() {
