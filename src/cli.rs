@@ -6,6 +6,7 @@ use ductline::cochlea::Greenwood;
 use ductline::progress::Progress;
 use ductline::stack::{self, LoadOptions, VoxelSize};
 use ductline::{export, landmarks, phantom, pipeline, project};
+use std::fmt::Write as _;
 use std::io::IsTerminal;
 use std::path::{Path, PathBuf};
 
@@ -36,40 +37,21 @@ pub enum Cmd {
     /// Write a synthetic cochlea: phantom.tif, landmarks.csv, truth.csv, truth.json.
     Phantom(PhantomArgs),
     /// Fit the centreline, measure every section and write the geometry table.
-    Measure {
-        /// A project file (instead of --stack and --landmarks).
-        project: Option<PathBuf>,
+    Measure(MeasureArgs),
+    /// Measure many specimens: a table and JSON per specimen under OUT_DIR/NAME/, and
+    /// OUT_DIR/summary.csv with one row per specimen.
+    Batch {
+        /// CSV with columns name,stack,landmarks or name,project (paths relative to this file).
         #[arg(long)]
-        stack: Option<PathBuf>,
+        list: PathBuf,
         #[arg(long)]
-        landmarks: Option<PathBuf>,
-        /// Output CSV table.
-        #[arg(long)]
-        out: PathBuf,
-        /// Also write the JSON table with metadata.
-        #[arg(long)]
-        json: Option<PathBuf>,
-        /// Also write scala_vestibuli.stl and scala_tympani.stl into this folder.
-        #[arg(long)]
-        stl: Option<PathBuf>,
+        out_dir: PathBuf,
         /// Distance between sections along the centreline (mm).
         #[arg(long)]
         step_mm: Option<f64>,
-        #[arg(long, value_name = "X[,Y,Z]")]
-        voxel_um: Option<String>,
-        /// Species preset of the frequency map (human, cat, guinea-pig, chinchilla, macaque, gerbil, mouse).
+        /// Species preset of the frequency map.
         #[arg(long)]
         species: Option<String>,
-        /// Bin 2×2×2 or 4×4×4 while loading (coordinates stay those of the whole stack).
-        #[arg(long, default_value_t = 1)]
-        bin: usize,
-        /// Load only a sub-volume, in voxel indices of the whole stack (half-open ranges).
-        #[arg(long, value_name = "I0:I1,J0:J1,K0:K1")]
-        crop: Option<String>,
-        /// The frame of the landmark CSV: the stack's (i·vx, j·vy, k·vz mm) or the file's world
-        /// frame (NIfTI: RAS; NRRD, MetaImage: LPS, as the file says).
-        #[arg(long, value_name = "stack|world", default_value = "stack")]
-        landmarks_frame: String,
     },
 }
 
@@ -312,22 +294,70 @@ pub fn make_phantom(a: PhantomArgs) -> Result<()> {
     Ok(())
 }
 
+#[derive(clap::Args, Clone, Default)]
 pub struct MeasureArgs {
+    /// A project file (instead of --stack and --landmarks).
     pub project: Option<PathBuf>,
+    #[arg(long)]
     pub stack: Option<PathBuf>,
+    #[arg(long)]
     pub landmarks: Option<PathBuf>,
+    /// Output CSV table.
+    #[arg(long)]
     pub out: PathBuf,
+    /// Also write the JSON table with metadata (outlines, centroids, volumes).
+    #[arg(long)]
     pub json: Option<PathBuf>,
+    /// Also write scala_vestibuli.stl and scala_tympani.stl into this folder.
+    #[arg(long)]
     pub stl: Option<PathBuf>,
+    /// Also write the outlines as a long CSV (section, scala, point, u_mm, v_mm, x_mm, y_mm, z_mm).
+    #[arg(long)]
+    pub outlines_csv: Option<PathBuf>,
+    /// Also write VTK PolyData into this folder: centreline.vtp (every table column),
+    /// scala_vestibuli.vtp, scala_tympani.vtp, sections.vtp.
+    #[arg(long)]
+    pub vtk: Option<PathBuf>,
+    /// Distance between sections along the centreline (mm).
+    #[arg(long)]
     pub step_mm: Option<f64>,
+    #[arg(long, value_name = "X[,Y,Z]")]
     pub voxel_um: Option<String>,
+    /// Species preset of the frequency map (human, cat, guinea-pig, chinchilla, macaque, gerbil, mouse).
+    #[arg(long)]
     pub species: Option<String>,
+    /// Bin 2×2×2 or 4×4×4 while loading (coordinates stay those of the whole stack).
+    #[arg(long, default_value_t = 1)]
     pub bin: usize,
+    /// Load only a sub-volume, in voxel indices of the whole stack (half-open ranges).
+    #[arg(long, value_name = "I0:I1,J0:J1,K0:K1")]
     pub crop: Option<String>,
+    /// The frame of the landmark CSV: the stack's (i·vx, j·vy, k·vz mm) or the file's world
+    /// frame (NIfTI: RAS; DICOM, NRRD, MetaImage: LPS, as the file says).
+    #[arg(long, value_name = "stack|world", default_value = "stack")]
     pub landmarks_frame: String,
 }
 
+/// The command line's `measure`: the files asked for, the summary on stderr.
 pub fn measure(a: MeasureArgs) -> Result<()> {
+    let out = measure_to_files(&a, true)?;
+    eprintln!("{}", out.summary());
+    eprintln!("wrote {}", a.out.display());
+    Ok(())
+}
+
+/// Measures one specimen and writes the files `a` asks for; progress on stderr when `show`.
+fn measure_to_files(a: &MeasureArgs, show: bool) -> Result<pipeline::Outcome> {
+    let (out, prj, st, stack_path) = measure_one(a, show)?;
+    write_outputs(a, &out, &prj, &st, &stack_path)?;
+    for line in pipeline::fit_warnings(&out.centreline, &prj.landmarks) {
+        eprintln!("warning: {line}");
+    }
+    Ok(out)
+}
+
+#[allow(clippy::type_complexity)]
+fn measure_one(a: &MeasureArgs, show: bool) -> Result<(pipeline::Outcome, project::Project, stack::Stack, PathBuf)> {
     let world = match a.landmarks_frame.as_str() {
         "stack" => false,
         "world" if a.landmarks.is_some() => true,
@@ -361,7 +391,7 @@ pub fn measure(a: MeasureArgs) -> Result<()> {
         None => prj.voxel_um.map(|um| VoxelSize::from_user_um(&um)).transpose()?,
     };
     let opts = LoadOptions { voxel, bin: a.bin, crop: crop_arg(&a.crop)?, ..Default::default() };
-    let st = with_progress("loading", |p| stack::load_with_progress(&stack_path, &opts, p))?;
+    let st = shown(show, "loading", |p| stack::load_with_progress(&stack_path, &opts, p))?;
     for w in &st.warnings {
         eprintln!("warning: {w}");
     }
@@ -389,23 +419,140 @@ pub fn measure(a: MeasureArgs) -> Result<()> {
             }
         }
     }
-    let out = with_progress("measuring", |p| pipeline::run(&st, &prj.landmarks, &prj.fit, &prj.measure, &prj.overrides, &gw, p))
+    let out = shown(show, "measuring", |p| pipeline::run(&st, &prj.landmarks, &prj.fit, &prj.measure, &prj.overrides, &gw, p))
         .map_err(|e| anyhow::anyhow!("{}: {e}", src.display()))?;
+    Ok((out, prj, st, stack_path))
+}
+
+/// Runs `f` with a progress report on stderr when `show`, silently otherwise.
+fn shown<T>(show: bool, label: &'static str, f: impl FnOnce(&Progress) -> T) -> T {
+    if show { with_progress(label, f) } else { f(&Progress::new()) }
+}
+
+/// Writes the table and every extra output `a` asks for (each atomically).
+fn write_outputs(a: &MeasureArgs, out: &pipeline::Outcome, prj: &project::Project, st: &stack::Stack, stack_path: &Path) -> Result<()> {
     project::write_atomic(&a.out, export::table_csv(&out.rows).as_bytes())?;
     if let Some(j) = &a.json {
         let vox = st.voxel()?;
-        let bytes = std::fs::metadata(&stack_path).map(|m| m.len()).unwrap_or(0);
-        let prov = export::Provenance { stack_path: &stack_path, stack_bytes: bytes, voxel: vox, fit: &prj.fit, measure: &prj.measure };
-        let text = serde_json::to_string_pretty(&export::table_json(&out, &prov))?;
+        let bytes = std::fs::metadata(stack_path).map(|m| m.len()).unwrap_or(0);
+        let prov = export::Provenance { stack_path, stack_bytes: bytes, voxel: vox, fit: &prj.fit, measure: &prj.measure };
+        let text = serde_json::to_string_pretty(&export::table_json(out, &prov))?;
         project::write_atomic(j, text.as_bytes())?;
     }
     if let Some(dir) = &a.stl {
-        export::write_stl(&out, dir)?;
+        export::write_stl(out, dir)?;
     }
-    for line in pipeline::fit_warnings(&out.centreline, &prj.landmarks) {
-        eprintln!("warning: {line}");
+    if let Some(f) = &a.outlines_csv {
+        project::write_atomic(f, export::outlines_csv(out).as_bytes())?;
     }
-    eprintln!("{}", out.summary());
-    eprintln!("wrote {}", a.out.display());
+    if let Some(dir) = &a.vtk {
+        ductline::vtk::write(out, dir)?;
+    }
+    Ok(())
+}
+
+/// One specimen of a batch list: its name and what to measure.
+struct Specimen {
+    name: String,
+    args: MeasureArgs,
+}
+
+/// Reads a batch list: a header with `name` and either `stack` and `landmarks` or `project`;
+/// paths relative to the list's folder.
+fn read_list(list: &Path) -> Result<Vec<Specimen>> {
+    let text = std::fs::read_to_string(list).with_context(|| format!("{}: cannot read", list.display()))?;
+    let base = list.parent().unwrap_or(Path::new("."));
+    let mut lines = text.lines().enumerate().filter(|(_, l)| !l.trim().is_empty() && !l.trim_start().starts_with('#'));
+    let (_, header) = lines.next().with_context(|| format!("{}: empty list", list.display()))?;
+    let cols: Vec<String> = header.split(',').map(|c| c.trim().to_lowercase()).collect();
+    let at = |name: &str| cols.iter().position(|c| c == name);
+    let name_col = at("name").with_context(|| format!("{}: line 1: no 'name' column", list.display()))?;
+    let (stack_col, lm_col, prj_col) = (at("stack"), at("landmarks"), at("project"));
+    if prj_col.is_none() && (stack_col.is_none() || lm_col.is_none()) {
+        bail!("{}: line 1: the columns must be name,stack,landmarks or name,project", list.display());
+    }
+    let mut out: Vec<Specimen> = vec![];
+    for (i, line) in lines {
+        let cells: Vec<&str> = line.split(',').map(str::trim).collect();
+        let cell = |c: Option<usize>| c.and_then(|c| cells.get(c)).filter(|v| !v.is_empty()).map(|v| base.join(v));
+        let name = cells.get(name_col).copied().unwrap_or("").to_string();
+        if name.is_empty() || name.contains(['/', '\\']) || name == "." || name == ".." {
+            bail!("{}: line {}: '{name}' is not a usable specimen name (a folder of that name is written)", list.display(), i + 1);
+        }
+        if out.iter().any(|s| s.name == name) {
+            bail!("{}: line {}: the name '{name}' is used twice", list.display(), i + 1);
+        }
+        let args = MeasureArgs {
+            project: cell(prj_col),
+            stack: cell(stack_col),
+            landmarks: cell(lm_col),
+            bin: 1,
+            landmarks_frame: "stack".into(),
+            ..Default::default()
+        };
+        out.push(Specimen { name, args });
+    }
+    if out.is_empty() {
+        bail!("{}: no specimens listed", list.display());
+    }
+    Ok(out)
+}
+
+/// `ductline batch`: every specimen measured in turn (each run uses every core), a line per
+/// specimen on stderr; a failing specimen's error goes into the summary and the others go on;
+/// the exit code is non-zero when any failed.
+pub fn batch(list: &Path, out_dir: &Path, step_mm: Option<f64>, species: Option<String>) -> Result<()> {
+    let specimens = read_list(list)?;
+    std::fs::create_dir_all(out_dir).with_context(|| format!("{}: cannot create", out_dir.display()))?;
+    let mut summary = String::from("name,length_mm,depth_deg,turns,handedness,sv_volume_mm3,st_volume_mm3,basal_diameter_mm,sections,flagged_sections,error\n");
+    let mut failed = 0;
+    let n = specimens.len();
+    for (k, sp) in specimens.into_iter().enumerate() {
+        let dir = out_dir.join(&sp.name);
+        let args = MeasureArgs { out: dir.join("table.csv"), json: Some(dir.join("table.json")), step_mm, species: species.clone(), ..sp.args };
+        let res = std::fs::create_dir_all(&dir).map_err(anyhow::Error::from).and_then(|_| measure_to_files(&args, false));
+        match res {
+            Ok(out) => {
+                let cl = &out.centreline;
+                let f = |x: Option<f64>| x.map(|v| format!("{v:.4}")).unwrap_or_default();
+                let hand = format!("{:?}", cl.frame.handed).to_lowercase();
+                let _ = writeln!(
+                    summary,
+                    "{},{:.4},{:.1},{:.3},{hand},{},{},{},{},{},",
+                    sp.name,
+                    cl.length,
+                    cl.depth_deg(),
+                    cl.depth_deg() / 360.0,
+                    f(export::volume(&out.geoms, &out.rows, true)),
+                    f(export::volume(&out.geoms, &out.rows, false)),
+                    f(out.estimates.as_ref().ok().map(|e| e.basal_diameter_mm)),
+                    out.rows.len(),
+                    out.flagged_sections()
+                );
+                eprintln!(
+                    "[{}/{n}] {}: {:.2} mm over {:.0}°, {} of {} sections flagged",
+                    k + 1,
+                    sp.name,
+                    cl.length,
+                    cl.depth_deg(),
+                    out.flagged_sections(),
+                    out.rows.len()
+                );
+            }
+            Err(e) => {
+                failed += 1;
+                // one plain CSV cell: no commas, quotes or line breaks
+                let msg = format!("{e:#}").replace(['\n', '"'], " ").replace(',', ";");
+                let _ = writeln!(summary, "{},,,,,,,,,,{msg}", sp.name);
+                eprintln!("[{}/{n}] {}: failed: {msg}", k + 1, sp.name);
+            }
+        }
+    }
+    let path = out_dir.join("summary.csv");
+    project::write_atomic(&path, summary.as_bytes())?;
+    eprintln!("wrote {}", path.display());
+    if failed > 0 {
+        bail!("{failed} of {n} specimens failed (their errors are in {})", path.display());
+    }
     Ok(())
 }

@@ -1,11 +1,12 @@
 //! The geometry table (CSV and JSON) and the lumen surfaces (binary STL).
 
 use crate::frame::{v3, v3::V};
-use crate::measure::Row;
+use crate::measure::{Row, Scala};
 use crate::pipeline::Outcome;
 use crate::section::SectionGeom;
 use crate::{Error, Result};
 use serde_json::json;
+use std::fmt::Write as _;
 use std::path::Path;
 
 /// Table columns in order (DESIGN.md), units in the names.
@@ -61,6 +62,21 @@ pub fn table_csv(rows: &[Row]) -> String {
     s
 }
 
+/// The long outline table: one line per outline point (section = the row's index in the table,
+/// from 0; scala sv or st; point from 0), in section coordinates (u, v) and stack mm (x, y, z).
+pub fn outlines_csv(out: &Outcome) -> String {
+    let mut s = String::from("section,scala,point,u_mm,v_mm,x_mm,y_mm,z_mm\n");
+    for (i, (r, g)) in out.rows.iter().zip(&out.geoms).enumerate() {
+        for (name, sc) in [("sv", &r.sv), ("st", &r.st)] {
+            for (k, q) in outline(sc).unwrap_or_default().iter().enumerate() {
+                let p = g.from_plane(*q);
+                let _ = writeln!(s, "{i},{name},{k},{:.6},{:.6},{:.6},{:.6},{:.6}", q[0], q[1], p[0], p[1], p[2]);
+            }
+        }
+    }
+    s
+}
+
 /// Facts about the input recorded in the JSON metadata.
 pub struct Provenance<'a> {
     pub stack_path: &'a Path,
@@ -78,13 +94,18 @@ pub fn table_json(out: &Outcome, prov: &Provenance) -> serde_json::Value {
     let rows: Vec<serde_json::Value> = out
         .rows
         .iter()
-        .map(|r| {
+        .zip(&out.geoms)
+        .map(|(r, g)| {
+            let ring = |sc: &Scala| outline(sc).map(|o| o.iter().map(|q| g.from_plane(*q)).collect::<Vec<V>>());
+            let centroid = |sc: &Scala| outline(sc).map(|_| g.from_plane(sc.centroid));
             json!({
                 "s_mm": r.s_mm, "angle_deg": r.angle_deg, "x_mm": r.point[0], "y_mm": r.point[1], "z_mm": r.point[2],
                 "radius_mm": r.radius_mm, "height_mm": r.height_mm, "curvature_radius_mm": opt(Some(r.curvature_radius_mm)),
                 "cf_hz": r.cf_hz, "sv_area_mm2": opt(r.sv.area), "st_area_mm2": opt(r.st.area),
                 "partition_width_mm": opt(r.partition_width_mm), "wall_mm": opt(r.wall_mm), "flags": r.flag_words(),
                 "levels": { "lumen": opt(Some(r.levels.lumen as f64)), "soft_tissue": opt(Some(r.levels.tissue as f64)), "bone": opt(Some(r.levels.bone as f64)) },
+                "sv_centroid_mm": centroid(&r.sv), "st_centroid_mm": centroid(&r.st),
+                "sv_outline_mm": ring(&r.sv), "st_outline_mm": ring(&r.st),
             })
         })
         .collect();
@@ -117,6 +138,12 @@ pub fn table_json(out: &Outcome, prov: &Provenance) -> serde_json::Value {
                            "lambda_ligament_radius": cl.ligament.r.lambda, "lambda_ligament_height": cl.ligament.z.lambda,
                            "chosen_by": if prov.fit.smoothing.is_some() { "user" } else { "generalized cross-validation" } },
             "step_mm": prov.measure.step_mm,
+            "volumes_mm3": {
+                "scala_vestibuli": volume(&out.geoms, &out.rows, true),
+                "scala_tympani": volume(&out.geoms, &out.rows, false),
+                "note": "lumen between the first and last measured sections; each stretch: mean area × the centroid's advance along the section normal (Pappus), the volume the STL surfaces enclose",
+            },
+            "outlines": format!("per row, sv_outline_mm and st_outline_mm: {} points [x, y, z] in stack mm, the same start (the section's first in-plane axis) and turning sense in every section, scaled about the centroid to the row's area", crate::measure::OUTLINE_POINTS),
             "length_mm": cl.length,
             "angular_depth_deg": cl.depth_deg(),
             "turns": cl.depth_deg() / 360.0,
@@ -141,6 +168,55 @@ pub fn table_json(out: &Outcome, prov: &Provenance) -> serde_json::Value {
     })
 }
 
+/// Area (mm²) of a closed polygon (shoelace formula), positive either way round.
+pub fn polygon_area(q: &[[f64; 2]]) -> f64 {
+    let n = q.len();
+    (0..n).map(|i| q[i][0] * q[(i + 1) % n][1] - q[(i + 1) % n][0] * q[i][1]).sum::<f64>().abs() * 0.5
+}
+
+/// One scala's exported outline in section coordinates (mm): the measured half-level outline
+/// scaled about the centroid so that its polygon area equals the measured area (the table, the
+/// outlines, the surfaces and the volumes then agree). None where the scala has no area.
+///
+/// ```
+/// use ductline::measure::Scala;
+/// // a square outline of area 4 mm² around (1, 0), measured as 1 mm²: halved in size
+/// let sc = Scala { area: Some(1.0), outline: vec![[0.0, -1.0], [2.0, -1.0], [2.0, 1.0], [0.0, 1.0]], centroid: [1.0, 0.0], seed: None };
+/// let q = ductline::export::outline(&sc).unwrap();
+/// assert!((ductline::export::polygon_area(&q) - 1.0).abs() < 1e-12);
+/// assert_eq!(q[0], [0.5, -0.5]);
+/// ```
+pub fn outline(sc: &Scala) -> Option<Vec<[f64; 2]>> {
+    let area = sc.area.filter(|a| *a > 0.0)?;
+    let poly = polygon_area(&sc.outline);
+    if sc.outline.len() < 3 || !(poly > 0.0) {
+        return None;
+    }
+    let k = (area / poly).sqrt();
+    let c = sc.centroid;
+    Some(sc.outline.iter().map(|q| [c[0] + k * (q[0] - c[0]), c[1] + k * (q[1] - c[1])]).collect())
+}
+
+/// One scala's lumen volume (mm³) between its first and last measured sections: each stretch
+/// between neighbouring measured sections adds its mean area times the advance of the scala's
+/// centroid along the mean section normal (Pappus: dV = A·(1 − κ·d)·ds, with d the centroid's
+/// offset toward the centre of curvature; the centroids of the inner scala travel less far than
+/// the midline). Sections without an area are bridged. None with fewer than two.
+pub fn volume(geoms: &[SectionGeom], rows: &[Row], scala_vestibuli: bool) -> Option<f64> {
+    let measured: Vec<(f64, V, V)> = geoms
+        .iter()
+        .zip(rows)
+        .filter_map(|(g, r)| {
+            let sc = if scala_vestibuli { &r.sv } else { &r.st };
+            outline(sc).map(|_| (sc.area.unwrap_or(0.0), g.from_plane(sc.centroid), g.t))
+        })
+        .collect();
+    if measured.len() < 2 {
+        return None;
+    }
+    Some(measured.windows(2).map(|w| 0.5 * (w[0].0 + w[1].0) * v3::dot(v3::sub(w[1].1, w[0].1), v3::unit(v3::add(w[0].2, w[1].2)))).sum())
+}
+
 /// A closed triangle mesh in stack mm.
 #[derive(Clone, Debug, Default)]
 pub struct Mesh {
@@ -163,7 +239,7 @@ pub fn loft(geoms: &[SectionGeom], rows: &[Row], scala_vestibuli: bool) -> Optio
         .zip(rows)
         .filter_map(|(g, r)| {
             let sc = if scala_vestibuli { &r.sv } else { &r.st };
-            (sc.area.is_some() && !sc.outline.is_empty()).then(|| sc.outline.iter().map(|q| g.from_plane(*q)).collect())
+            outline(sc).map(|o| o.iter().map(|q| g.from_plane(*q)).collect())
         })
         .collect();
     if rings.len() < 2 {

@@ -28,6 +28,7 @@ pub mod section;
 pub mod spiral;
 pub mod spline;
 pub mod stack;
+pub mod vtk;
 
 pub use error::{Error, Result};
 

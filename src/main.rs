@@ -14,9 +14,8 @@ fn main() -> ExitCode {
         Some(Cmd::Open { path }) => app::run(Some(path)),
         Some(Cmd::Inspect { stack, voxel_um, bin, crop }) => cli::inspect(&stack, voxel_um, bin, crop),
         Some(Cmd::Phantom(a)) => cli::make_phantom(a),
-        Some(Cmd::Measure { project, stack, landmarks, out, json, stl, step_mm, voxel_um, species, bin, crop, landmarks_frame }) => {
-            cli::measure(cli::MeasureArgs { project, stack, landmarks, out, json, stl, step_mm, voxel_um, species, bin, crop, landmarks_frame })
-        }
+        Some(Cmd::Measure(a)) => cli::measure(a),
+        Some(Cmd::Batch { list, out_dir, step_mm, species }) => cli::batch(&list, &out_dir, step_mm, species),
     };
     match res {
         Ok(()) => ExitCode::SUCCESS,

@@ -195,3 +195,59 @@ fn failures_exit_non_zero_with_one_line() {
     let e = failure(&ductline(&["measure", "--stack", s(&nii), "--landmarks", s(&lm), "--out", s(&out), "--landmarks-frame", "scanner"]));
     assert!(e.contains("stack or world"), "{e}");
 }
+
+/// `batch`: two specimens measured (one listed by stack and landmarks, one by project) and one
+/// broken (its landmark file missing): each good one gets its table and JSON under OUT/NAME/,
+/// summary.csv has a row per specimen with the broken one's error, the exit code is non-zero,
+/// and the good rows agree with the specimen's own `measure` run (the JSON's volumes).
+#[test]
+fn batch_goes_on_past_a_broken_specimen() {
+    let dir = tempfile::tempdir().unwrap();
+    let d = dir.path();
+    let o = ductline(&["phantom", s(&d.join("a")), "--voxel-um", "90"]);
+    assert!(o.status.success(), "{}", stderr(&o));
+    let o = ductline(&["phantom", s(&d.join("b")), "--voxel-um", "90", "--left"]);
+    assert!(o.status.success(), "{}", stderr(&o));
+    let list = d.join("list.csv");
+    std::fs::write(
+        &list,
+        "name,stack,landmarks,project\nears_a,a/phantom.tif,a/landmarks.csv,\nbroken,a/phantom.tif,nowhere.csv,\nears_b,,,b/phantom.ductline.json\n",
+    )
+    .unwrap();
+    let out = d.join("out");
+    let o = ductline(&["batch", "--list", s(&list), "--out-dir", s(&out), "--step-mm", "0.25"]);
+    assert!(!o.status.success());
+    let err = stderr(&o);
+    assert!(err.contains("[2/3] broken: failed") && err.contains("1 of 3 specimens failed"), "{err}");
+    let (head, rows) = read_csv(&out.join("summary.csv"));
+    for c in [
+        "name",
+        "length_mm",
+        "depth_deg",
+        "turns",
+        "handedness",
+        "sv_volume_mm3",
+        "st_volume_mm3",
+        "basal_diameter_mm",
+        "sections",
+        "flagged_sections",
+        "error",
+    ] {
+        assert!(head.iter().any(|h| h == c), "column {c}");
+    }
+    let col = |r: &Vec<String>, c: &str| r[head.iter().position(|h| h == c).unwrap()].clone();
+    assert_eq!(rows.len(), 3);
+    assert!(col(&rows[1], "error").contains("nowhere.csv"));
+    assert_eq!(col(&rows[0], "handedness"), "right");
+    assert_eq!(col(&rows[2], "handedness"), "left");
+    for r in [&rows[0], &rows[2]] {
+        let name = col(r, "name");
+        assert!(col(r, "error").is_empty());
+        let j: serde_json::Value = serde_json::from_str(&std::fs::read_to_string(out.join(&name).join("table.json")).unwrap()).unwrap();
+        let v = j["metadata"]["volumes_mm3"]["scala_vestibuli"].as_f64().unwrap();
+        assert!((col(r, "sv_volume_mm3").parse::<f64>().unwrap() - v).abs() < 1e-3, "{name}");
+        assert!((col(r, "length_mm").parse::<f64>().unwrap() - j["metadata"]["length_mm"].as_f64().unwrap()).abs() < 1e-3);
+        assert!(out.join(&name).join("table.csv").exists());
+    }
+    assert!(!out.join("broken").join("table.csv").exists());
+}
