@@ -318,6 +318,12 @@ pub struct MeasureArgs {
     /// scala_vestibuli.vtp, scala_tympani.vtp, sections.vtp.
     #[arg(long)]
     pub vtk: Option<PathBuf>,
+    /// Also draw the duct profile (areas, width, wall; flagged sections marked) as .svg or .png.
+    #[arg(long, value_name = "FILE.svg|FILE.png")]
+    pub plot: Option<PathBuf>,
+    /// The profile's horizontal axis.
+    #[arg(long, value_name = "distance|angle|frequency", default_value = "distance")]
+    pub plot_x: String,
     /// Distance between sections along the centreline (mm).
     #[arg(long)]
     pub step_mm: Option<f64>,
@@ -348,6 +354,15 @@ pub fn measure(a: MeasureArgs) -> Result<()> {
 
 /// Measures one specimen and writes the files `a` asks for; progress on stderr when `show`.
 fn measure_to_files(a: &MeasureArgs, show: bool) -> Result<pipeline::Outcome> {
+    // asked-for outputs that cannot be written fail before the work, not after
+    if a.plot.is_some() && !["distance", "angle", "frequency"].contains(&a.plot_x.as_str()) {
+        bail!("--plot-x must be distance, angle or frequency, not {:?}", a.plot_x);
+    }
+    if let Some(p) = &a.plot
+        && !p.extension().is_some_and(|e| e.eq_ignore_ascii_case("svg") || e.eq_ignore_ascii_case("png"))
+    {
+        bail!("{}: a figure is written as .svg or .png", p.display());
+    }
     let (out, prj, st, stack_path) = measure_one(a, show)?;
     write_outputs(a, &out, &prj, &st, &stack_path)?;
     for line in pipeline::fit_warnings(&out.centreline, &prj.landmarks) {
@@ -447,6 +462,16 @@ fn write_outputs(a: &MeasureArgs, out: &pipeline::Outcome, prj: &project::Projec
     }
     if let Some(dir) = &a.vtk {
         ductline::vtk::write(out, dir)?;
+    }
+    if let Some(f) = &a.plot {
+        let x = match a.plot_x.as_str() {
+            "distance" => ductline::figure::XAxis::Distance,
+            "angle" => ductline::figure::XAxis::Angle,
+            "frequency" => ductline::figure::XAxis::Frequency,
+            other => bail!("--plot-x must be distance, angle or frequency, not {other:?}"),
+        };
+        let title = format!("{} — duct profile", stack_path.file_name().map(|n| n.to_string_lossy().to_string()).unwrap_or_default());
+        ductline::figure::write(&out.rows, x, &title, f)?;
     }
     Ok(())
 }

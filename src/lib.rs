@@ -17,6 +17,7 @@ pub mod cochlea;
 pub mod display;
 pub mod error;
 pub mod export;
+pub mod figure;
 pub mod frame;
 pub mod landmarks;
 pub mod measure;
@@ -38,3 +39,6 @@ pub const VERSION: &str = env!("CARGO_PKG_VERSION");
 /// The research-use caution shown in the README, the app and every JSON export.
 pub const CAUTION: &str = "ductline is a research tool, not a medical device. Its measurements must not \
 drive clinical decisions; defer to licensed practice and local regulations.";
+
+/// The font figures are drawn with (Ubuntu Light, Ubuntu Font Licence; egui's former default).
+pub const FIGURE_FONT: &[u8] = emoji_fonts::UBUNTU_LIGHT;

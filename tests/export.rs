@@ -208,3 +208,34 @@ for name in ["scala_vestibuli", "scala_tympani"]:
 "#,
     );
 }
+
+/// The profile figure: the SVG has both panels' axis titles with units, a curve per series and
+/// the legend; the PNG (the same SVG rasterised) decodes (png crate) at twice the size with the
+/// series' colours drawn; frequency axes tick in Hz and kHz.
+#[test]
+fn profile_figure_svg_and_png() {
+    let spec = PhantomSpec { voxel_um: [90.0; 3], ..Default::default() };
+    let ph = phantom::generate(&spec, &Progress::new()).unwrap();
+    let ms = MeasureSettings { step_mm: 0.25, ..Default::default() };
+    let out = pipeline::run(&ph.stack, &ph.landmarks, &FitSettings::default(), &ms, &[], &Greenwood::preset("human").unwrap(), &Progress::new()).unwrap();
+    use ductline::figure::{self, XAxis};
+    let svg = figure::profile_svg(&out.rows, XAxis::Distance, "test", 900.0, 600.0);
+    for t in ["area (mm²)", "length (mm)", "distance from the base s (mm)", "scala vestibuli", "scala tympani", "partition width", "bony wall"] {
+        assert!(svg.contains(t), "{t}");
+    }
+    assert!(svg.matches("<polyline").count() >= 4);
+    let f = figure::profile_svg(&out.rows, XAxis::Frequency, "test", 900.0, 600.0);
+    assert!(f.contains(">1k<") && f.contains(">10k<") && f.contains("characteristic frequency (Hz)"));
+    let dir = tempfile::tempdir().unwrap();
+    let p = dir.path().join("fig.png");
+    figure::write(&out.rows, XAxis::Angle, "test", &p).unwrap();
+    let dec = png::Decoder::new(std::io::BufReader::new(std::fs::File::open(&p).unwrap()));
+    let mut r = dec.read_info().unwrap();
+    let mut buf = vec![0; r.output_buffer_size().unwrap()];
+    let info = r.next_frame(&mut buf).unwrap();
+    assert_eq!((info.width, info.height), (1800, 1200));
+    let px = |c: [u8; 3]| buf.chunks(info.line_size / info.width as usize).filter(|q| (0..3).all(|k| (q[k] as i32 - c[k] as i32).abs() < 30)).count();
+    assert!(px([0x1f, 0x77, 0xb4]) + px([0xd6, 0x27, 0x28]) > 2000, "the area curves are drawn");
+    assert!(px([0, 0, 0]) + px([0x44, 0x44, 0x44]) > 2000, "text and axes are drawn");
+    assert!(figure::write(&out.rows, XAxis::Angle, "test", &dir.path().join("fig.pdf")).is_err());
+}

@@ -85,6 +85,9 @@ pub enum Cmd {
     ExportTable(PathBuf),
     ExportStlDialog,
     ExportStl(PathBuf),
+    SaveFigureDialog,
+    /// The duct-profile figure, as .svg or .png by the name.
+    SaveFigure(PathBuf),
     Edit(Edit),
     Undo,
     Redo,
@@ -121,6 +124,7 @@ pub enum Pending {
     SaveAs,
     ExportTable,
     ExportStl,
+    SaveFigure,
 }
 
 pub struct DuctApp {
@@ -345,6 +349,7 @@ impl DuctApp {
             Pending::ExportLandmarks => "landmarks.csv",
             Pending::SaveAs => "specimen.ductline.json",
             Pending::ExportTable => "geometry.csv",
+            Pending::SaveFigure => "duct-profile.svg",
             _ => "",
         };
         if !self.native_dialogs {
@@ -352,7 +357,7 @@ impl DuctApp {
             let mut d = match what {
                 Pending::Open | Pending::ImportLandmarks(_) => F::open_file(),
                 Pending::OpenFolder | Pending::ExportStl => F::select_folder(),
-                Pending::ExportLandmarks | Pending::SaveAs | Pending::ExportTable => F::save_file().default_filename(name),
+                Pending::ExportLandmarks | Pending::SaveAs | Pending::ExportTable | Pending::SaveFigure => F::save_file().default_filename(name),
             };
             if let Some(s) = start {
                 d = d.initial_path(s);
@@ -365,6 +370,7 @@ impl DuctApp {
                 Pending::SaveAs => "Save the project as",
                 Pending::ExportTable => "Export the geometry table (.csv or .json)",
                 Pending::ExportStl => "Folder for the lumen surfaces (STL)",
+                Pending::SaveFigure => "Save the duct-profile figure (.svg or .png)",
             };
             let mut d = d.title(title).id(egui::Id::unique("in-app-file-dialog"));
             d.open();
@@ -384,6 +390,7 @@ impl DuctApp {
                 Pending::ImportLandmarks(_) => d.add_filter("landmarks", &["csv"]).pick_file(),
                 Pending::ExportLandmarks | Pending::SaveAs => d.set_file_name(name).save_file(),
                 Pending::ExportTable => d.set_file_name(name).add_filter("CSV or JSON table", &["csv", "json"]).save_file(),
+                Pending::SaveFigure => d.set_file_name(name).add_filter("SVG or PNG figure", &["svg", "png"]).save_file(),
             }
         });
         self.dialog = Some((what, rx, Instant::now()));
@@ -455,6 +462,7 @@ impl DuctApp {
             Cmd::SaveAsDialog => self.ask(Pending::SaveAs),
             Cmd::ExportTableDialog => self.ask(Pending::ExportTable),
             Cmd::ExportStlDialog => self.ask(Pending::ExportStl),
+            Cmd::SaveFigureDialog => self.ask(Pending::SaveFigure),
             Cmd::Status(s) => self.status = s,
             Cmd::GoToAngle(a) => {
                 if let Some(v) = &mut self.view {
@@ -537,6 +545,15 @@ impl DuctApp {
                 r
             }
             Cmd::ExportTable(p) => export_table(doc, &p),
+            Cmd::SaveFigure(p) => match &doc.outcome {
+                Some(out) => {
+                    let name = doc.project_path.as_ref().unwrap_or(&doc.stack_path).file_name().map(|n| n.to_string_lossy().to_string()).unwrap_or_default();
+                    ductline::figure::write(&out.rows, self.profile.x, &format!("{name} — duct profile"), &p)
+                        .map(|_| format!("wrote {}", p.display()))
+                        .map_err(|e| e.to_string())
+                }
+                None => Err("measure first".into()),
+            },
             Cmd::ExportStl(dir) => match &doc.outcome {
                 Some(out) => {
                     ductline::export::write_stl(out, &dir).map(|w| format!("wrote {} surfaces into {}", w.len(), dir.display())).map_err(|e| e.to_string())
@@ -726,6 +743,14 @@ impl DuctApp {
                 }
                 if ui.add_enabled(measured, egui::Button::new("Export lumen surfaces (STL)…")).on_disabled_hover_text(not_yet).clicked() {
                     cmds.push(Cmd::ExportStlDialog);
+                }
+                if ui
+                    .add_enabled(measured, egui::Button::new("Save duct-profile figure (SVG/PNG)…"))
+                    .on_disabled_hover_text(not_yet)
+                    .on_hover_text("The profile with axis titles and units, against the x axis chosen in the profile panel")
+                    .clicked()
+                {
+                    cmds.push(Cmd::SaveFigureDialog);
                 }
                 ui.separator();
                 if ui.button("Quit  (ctrl+Q)").clicked() {
@@ -1015,6 +1040,7 @@ fn chosen(what: Pending, p: PathBuf) -> Cmd {
         Pending::SaveAs => Cmd::SaveAs(p),
         Pending::ExportTable => Cmd::ExportTable(p),
         Pending::ExportStl => Cmd::ExportStl(p),
+        Pending::SaveFigure => Cmd::SaveFigure(p),
     }
 }
 

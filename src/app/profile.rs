@@ -2,15 +2,9 @@
 //! flagged sections marked; a click opens that section in the inspector.
 
 use super::{Cmd, palette};
+pub use ductline::figure::XAxis;
 use ductline::measure::Row;
 use egui_plot::{Legend, Line, Plot, PlotPoints, Points};
-
-#[derive(Clone, Copy, Debug, PartialEq)]
-pub enum XAxis {
-    Distance,
-    Angle,
-    Frequency,
-}
 
 pub struct ProfileState {
     pub x: XAxis,
@@ -26,11 +20,7 @@ impl Default for ProfileState {
 const SERIES: [&str; 5] = ["SV area (mm²)", "ST area (mm²)", "partition width (mm)", "wall (mm)", "curvature radius (mm)"];
 
 fn x_of(r: &Row, x: XAxis) -> f64 {
-    match x {
-        XAxis::Distance => r.s_mm,
-        XAxis::Angle => r.angle_deg,
-        XAxis::Frequency => r.cf_hz.max(1.0).log10(),
-    }
+    x.value(r)
 }
 
 fn y_of(r: &Row, k: usize) -> Option<f64> {

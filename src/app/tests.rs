@@ -104,6 +104,11 @@ fn measure_then_profile_and_inspector() {
     let want = h.state().doc.as_ref().unwrap().outcome.as_ref().unwrap().rows[sel].angle_deg;
     let v = h.state().view.as_ref().unwrap();
     assert!(v.plane == crate::app::tracing::Plane::Radial && (v.angle_deg - want).abs() < 1e-9, "{:?} at {}°", v.plane, v.angle_deg);
+    // the figure is saved as the profile shows it
+    let figdir = tempfile::tempdir().unwrap();
+    let fig = figdir.path().join("profile.png");
+    h.state_mut().apply(Cmd::SaveFigure(fig.clone()));
+    assert!(fig.exists() && std::fs::metadata(&fig).unwrap().len() > 10_000, "{}", h.state().status);
     // PgUp steps the cut by 10°
     h.key_press(egui::Key::PageUp);
     h.step();
