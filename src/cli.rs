@@ -38,6 +38,22 @@ pub enum Cmd {
     Phantom(PhantomArgs),
     /// Fit the centreline, measure every section and write the geometry table.
     Measure(MeasureArgs),
+    /// Propose lamina and ligament landmarks along the whole spiral from seven seed points.
+    Trace {
+        #[arg(long)]
+        stack: PathBuf,
+        /// axis_base, axis_apex, window, and at least two lamina and two ligament points near the base.
+        #[arg(long)]
+        seeds: PathBuf,
+        /// The landmark CSV to write (seeds included; `measure` takes it as it is).
+        #[arg(long)]
+        out: PathBuf,
+        /// Angle between proposed points (degrees).
+        #[arg(long, default_value_t = 10.0)]
+        step_deg: f64,
+        #[arg(long, value_name = "X[,Y,Z]")]
+        voxel_um: Option<String>,
+    },
     /// Measure many specimens: a table and JSON per specimen under OUT_DIR/NAME/, and
     /// OUT_DIR/summary.csv with one row per specimen.
     Batch {
@@ -579,5 +595,27 @@ pub fn batch(list: &Path, out_dir: &Path, step_mm: Option<f64>, species: Option<
     if failed > 0 {
         bail!("{failed} of {n} specimens failed (their errors are in {})", path.display());
     }
+    Ok(())
+}
+
+/// `ductline trace`: proposals written with the seeds; where and why it stopped on stderr.
+pub fn trace(stack_path: &Path, seeds: &Path, out: &Path, step_deg: f64, voxel_um: Option<String>) -> Result<()> {
+    let opts = LoadOptions { voxel: voxel_arg(&voxel_um)?, ..Default::default() };
+    let st = with_progress("loading", |p| stack::load_with_progress(stack_path, &opts, p))?;
+    for w in &st.warnings {
+        eprintln!("warning: {w}");
+    }
+    let seeds_lm = landmarks::read_csv(seeds, Some(&st))?;
+    let t = ductline::trace::trace(&st, &seeds_lm, step_deg).map_err(|e| anyhow::anyhow!("{}: {e}", seeds.display()))?;
+    project::write_atomic(out, ductline::trace::to_csv(&seeds_lm, &t).as_bytes())?;
+    let low = t.proposed.iter().filter(|p| p.confidence < 0.5).count();
+    eprintln!(
+        "proposed {} landmarks to {:.0}° ({:.2} turns); stopped: {}; {low} below confidence 0.5",
+        t.proposed.len(),
+        t.stopped_deg,
+        t.stopped_deg / 360.0,
+        t.reason
+    );
+    eprintln!("wrote {}", out.display());
     Ok(())
 }

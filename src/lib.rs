@@ -29,6 +29,7 @@ pub mod section;
 pub mod spiral;
 pub mod spline;
 pub mod stack;
+pub mod trace;
 pub mod vtk;
 
 pub use error::{Error, Result};

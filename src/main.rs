@@ -15,6 +15,7 @@ fn main() -> ExitCode {
         Some(Cmd::Inspect { stack, voxel_um, bin, crop }) => cli::inspect(&stack, voxel_um, bin, crop),
         Some(Cmd::Phantom(a)) => cli::make_phantom(a),
         Some(Cmd::Measure(a)) => cli::measure(a),
+        Some(Cmd::Trace { stack, seeds, out, step_deg, voxel_um }) => cli::trace(&stack, &seeds, &out, step_deg, voxel_um),
         Some(Cmd::Batch { list, out_dir, step_mm, species }) => cli::batch(&list, &out_dir, step_mm, species),
     };
     match res {

@@ -1,0 +1,350 @@
+//! Assisted tracing: from seven points (the axis, the window, two lamina and two ligament points
+//! near the base) the lamina tips and ligament points are proposed along the whole spiral.
+//!
+//! The duct is followed apically in radial cuts (half-planes through the modiolar axis), one
+//! every `step_deg`. Each step is predicted from the points so far (a straight line in θ through
+//! the last three, for radius and height of each edge) and searched near the prediction:
+//!
+//! 1. the partition's height: in each column of the cut between the predicted edges, the height
+//!    of the strongest bright ridge between darker fluid above and below (the bony shelf, or the
+//!    membrane where it shows); their median;
+//! 2. the ligament point: along the partition, outward, the first clear rise out of the lumen
+//!    (fluid into the spiral ligament or the wall), at its half level;
+//! 3. the lamina tip: along the partition, where the ridge falls from the shelf's level to the
+//!    lumen's, at its half level, nearest the prediction.
+//!
+//! Each proposed point carries a confidence (the partition's and the duct's contrast against the
+//! noise, lowered by a jump from the prediction). Tracing stops where the duct is lost — too
+//! narrow, too little contrast twice running, or the cut leaves the stack — and says at what angle
+//! and why.
+
+use crate::frame::{Frame, Handedness};
+use crate::landmarks::{Kind, Landmark};
+use crate::stack::Stack;
+use crate::{Error, Result};
+
+/// A proposed landmark and how sure the tracer is of it (0–1).
+#[derive(Clone, Copy, Debug, PartialEq)]
+pub struct Proposed {
+    pub lm: Landmark,
+    pub confidence: f64,
+    /// Unwrapped angle (degrees).
+    pub angle_deg: f64,
+}
+
+/// What a trace found.
+#[derive(Clone, Debug)]
+pub struct Trace {
+    /// The frame the seeds set (handedness from the seeds' side of the window).
+    pub frame: Frame,
+    pub proposed: Vec<Proposed>,
+    /// The last angle reached (degrees) and why tracing stopped there.
+    pub stopped_deg: f64,
+    pub reason: String,
+}
+
+/// One edge point in cochlear coordinates.
+#[derive(Clone, Copy, Debug)]
+struct Edge {
+    angle: f64,
+    r: f64,
+    h: f64,
+}
+
+/// Values of the radial cut at `angle_deg`: `nr` × `nh` samples from (r0, h0) every `pitch` mm.
+struct Cut {
+    r0: f64,
+    h0: f64,
+    pitch: f64,
+    nr: usize,
+    nh: usize,
+    v: Vec<f32>,
+}
+
+impl Cut {
+    fn new(stack: &Stack, f: &Frame, angle_deg: f64, r: [f64; 2], h: [f64; 2], pitch: f64) -> Cut {
+        let nr = ((r[1] - r[0]) / pitch).ceil().max(2.0) as usize;
+        let nh = ((h[1] - h[0]) / pitch).ceil().max(2.0) as usize;
+        let mut v = Vec::with_capacity(nr * nh);
+        for j in 0..nh {
+            for i in 0..nr {
+                let p = f.to_stack(r[0] + i as f64 * pitch, angle_deg, h[0] + j as f64 * pitch);
+                v.push(if stack.contains_mm(p) { stack.sample_mm(p) } else { f32::NAN });
+            }
+        }
+        Cut { r0: r[0], h0: h[0], pitch, nr, nh, v }
+    }
+    fn at(&self, i: usize, j: usize) -> f32 {
+        self.v[j * self.nr + i]
+    }
+    fn col(&self, r: f64) -> usize {
+        (((r - self.r0) / self.pitch).round().max(0.0) as usize).min(self.nr - 1)
+    }
+    fn row(&self, h: f64) -> usize {
+        (((h - self.h0) / self.pitch).round().max(0.0) as usize).min(self.nh - 1)
+    }
+}
+
+fn median(v: &mut [f64]) -> f64 {
+    if v.is_empty() {
+        return f64::NAN;
+    }
+    v.sort_by(f64::total_cmp);
+    v[v.len() / 2]
+}
+
+/// Straight-line prediction at `a` from the last three points (least squares in θ).
+fn predict(pts: &[Edge], a: f64) -> Edge {
+    let tail = &pts[pts.len().saturating_sub(3)..];
+    let n = tail.len() as f64;
+    let ma = tail.iter().map(|e| e.angle).sum::<f64>() / n;
+    let saa: f64 = tail.iter().map(|e| (e.angle - ma).powi(2)).sum();
+    let line = |g: &dyn Fn(&Edge) -> f64| {
+        let mg = tail.iter().map(g).sum::<f64>() / n;
+        let slope = if saa > 0.0 { tail.iter().map(|e| (e.angle - ma) * (g(e) - mg)).sum::<f64>() / saa } else { 0.0 };
+        mg + slope * (a - ma)
+    };
+    Edge { angle: a, r: line(&|e| e.r.ln()).exp(), h: line(&|e| e.h) }
+}
+
+/// Proposes lamina and ligament landmarks along the spiral from `seeds` (axis_base, axis_apex,
+/// window, and at least two lamina and two ligament points near the base), every `step_deg`.
+///
+/// The returned proposals exclude the seeds; `stopped_deg` and `reason` say where and why the
+/// trace ended.
+pub fn trace(stack: &Stack, seeds: &[Landmark], step_deg: f64) -> Result<Trace> {
+    let vox = stack.voxel()?;
+    if !(step_deg >= 1.0 && step_deg <= 45.0) {
+        return Err(Error::invalid(format!("the trace step must lie within 1…45°, got {step_deg}°")));
+    }
+    let one = |k: Kind| crate::landmarks::single(seeds, k);
+    let (b, a, w) = (one(Kind::AxisBase)?, one(Kind::AxisApex)?, one(Kind::Window)?);
+    // handedness: the seeds lie just past the window, at small positive angles
+    let right = Frame::new(b, a, w, Handedness::Right)?;
+    let side: f64 = seeds.iter().filter(|l| matches!(l.kind, Kind::Lamina | Kind::Ligament)).map(|l| right.to_cochlear(l.p)[1].signum()).sum();
+    let frame = Frame::new(b, a, w, if side >= 0.0 { Handedness::Right } else { Handedness::Left })?;
+    let edges = |k: Kind| -> Vec<Edge> {
+        let mut v: Vec<Edge> = seeds
+            .iter()
+            .filter(|l| l.kind == k)
+            .map(|l| {
+                let c = frame.to_cochlear(l.p);
+                Edge { angle: c[1], r: c[0], h: c[2] }
+            })
+            .collect();
+        v.sort_by(|x, y| x.angle.total_cmp(&y.angle));
+        v
+    };
+    let (mut lam, mut lig) = (edges(Kind::Lamina), edges(Kind::Ligament));
+    if lam.len() < 2 || lig.len() < 2 {
+        return Err(Error::invalid(format!("tracing needs at least two lamina and two ligament seeds near the base; got {} and {}", lam.len(), lig.len())));
+    }
+    let vmax = vox.max();
+    let pitch = 0.5 * vox.min();
+    let mut proposed = vec![];
+    let start = lam.last().unwrap().angle.max(lig.last().unwrap().angle);
+    let mut angle = start;
+    let mut weak = 0;
+    let (reason, stopped) = loop {
+        angle += step_deg;
+        if angle > 2000.0 {
+            break ("six turns traced; stopped".to_string(), angle - step_deg);
+        }
+        let (pl, pg) = (predict(&lam, angle), predict(&lig, angle));
+        let width = pg.r - pl.r;
+        if width < 3.0 * vmax {
+            break (format!("the predicted partition is under three voxels wide ({:.3} mm)", width), angle - step_deg);
+        }
+        // the cut: from the lamina's inner side to beyond the ligament, a duct height about
+        let hp = 0.5 * (pl.h + pg.h);
+        let (span_in, span_out) = (1.2 * width, 0.6 * width + 4.0 * vmax);
+        let half_h = 0.9 * width + 4.0 * vmax;
+        let cut = Cut::new(stack, &frame, angle, [(pl.r - span_in).max(0.0), pg.r + span_out], [hp - half_h, hp + half_h], pitch);
+        let found = find(&cut, pl, pg, vmax);
+        if std::env::var("DL_TRACE").is_ok() {
+            eprintln!("{angle:.0}: pred lam {:.3},{:.3} lig {:.3},{:.3} -> {:?}", pl.r, pl.h, pg.r, pg.h, found.as_ref().map(|(l, g, c)| (l.r, g.r, l.h, *c)));
+        }
+        match found {
+            Ok((l, g, conf)) => {
+                // a point far from its prediction is less sure
+                let jump = ((l.r - pl.r).abs().max((g.r - pg.r).abs()).max((l.h - pl.h).abs()) / (0.25 * width)).powi(2);
+                let conf = conf * (-jump).exp();
+                if conf < 0.2 {
+                    weak += 1;
+                    if weak >= 2 {
+                        break ("the partition's contrast is lost (confidence under 0.2 twice running)".to_string(), angle - 2.0 * step_deg);
+                    }
+                    continue;
+                }
+                weak = 0;
+                for (e, kind) in [(l, Kind::Lamina), (g, Kind::Ligament)] {
+                    let p = frame.to_stack(e.r, e.angle, e.h);
+                    if !stack.contains_mm(p) {
+                        return Ok(Trace { frame, proposed, stopped_deg: angle - step_deg, reason: "the spiral leaves the stack".into() });
+                    }
+                    proposed.push(Proposed { lm: Landmark { kind, p }, confidence: conf, angle_deg: angle });
+                }
+                lam.push(l);
+                lig.push(g);
+            }
+            Err(why) => {
+                weak += 1;
+                if weak >= 2 {
+                    break (why, angle - 2.0 * step_deg);
+                }
+            }
+        }
+    };
+    // a last step that only half-convinced is dropped with the stop
+    Ok(Trace { frame, proposed, stopped_deg: stopped.max(start), reason })
+}
+
+/// The lamina tip, the ligament point and a confidence in one cut, given their predictions.
+fn find(cut: &Cut, pl: Edge, pg: Edge, vmax: f64) -> std::result::Result<(Edge, Edge, f64), String> {
+    let width = pg.r - pl.r;
+    let d = ((1.5 * vmax) / cut.pitch).round().max(2.0) as usize; // ridge flank offset (rows)
+    let band = ((0.2 * width + vmax) / cut.pitch).ceil() as usize;
+    let hp = 0.5 * (pl.h + pg.h);
+    let j0 = cut.row(hp);
+    if cut.v.iter().any(|x| x.is_nan()) && cut.v.iter().filter(|x| x.is_nan()).count() * 4 > cut.v.len() {
+        return Err("the cut leaves the stack".into());
+    }
+    // 1. partition height: ridge rows in the columns between the edges
+    let (ca, cb) = (cut.col(pl.r - 0.3 * width), cut.col(pg.r - 0.1 * width));
+    let ridge = |i: usize, j: usize| -> f64 {
+        if j < d || j + d >= cut.nh {
+            return f64::NAN;
+        }
+        (cut.at(i, j) as f64) - 0.5 * (cut.at(i, j - d) as f64 + cut.at(i, j + d) as f64)
+    };
+    let mut rows = vec![];
+    let mut strengths = vec![];
+    for i in ca..=cb {
+        let best = (j0.saturating_sub(band)..=(j0 + band).min(cut.nh - 1)).filter_map(|j| Some((j, ridge(i, j))).filter(|x| x.1.is_finite())).max_by(|a, b| a.1.total_cmp(&b.1));
+        if let Some((j, s)) = best {
+            rows.push(j as f64);
+            strengths.push(s);
+        }
+    }
+    if rows.len() < 3 {
+        return Err("no partition found in the cut".into());
+    }
+    let jp = median(&mut rows.clone()).round() as usize;
+    let h = cut.h0 + jp as f64 * cut.pitch;
+    // levels: the lumen from just above and below the partition in the middle of the duct, the
+    // noise from their spread
+    let mid = cut.col(0.5 * (pl.r + pg.r));
+    let wide = ((0.15 * width) / cut.pitch).round().max(3.0) as usize;
+    let mut fluid: Vec<f64> = vec![];
+    let mut diffs: Vec<f64> = vec![];
+    for j in [jp.saturating_sub(3 * d), jp.saturating_sub(2 * d), (jp + 2 * d).min(cut.nh - 1), (jp + 3 * d).min(cut.nh - 1)] {
+        for i in mid.saturating_sub(wide)..(mid + wide).min(cut.nr - 1) {
+            let (a, b) = (cut.at(i, j) as f64, cut.at(i + 1, j) as f64);
+            if a.is_finite() && b.is_finite() {
+                fluid.push(a);
+                diffs.push((a - b).abs());
+            }
+        }
+    }
+    if fluid.len() < 8 {
+        return Err("the cut leaves the stack".into());
+    }
+    let lumen = median(&mut fluid);
+    // the noise from neighbour differences (robust to slow shading): MAD-based σ of a difference / √2
+    let noise = (1.4826 * median(&mut diffs) / std::f64::consts::SQRT_2).max(1e-6);
+    // 2. ligament: the mean of the partition's rows (±1 voxel) outward from the middle; the
+    // first clear rise
+    let rows_pm = (vmax / cut.pitch).round() as usize;
+    let along = |i: usize| -> f64 {
+        let js = jp.saturating_sub(rows_pm)..=(jp + rows_pm).min(cut.nh - 1);
+        let n = js.clone().count() as f64;
+        js.map(|j| cut.at(i, j) as f64).sum::<f64>() / n
+    };
+    let raw: Vec<f64> = (0..cut.nr).map(along).collect();
+    // a little smoothing along r (three samples)
+    let prof: Vec<f64> = (0..cut.nr).map(|i| (raw[i.saturating_sub(1)] + raw[i] + raw[(i + 1).min(cut.nr - 1)]) / 3.0).collect();
+    let (ga, gb) = (cut.col(0.5 * (pl.r + pg.r)), cut.col(pg.r + 0.35 * width));
+    let pmax = prof[ga..=gb].iter().cloned().filter(|x| x.is_finite()).fold(f64::NEG_INFINITY, f64::max);
+    let rows_n = (2 * rows_pm + 1) as f64;
+    // the first clear rise out of the fluid: above the lumen by three noise widths of the
+    // averaged profile and an eighth of the way to the brightest wall, for two voxels on
+    let rise = lumen + (3.0 * noise / (3.0 * rows_n).sqrt()).max(0.12 * (pmax - lumen));
+    let vox_n = ((vmax / cut.pitch).round() as usize).max(1);
+    let Some(gi) = (ga..=gb).find(|&i| (i..(i + 2 * vox_n).min(cut.nr)).all(|k| prof[k] > rise)) else {
+        return Err("no lateral wall found along the partition".into());
+    };
+    // the level beyond the rise: where it levels off (the spiral ligament's, or the wall's) within
+    // three voxels
+    let grad = |i: usize| 0.5 * (prof[(i + 1).min(cut.nr - 1)] - prof[i.saturating_sub(1)]);
+    let steep = (gi..(gi + 3 * vox_n).min(cut.nr)).map(grad).fold(0.0, f64::max);
+    let flat = (gi..(gi + 3 * vox_n).min(cut.nr)).find(|&i| i > gi && grad(i) < 0.25 * steep).unwrap_or((gi + 3 * vox_n).min(cut.nr - 1));
+    let top = prof[flat];
+    let half = 0.5 * (lumen + top);
+    let mut rg = cut.r0 + gi as f64 * cut.pitch;
+    for i in (ga.max(1)..=flat).rev() {
+        if prof[i - 1] < half && prof[i] >= half {
+            let t = (half - prof[i - 1]) / (prof[i] - prof[i - 1]);
+            rg = cut.r0 + (i as f64 - 1.0 + t) * cut.pitch;
+            break;
+        }
+    }
+    // 3. lamina tip: the ridge along the partition falls from the shelf to the lumen
+    // brightness over the darker side (the limbus may pad the shelf's other side), smoothed over
+    // five samples along r
+    let over = |i: usize, j: usize| -> f64 {
+        if j < d || j + d >= cut.nh {
+            return f64::NAN;
+        }
+        (cut.at(i, j) as f64) - (cut.at(i, j - d) as f64).min(cut.at(i, j + d) as f64)
+    };
+    let bright: Vec<f64> = (0..cut.nr)
+        .map(|i| (jp.saturating_sub(rows_pm)..=(jp + rows_pm).min(cut.nh - 1)).map(|j| over(i, j)).filter(|x| x.is_finite()).fold(f64::NAN, f64::max))
+        .collect();
+    let shelf: Vec<f64> = (0..cut.nr).map(|i| median(&mut (i.saturating_sub(2)..=(i + 2).min(cut.nr - 1)).map(|k| bright[k]).collect::<Vec<_>>())).collect();
+    let (la, lb) = (cut.col(pl.r - 0.3 * width), cut.col(pl.r + 0.3 * width).min(cut.col(rg) - 1));
+    if lb <= la + 2 {
+        return Err("the lamina and the ligament run together".into());
+    }
+    let inner: Vec<f64> = shelf[la..=cut.col(pl.r - 0.05 * width).max(la)].iter().cloned().filter(|x| x.is_finite()).collect();
+    let outer: Vec<f64> = shelf[cut.col(pl.r + 0.15 * width).min(lb)..=cut.col(rg - 0.1 * width).max(lb)].iter().cloned().filter(|x| x.is_finite()).collect();
+    let (s_in, s_out) = (median(&mut inner.clone()), median(&mut outer.clone()));
+    if !(s_in - s_out > 2.0 * noise) {
+        return Err("no bony shelf found along the partition".into());
+    }
+    let half = 0.5 * (s_in + s_out);
+    // crossings from above to below half, nearest the prediction
+    let want = (pl.r - cut.r0) / cut.pitch;
+    let mut best: Option<f64> = None;
+    for i in la..lb {
+        let (p, q) = (shelf[i], shelf[i + 1]);
+        if p >= half && q < half {
+            let x = i as f64 + (p - half) / (p - q);
+            if best.is_none_or(|b| (x - want).abs() < (b - want).abs()) {
+                best = Some(x);
+            }
+        }
+    }
+    let Some(x) = best else { return Err("the end of the bony shelf is not clear".into()) };
+    let rl = cut.r0 + x * cut.pitch;
+    // confidence: the partition's ridge and the wall's rise against the noise
+    let ridge_snr = median(&mut strengths.clone()) / noise;
+    let wall_snr = (top - lumen) / noise;
+    let conf = (ridge_snr / 4.0).min(1.0) * (wall_snr / 6.0).min(1.0) * ((s_in - s_out) / (4.0 * noise)).min(1.0);
+    if std::env::var("DL_TRACE").is_ok() {
+        eprintln!("   ridge {ridge_snr:.1} wall {wall_snr:.1} shelf {:.1} noise {noise:.1}", (s_in - s_out) / noise);
+    }
+    Ok((Edge { angle: pl.angle, r: rl, h }, Edge { angle: pg.angle, r: rg, h }, conf.max(0.0)))
+}
+
+/// The landmark CSV of a trace: the seeds (confidence 1) then the proposals, with `confidence`
+/// and `source` (seed or proposed) columns after the four the format requires.
+pub fn to_csv(seeds: &[Landmark], t: &Trace) -> String {
+    let mut s = String::from("kind,x_mm,y_mm,z_mm,confidence,source\n");
+    for l in seeds {
+        s.push_str(&format!("{},{:.6},{:.6},{:.6},1,seed\n", l.kind.as_str(), l.p[0], l.p[1], l.p[2]));
+    }
+    for p in &t.proposed {
+        s.push_str(&format!("{},{:.6},{:.6},{:.6},{:.3},proposed\n", p.lm.kind.as_str(), p.lm.p[0], p.lm.p[1], p.lm.p[2], p.confidence));
+    }
+    s
+}
