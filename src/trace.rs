@@ -3,11 +3,11 @@
 //!
 //! The duct is followed apically in radial cuts (half-planes through the modiolar axis), one
 //! every `step_deg`. Each step is predicted from the points so far (a straight line in θ through
-//! the last three, for radius and height of each edge) and searched near the prediction:
+//! the last four, for the log radius and the height of each edge) and searched near the prediction:
 //!
-//! 1. the partition's height: in each column of the cut between the predicted edges, the height
-//!    of the strongest bright ridge between darker fluid above and below (the bony shelf, or the
-//!    membrane where it shows); their median;
+//! 1. the partition's height: in each column of the cut just inside the predicted lamina tip, the
+//!    height of the strongest bright ridge between darker fluid above and below (the bony shelf's
+//!    outer end); their median;
 //! 2. the ligament point: along the partition, outward, the first clear rise out of the lumen
 //!    (fluid into the spiral ligament or the wall), at its half level;
 //! 3. the lamina tip: along the partition, where the ridge falls from the shelf's level to the
@@ -15,7 +15,7 @@
 //!
 //! Each proposed point carries a confidence (the partition's and the duct's contrast against the
 //! noise, lowered by a jump from the prediction). Tracing stops where the duct is lost — too
-//! narrow, too little contrast twice running, or the cut leaves the stack — and says at what angle
+//! narrow, too little contrast three steps running, or the cut leaves the stack — and says at what angle
 //! and why.
 
 use crate::frame::{Frame, Handedness};
@@ -93,9 +93,9 @@ fn median(v: &mut [f64]) -> f64 {
     v[v.len() / 2]
 }
 
-/// Straight-line prediction at `a` from the last three points (least squares in θ).
+/// Straight-line prediction at `a` from the last four points (least squares in θ; radius on a log scale).
 fn predict(pts: &[Edge], a: f64) -> Edge {
-    let tail = &pts[pts.len().saturating_sub(3)..];
+    let tail = &pts[pts.len().saturating_sub(4)..];
     let n = tail.len() as f64;
     let ma = tail.iter().map(|e| e.angle).sum::<f64>() / n;
     let saa: f64 = tail.iter().map(|e| (e.angle - ma).powi(2)).sum();
@@ -145,15 +145,17 @@ pub fn trace(stack: &Stack, seeds: &[Landmark], step_deg: f64) -> Result<Trace> 
     let start = lam.last().unwrap().angle.max(lig.last().unwrap().angle);
     let mut angle = start;
     let mut weak = 0;
+    // the last angle with accepted points
+    let mut last_ok = start;
     let (reason, stopped) = loop {
         angle += step_deg;
         if angle > 2000.0 {
-            break ("six turns traced; stopped".to_string(), angle - step_deg);
+            break ("six turns traced; stopped".to_string(), last_ok);
         }
         let (pl, pg) = (predict(&lam, angle), predict(&lig, angle));
         let width = pg.r - pl.r;
         if width < 3.0 * vmax {
-            break (format!("the predicted partition is under three voxels wide ({:.3} mm)", width), angle - step_deg);
+            break (format!("the predicted partition is under three voxels wide ({:.3} mm)", width), last_ok);
         }
         // the cut: from the lamina's inner side to beyond the ligament, a duct height about
         let hp = 0.5 * (pl.h + pg.h);
@@ -166,13 +168,14 @@ pub fn trace(stack: &Stack, seeds: &[Landmark], step_deg: f64) -> Result<Trace> 
         }
         match found {
             Ok((l, g, conf)) => {
-                // a point far from its prediction is less sure
-                let jump = ((l.r - pl.r).abs().max((g.r - pg.r).abs()).max((l.h - pl.h).abs()) / (0.25 * width)).powi(2);
-                let conf = conf * (-jump).exp();
-                if conf < 0.2 {
+                // a point far from its prediction is less sure; one over a fifth of the width off
+                // is not taken (the spiral changes slowly between steps)
+                let off = (l.r - pl.r).abs().max((g.r - pg.r).abs()).max((l.h - pl.h).abs()) / width;
+                let conf = conf * (-(off / 0.12).powi(2)).exp();
+                if conf < 0.2 || off > 0.2 {
                     weak += 1;
-                    if weak >= 2 {
-                        break ("the partition's contrast is lost (confidence under 0.2 twice running)".to_string(), angle - 2.0 * step_deg);
+                    if weak >= 3 {
+                        break ("the partition is lost (confidence under 0.2, or far from its prediction, three steps running)".to_string(), last_ok);
                     }
                     continue;
                 }
@@ -180,22 +183,22 @@ pub fn trace(stack: &Stack, seeds: &[Landmark], step_deg: f64) -> Result<Trace> 
                 for (e, kind) in [(l, Kind::Lamina), (g, Kind::Ligament)] {
                     let p = frame.to_stack(e.r, e.angle, e.h);
                     if !stack.contains_mm(p) {
-                        return Ok(Trace { frame, proposed, stopped_deg: angle - step_deg, reason: "the spiral leaves the stack".into() });
+                        return Ok(Trace { frame, proposed, stopped_deg: last_ok, reason: "the spiral leaves the stack".into() });
                     }
                     proposed.push(Proposed { lm: Landmark { kind, p }, confidence: conf, angle_deg: angle });
                 }
                 lam.push(l);
                 lig.push(g);
+                last_ok = angle;
             }
             Err(why) => {
                 weak += 1;
-                if weak >= 2 {
-                    break (why, angle - 2.0 * step_deg);
+                if weak >= 3 {
+                    break (why, last_ok);
                 }
             }
         }
     };
-    // a last step that only half-convinced is dropped with the stop
     Ok(Trace { frame, proposed, stopped_deg: stopped.max(start), reason })
 }
 
@@ -203,14 +206,16 @@ pub fn trace(stack: &Stack, seeds: &[Landmark], step_deg: f64) -> Result<Trace> 
 fn find(cut: &Cut, pl: Edge, pg: Edge, vmax: f64) -> std::result::Result<(Edge, Edge, f64), String> {
     let width = pg.r - pl.r;
     let d = ((1.5 * vmax) / cut.pitch).round().max(2.0) as usize; // ridge flank offset (rows)
-    let band = ((0.2 * width + vmax) / cut.pitch).ceil() as usize;
+    let band = ((0.1 * width + vmax) / cut.pitch).ceil() as usize;
     let hp = 0.5 * (pl.h + pg.h);
     let j0 = cut.row(hp);
     if cut.v.iter().any(|x| x.is_nan()) && cut.v.iter().filter(|x| x.is_nan()).count() * 4 > cut.v.len() {
         return Err("the cut leaves the stack".into());
     }
-    // 1. partition height: ridge rows in the columns between the edges
-    let (ca, cb) = (cut.col(pl.r - 0.3 * width), cut.col(pg.r - 0.1 * width));
+    // 1. partition height: ridge rows in the columns of the shelf's outer end, just inside the
+    // predicted tip (past the limbus, which pads the shelf's inner part; the membrane beyond the
+    // tip is too thin to show)
+    let (ca, cb) = (cut.col(pl.r - (0.15 * width).max(2.0 * vmax)), cut.col(pl.r - 0.02 * width));
     let ridge = |i: usize, j: usize| -> f64 {
         if j < d || j + d >= cut.nh {
             return f64::NAN;
