@@ -162,11 +162,7 @@ pub fn trace(stack: &Stack, seeds: &[Landmark], step_deg: f64) -> Result<Trace> 
         let (span_in, span_out) = (1.2 * width, 0.6 * width + 4.0 * vmax);
         let half_h = 0.9 * width + 4.0 * vmax;
         let cut = Cut::new(stack, &frame, angle, [(pl.r - span_in).max(0.0), pg.r + span_out], [hp - half_h, hp + half_h], pitch);
-        let found = find(&cut, pl, pg, vmax);
-        if std::env::var("DL_TRACE").is_ok() {
-            eprintln!("{angle:.0}: pred lam {:.3},{:.3} lig {:.3},{:.3} -> {:?}", pl.r, pl.h, pg.r, pg.h, found.as_ref().map(|(l, g, c)| (l.r, g.r, l.h, *c)));
-        }
-        match found {
+        match find(&cut, pl, pg, vmax) {
             Ok((l, g, conf)) => {
                 // a point far from its prediction is less sure; one over a fifth of the width off
                 // is not taken (the spiral changes slowly between steps)
@@ -225,7 +221,9 @@ fn find(cut: &Cut, pl: Edge, pg: Edge, vmax: f64) -> std::result::Result<(Edge, 
     let mut rows = vec![];
     let mut strengths = vec![];
     for i in ca..=cb {
-        let best = (j0.saturating_sub(band)..=(j0 + band).min(cut.nh - 1)).filter_map(|j| Some((j, ridge(i, j))).filter(|x| x.1.is_finite())).max_by(|a, b| a.1.total_cmp(&b.1));
+        let best = (j0.saturating_sub(band)..=(j0 + band).min(cut.nh - 1))
+            .filter_map(|j| Some((j, ridge(i, j))).filter(|x| x.1.is_finite()))
+            .max_by(|a, b| a.1.total_cmp(&b.1));
         if let Some((j, s)) = best {
             rows.push(j as f64);
             strengths.push(s);
@@ -335,9 +333,6 @@ fn find(cut: &Cut, pl: Edge, pg: Edge, vmax: f64) -> std::result::Result<(Edge, 
     let ridge_snr = median(&mut strengths.clone()) / noise;
     let wall_snr = (top - lumen) / noise;
     let conf = (ridge_snr / 4.0).min(1.0) * (wall_snr / 6.0).min(1.0) * ((s_in - s_out) / (4.0 * noise)).min(1.0);
-    if std::env::var("DL_TRACE").is_ok() {
-        eprintln!("   ridge {ridge_snr:.1} wall {wall_snr:.1} shelf {:.1} noise {noise:.1}", (s_in - s_out) / noise);
-    }
     Ok((Edge { angle: pl.angle, r: rl, h }, Edge { angle: pg.angle, r: rg, h }, conf.max(0.0)))
 }
 

@@ -251,3 +251,37 @@ fn batch_goes_on_past_a_broken_specimen() {
     }
     assert!(!out.join("broken").join("table.csv").exists());
 }
+
+/// `trace` from seven seeds writes a landmark file (seeds included, with confidence and source
+/// columns) that `measure` takes as it is; bad seeds are a one-line error naming the file.
+#[test]
+fn trace_then_measure() {
+    let dir = tempfile::tempdir().unwrap();
+    let d = dir.path();
+    let o = ductline(&["phantom", s(&d.join("p")), "--voxel-um", "60"]);
+    assert!(o.status.success(), "{}", stderr(&o));
+    let text = std::fs::read_to_string(d.join("p/landmarks.csv")).unwrap();
+    let mut lines: Vec<&str> = text.lines().take(1).collect();
+    for k in ["axis_base", "axis_apex", "window"] {
+        lines.extend(text.lines().filter(|l| l.starts_with(k)));
+    }
+    for k in ["lamina", "ligament"] {
+        lines.extend(text.lines().filter(|l| l.starts_with(k)).take(2));
+    }
+    let seeds = d.join("seeds.csv");
+    std::fs::write(&seeds, lines.join("\n")).unwrap();
+    let traced = d.join("traced.csv");
+    let o = ductline(&["trace", "--stack", s(&d.join("p/phantom.tif")), "--seeds", s(&seeds), "--out", s(&traced)]);
+    assert!(o.status.success(), "{}", stderr(&o));
+    assert!(stderr(&o).contains("stopped:"), "{}", stderr(&o));
+    let (head, rows) = read_csv(&traced);
+    assert_eq!(head, ["kind", "x_mm", "y_mm", "z_mm", "confidence", "source"]);
+    assert!(rows.len() > 150 && rows.iter().filter(|r| r[5] == "seed").count() == 7);
+    let o = ductline(&["measure", "--stack", s(&d.join("p/phantom.tif")), "--landmarks", s(&traced), "--out", s(&d.join("t.csv")), "--step-mm", "0.25"]);
+    assert!(o.status.success(), "{}", stderr(&o));
+    // one lamina seed only: refused, named
+    std::fs::write(&seeds, lines[..lines.len() - 3].join("\n")).unwrap();
+    let o = ductline(&["trace", "--stack", s(&d.join("p/phantom.tif")), "--seeds", s(&seeds), "--out", s(&traced)]);
+    let e = failure(&o);
+    assert!(e.contains("seeds.csv") && e.contains("two lamina and two ligament"), "{e}");
+}

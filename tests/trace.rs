@@ -18,10 +18,7 @@ fn seeds(ph: &Phantom) -> Vec<Landmark> {
 /// Distance (mm) from a stack point to the phantom's true edge curve of `kind`.
 fn off_curve(ph: &Phantom, kind: Kind, p: [f64; 3], near_deg: f64) -> f64 {
     let q = ph.placement.to_local(p);
-    (-400..=400)
-        .map(|k| (near_deg + k as f64 * 0.05).to_radians())
-        .map(|t| ductline::frame::v3::dist(q, ph.spec.edge(kind, t)))
-        .fold(f64::INFINITY, f64::min)
+    (-400..=400).map(|k| (near_deg + k as f64 * 0.05).to_radians()).map(|t| ductline::frame::v3::dist(q, ph.spec.edge(kind, t))).fold(f64::INFINITY, f64::min)
 }
 
 fn quantile(v: &mut [f64], q: f64) -> f64 {
@@ -49,14 +46,75 @@ fn run(spec: PhantomSpec) -> (f64, f64, f64) {
     (med, p95, depth)
 }
 
+/// From seven points, on the default phantom and on family members at 30–50 µm (thin shelf
+/// tapering toward the apex, limbus, ligament, scanner effects; left and right ears): the
+/// proposals lie within 1 voxel (median) and 2 voxels (p95) of the true edge curves and reach at
+/// least 95 % of the true angular depth. Member 8 (35 × 35 × 50 µm, tilted) is traced and printed
+/// but not held: the tracer loses it part-way today (the README says so).
 #[test]
 fn proposals_follow_the_true_edges() {
-    run(PhantomSpec { voxel_um: [40.0; 3], ..Default::default() });
     let only: Option<u64> = std::env::var("DL_ONLY").ok().and_then(|x| x.parse().ok());
+    let mut cases = vec![(None, PhantomSpec { voxel_um: [40.0; 3], ..Default::default() })];
     for (n, v) in [(3, [50.0; 3]), (7, [40.0; 3]), (10, [30.0; 3]), (8, [35.0, 35.0, 50.0])] {
-        if only.is_some_and(|o| o != n) {
+        cases.push((Some(n), PhantomSpec { truth_step_deg: 30.0, ..PhantomSpec::variant(n, v) }));
+    }
+    for (n, spec) in cases {
+        if only.is_some_and(|o| Some(o) != n) {
             continue;
         }
-        run(PhantomSpec { truth_step_deg: 30.0, ..PhantomSpec::variant(n, v) });
+        let (med, p95, depth) = run(spec);
+        if n == Some(8) {
+            continue;
+        }
+        assert!(med <= 1.0 && p95 <= 2.0, "member {n:?}: off the edges median {med:.2}, p95 {p95:.2} voxels");
+        assert!(depth >= 0.95, "member {n:?}: reached {:.0} % of the depth", 100.0 * depth);
+    }
+}
+
+/// The proposals (seeds included) written as an ordinary landmark CSV measure like the truth:
+/// the default phantom at 40 µm, length within 0.5 % and SV/ST areas within 1.5 % (median) and 4 %
+/// (p95) of the analytic truth over the sections at least 30° from either end.
+#[test]
+fn proposals_measure_like_the_truth() {
+    let spec = PhantomSpec { voxel_um: [40.0; 3], truth_step_deg: 5.0, ..Default::default() };
+    let ph = phantom::generate(&spec, &Progress::new()).unwrap();
+    let s = seeds(&ph);
+    let t = ductline::trace::trace(&ph.stack, &s, 10.0).unwrap();
+    let text = ductline::trace::to_csv(&s, &t);
+    let lms = ductline::landmarks::parse_csv(&text, std::path::Path::new("traced.csv"), Some(&ph.stack)).unwrap();
+    assert_eq!(lms.len(), s.len() + t.proposed.len());
+    let ms = ductline::measure::MeasureSettings { step_mm: 0.25, ..Default::default() };
+    let gw = ductline::cochlea::Greenwood::preset("human").unwrap();
+    let out = ductline::pipeline::run(&ph.stack, &lms, &ductline::centreline::FitSettings::default(), &ms, &[], &gw, &Progress::new()).unwrap();
+    // the traced depth may pass the landmarks' 900° (the phantom's duct runs on): compare over
+    // the truth's span
+    let tmax = spec.theta_max().to_degrees();
+    let truth_at = |a: f64, f: &dyn Fn(&phantom::TruthRow) -> f64| {
+        let tr = &ph.truth;
+        let k = tr.partition_point(|r| r.angle_deg < a).clamp(1, tr.len() - 1);
+        let (p, q) = (&tr[k - 1], &tr[k]);
+        f(p) + (a - p.angle_deg) / (q.angle_deg - p.angle_deg) * (f(q) - f(p))
+    };
+    let at_tmax = out.rows.iter().min_by(|a, b| (a.angle_deg - tmax).abs().total_cmp(&(b.angle_deg - tmax).abs())).unwrap();
+    let len = at_tmax.s_mm - out.rows[0].s_mm;
+    eprintln!("traced length to {tmax:.0}°: {len:.3} mm, phantom {:.3} mm", ph.length_mm);
+    assert!((len / ph.length_mm - 1.0).abs() < 0.005 + 0.25 / ph.length_mm, "length {len} vs {}", ph.length_mm);
+    for (name, get, truth) in [
+        (
+            "SV",
+            (|r: &ductline::measure::Row| r.sv.area) as fn(&ductline::measure::Row) -> Option<f64>,
+            (|t: &phantom::TruthRow| t.sv_area_mm2) as fn(&phantom::TruthRow) -> f64,
+        ),
+        ("ST", |r| r.st.area, |t| t.st_area_mm2),
+    ] {
+        let mut e: Vec<f64> = out
+            .rows
+            .iter()
+            .filter(|r| r.angle_deg >= 30.0 && r.angle_deg <= tmax - 30.0)
+            .filter_map(|r| get(r).map(|a| (a / truth_at(r.angle_deg, &truth) - 1.0).abs()))
+            .collect();
+        let (med, p95) = (quantile(&mut e, 0.5), quantile(&mut e, 0.95));
+        eprintln!("{name}: area error median {:.2} %, p95 {:.2} % over {} sections", 100.0 * med, 100.0 * p95, e.len());
+        assert!(e.len() > 100 && med <= 0.015 && p95 <= 0.04, "{name}: median {med}, p95 {p95}");
     }
 }
