@@ -114,7 +114,7 @@ fn predict(pts: &[Edge], a: f64) -> Edge {
 /// trace ended.
 pub fn trace(stack: &Stack, seeds: &[Landmark], step_deg: f64) -> Result<Trace> {
     let vox = stack.voxel()?;
-    if !(step_deg >= 1.0 && step_deg <= 45.0) {
+    if !(1.0..=45.0).contains(&step_deg) {
         return Err(Error::invalid(format!("the trace step must lie within 1…45°, got {step_deg}°")));
     }
     let one = |k: Kind| crate::landmarks::single(seeds, k);
