@@ -162,12 +162,39 @@ pub fn frame_from(items: &[Landmark]) -> Result<Frame> {
 }
 
 /// One reversible change to a landmark list.
+///
+/// ```
+/// use ductline::landmarks::{Edit, Kind, Landmark, LandmarkSet};
+/// let mut set = LandmarkSet::default();
+/// let lm = |x: f64| Landmark { kind: Kind::Lamina, p: [x, 0.0, 0.0] };
+/// // a group (an import, or a trace's proposals) is one step
+/// set.apply(Edit::Group(vec![Edit::Insert { index: 0, lm: lm(1.0) }, Edit::Insert { index: 1, lm: lm(2.0) }])).unwrap();
+/// assert_eq!(set.items.len(), 2);
+/// assert!(set.undo() && set.items.is_empty());
+/// assert!(set.redo() && set.items.len() == 2);
+/// // all or nothing: a bad index rolls back what the group had done
+/// assert!(set.apply(Edit::Group(vec![Edit::Delete { index: 0 }, Edit::Delete { index: 7 }])).is_err());
+/// assert_eq!(set.items.len(), 2);
+/// ```
 #[derive(Clone, Debug, PartialEq, Serialize, Deserialize)]
 pub enum Edit {
-    Insert { index: usize, lm: Landmark },
-    Delete { index: usize },
-    Move { index: usize, to: [f64; 3] },
-    SetKind { index: usize, kind: Kind },
+    Insert {
+        index: usize,
+        lm: Landmark,
+    },
+    Delete {
+        index: usize,
+    },
+    Move {
+        index: usize,
+        to: [f64; 3],
+    },
+    SetKind {
+        index: usize,
+        kind: Kind,
+    },
+    /// Several edits as one step (undone together), applied in order.
+    Group(Vec<Edit>),
 }
 
 /// A landmark list with an undo/redo history: every change goes through [`LandmarkSet::apply`].
@@ -257,6 +284,23 @@ impl LandmarkSet {
                 let old = l.kind;
                 l.kind = kind;
                 Edit::SetKind { index, kind: old }
+            }
+            Edit::Group(edits) => {
+                let mut inv = Vec::with_capacity(edits.len());
+                for e in edits {
+                    match self.raw(e) {
+                        Ok(i) => inv.push(i),
+                        Err(err) => {
+                            // all or nothing: the applied part is rolled back
+                            for i in inv.into_iter().rev() {
+                                let _ = self.raw(i);
+                            }
+                            return Err(err);
+                        }
+                    }
+                }
+                inv.reverse();
+                Edit::Group(inv)
             }
         })
     }

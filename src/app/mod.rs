@@ -17,7 +17,7 @@ pub mod tracing;
 
 use doc::Doc;
 use ductline::cochlea::Greenwood;
-use ductline::landmarks::{Edit, Kind};
+use ductline::landmarks::{Edit, Kind, Landmark};
 use ductline::measure::Override;
 use ductline::pipeline::Outcome;
 use ductline::project::{self, Project};
@@ -86,6 +86,8 @@ pub enum Cmd {
     ExportStlDialog,
     ExportStl(PathBuf),
     SaveFigureDialog,
+    /// Propose lamina and ligament landmarks along the spiral from those placed (seeds).
+    Trace,
     /// The duct-profile figure, as .svg or .png by the name.
     SaveFigure(PathBuf),
     Edit(Edit),
@@ -136,6 +138,8 @@ pub struct DuctApp {
     pub selected_row: Option<usize>,
     load: Option<Job<Result<Loaded, String>>>,
     run: Option<Job<Result<Outcome, String>>>,
+    /// Proposed landmarks and the trace's summary, computed in the background.
+    tracing: Option<Job<Result<(Vec<Landmark>, String), String>>>,
     overview: Option<Job<Stack>>,
     /// The system file dialog, running on its own thread, and when it was opened.
     dialog: Option<(Pending, Receiver<Option<PathBuf>>, Instant)>,
@@ -205,6 +209,7 @@ impl DuctApp {
             selected_row: None,
             load: None,
             run: None,
+            tracing: None,
             overview: None,
             dialog: None,
             in_app: None,
@@ -233,7 +238,7 @@ impl DuctApp {
 
     /// True while loading or measuring.
     pub fn busy(&self) -> bool {
-        self.load.is_some() || self.run.is_some()
+        self.load.is_some() || self.run.is_some() || self.tracing.is_some()
     }
 
     /// Finishes background work whose result has arrived.
@@ -261,6 +266,27 @@ impl DuctApp {
                     self.selected_row = self.selected_row.or(Some(0));
                 }
                 (Err(e), _) => self.status = format!("measure stopped: {e}"),
+                _ => {}
+            }
+        }
+        if let Some(res) = self.tracing.as_ref().and_then(|j| j.poll()) {
+            self.tracing = None;
+            match (res, &mut self.doc) {
+                (Ok((lms, summary)), Some(doc)) => {
+                    // the proposals are one step: a single undo takes them all back
+                    let n = doc.lms.items.len();
+                    let group = lms.into_iter().enumerate().map(|(k, lm)| Edit::Insert { index: n + k, lm }).collect();
+                    match doc.lms.apply(Edit::Group(group)) {
+                        Ok(()) => {
+                            doc.refit();
+                            doc.dirty = true;
+                            doc.stale = true;
+                            self.status = summary;
+                        }
+                        Err(e) => self.status = format!("error: {e}"),
+                    }
+                }
+                (Err(e), _) => self.status = format!("error: {e}"),
                 _ => {}
             }
         }
@@ -518,13 +544,14 @@ impl DuctApp {
                 } else {
                     ductline::landmarks::read_csv(&p, Some(&doc.stack))
                 };
-                read.map_err(|e| e.to_string()).map(|items| {
+                read.map_err(|e| e.to_string()).and_then(|items| {
                     let n = items.len();
-                    for lm in items {
-                        doc.lms.add(lm);
-                    }
+                    // one step: a single undo takes the whole import back
+                    let at = doc.lms.items.len();
+                    let group = items.into_iter().enumerate().map(|(k, lm)| Edit::Insert { index: at + k, lm }).collect();
+                    doc.lms.apply(Edit::Group(group)).map_err(|e| e.to_string())?;
                     let frame = if world { doc.stack.world.as_ref().map(|w| format!(" (world frame {})", w.frame)).unwrap_or_default() } else { String::new() };
-                    format!("imported {n} landmarks from {}{frame}", p.display())
+                    Ok(format!("imported {n} landmarks from {}{frame}", p.display()))
                 })
             }
             Cmd::ExportLandmarks(p) => ductline::landmarks::write_csv(&p, &doc.lms.items).map(|_| format!("wrote {}", p.display())).map_err(|e| e.to_string()),
@@ -545,6 +572,21 @@ impl DuctApp {
                 r
             }
             Cmd::ExportTable(p) => export_table(doc, &p),
+            Cmd::Trace => {
+                let (st, seeds) = (doc.stack.clone(), doc.lms.items.clone());
+                self.tracing = Some(Job::spawn("tracing", move |_| {
+                    let t = ductline::trace::trace(&st, &seeds, 10.0).map_err(|e| e.to_string())?;
+                    let low = t.proposed.iter().filter(|p| p.confidence < 0.5).count();
+                    let summary = format!(
+                        "proposed {} landmarks to {:.0}° (stopped: {}); {low} below confidence 0.5 — check them, ctrl+Z takes them all back",
+                        t.proposed.len(),
+                        t.stopped_deg,
+                        t.reason
+                    );
+                    Ok((t.proposed.into_iter().map(|p| p.lm).collect(), summary))
+                }));
+                Ok("tracing…".into())
+            }
             Cmd::SaveFigure(p) => match &doc.outcome {
                 Some(out) => {
                     let name = doc.project_path.as_ref().unwrap_or(&doc.stack_path).file_name().map(|n| n.to_string_lossy().to_string()).unwrap_or_default();
@@ -764,6 +806,14 @@ impl DuctApp {
                 }
                 if ui.add_enabled(r, egui::Button::new("Redo  (ctrl+shift+Z)")).clicked() {
                     cmds.push(Cmd::Redo);
+                }
+                ui.separator();
+                if ui
+                    .add_enabled(self.doc.is_some() && self.tracing.is_none(), egui::Button::new("Propose landmarks along the spiral"))
+                    .on_hover_text("From the axis, the window and at least two lamina and two ligament points near the base: lamina and ligament points every 10° up the spiral, added as one step")
+                    .clicked()
+                {
+                    cmds.push(Cmd::Trace);
                 }
             });
             ui.menu_button("Help", |ui| {

@@ -444,3 +444,39 @@ fn title_and_quit_prompt() {
     assert!(h.state().quit, "{}", h.state().status);
     assert!(!h.state().doc.as_ref().unwrap().dirty, "saved before quitting");
 }
+
+/// Edit → Propose landmarks: from seven seeds the trace adds its proposals in the background as
+/// one step (one undo takes them all back); an import is one step too.
+#[test]
+fn propose_landmarks_is_one_undo_step() {
+    let (dir, tif) = sample_copy(false);
+    let text = std::fs::read_to_string(sample_path().parent().unwrap().join("landmarks.csv")).unwrap();
+    let mut lines: Vec<&str> = text.lines().take(1).collect();
+    for k in ["axis_base", "axis_apex", "window"] {
+        lines.extend(text.lines().filter(|l| l.starts_with(k)));
+    }
+    for k in ["lamina", "ligament"] {
+        lines.extend(text.lines().filter(|l| l.starts_with(k)).take(2));
+    }
+    let seeds = dir.path().join("seeds.csv");
+    std::fs::write(&seeds, lines.join("\n")).unwrap();
+    let mut h = harness(Some(tif));
+    wait(&mut h, "the stack", |a| a.doc.is_some());
+    h.state_mut().apply(Cmd::ImportLandmarks(seeds, false));
+    h.step();
+    assert_eq!(count(&h), 7, "{}", h.state().status);
+    h.get_by_role_and_label(Role::Button, "Edit").click();
+    h.step();
+    h.step();
+    h.get_by_label("Propose landmarks along the spiral").click();
+    h.step();
+    wait(&mut h, "the trace", |a| !a.busy());
+    let n = count(&h);
+    assert!(n > 100, "{n} landmarks: {}", h.state().status);
+    assert!(h.state().status.contains("stopped"), "{}", h.state().status);
+    assert!(h.state().doc.as_ref().unwrap().fitted.is_ok(), "the proposals fit");
+    h.state_mut().apply(Cmd::Undo);
+    assert_eq!(count(&h), 7, "one undo takes the proposals back");
+    h.state_mut().apply(Cmd::Undo);
+    assert_eq!(count(&h), 0, "the import was one step");
+}
