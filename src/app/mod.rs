@@ -106,6 +106,9 @@ pub enum Cmd {
     DiscardRecovery,
 }
 
+/// A trace's proposed landmarks and its one-line summary.
+type Proposals = (Vec<Landmark>, String);
+
 /// A stack (and maybe its project) read in the background.
 pub struct Loaded {
     stack: Stack,
@@ -139,7 +142,7 @@ pub struct DuctApp {
     load: Option<Job<Result<Loaded, String>>>,
     run: Option<Job<Result<Outcome, String>>>,
     /// Proposed landmarks and the trace's summary, computed in the background.
-    tracing: Option<Job<Result<(Vec<Landmark>, String), String>>>,
+    tracing: Option<Job<Result<Proposals, String>>>,
     overview: Option<Job<Stack>>,
     /// The system file dialog, running on its own thread, and when it was opened.
     dialog: Option<(Pending, Receiver<Option<PathBuf>>, Instant)>,
