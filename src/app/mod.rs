@@ -968,7 +968,7 @@ impl DuctApp {
                 ui.strong("Section inspector");
                 cmds.extend(self.inspector.inspector_ui(ui, doc, self.selected_row));
             });
-            egui::Panel::bottom("profile").default_size(260.0).min_size(200.0).resizable(true).show(ui, |ui| {
+            egui::Panel::bottom("profile").default_size(360.0).min_size(300.0).resizable(true).show(ui, |ui| {
                 ui.strong("Duct profile");
                 let rows = doc.outcome.as_ref().map(|o| o.rows.as_slice()).unwrap_or(&[]);
                 cmds.extend(profile::profile_ui(ui, &mut self.profile, rows, self.selected_row));

@@ -89,8 +89,9 @@ fn measure_then_profile_and_inspector() {
     h.step();
     h.get_by_label_contains(&format!("section 2 of {rows}"));
     // a click in the profile plot picks the nearest section
-    let title = h.get_by_label("Duct profile").rect();
-    let pos = title.center() + egui::vec2(400.0, 130.0);
+    // inside the upper (area) plot: below the row of axis and curve switches
+    let row = h.get_by_label("x:").rect();
+    let pos = egui::pos2(row.left() + 500.0, row.bottom() + 70.0);
     h.hover_at(pos);
     h.step();
     for pressed in [true, false] {
