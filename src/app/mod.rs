@@ -960,13 +960,20 @@ impl DuctApp {
             .map(|j| (j.label.clone(), j.progress.fraction()))
             .or_else(|| self.load.as_ref().map(|j| (j.label.clone(), j.progress.fraction())));
         if let (Some(doc), Some(view)) = (self.doc.as_mut(), self.view.as_mut()) {
-            egui::Panel::left("specimen").default_size(300.0).resizable(true).show(ui, |ui| cmds.extend(self.side.side_ui(ui, doc, view, running.clone())));
-            egui::Panel::right("plan-and-section").default_size(340.0).resizable(true).show(ui, |ui| {
-                ui.strong("Plan map");
-                cmds.extend(plan::plan_ui(ui, doc, view.angle_deg));
-                ui.separator();
-                ui.strong("Section inspector");
-                cmds.extend(self.inspector.inspector_ui(ui, doc, self.selected_row));
+            // side panels scroll when the window is short (1100 × 700 and up); their width follows
+            // the window's
+            let width = ctx.content_rect().width();
+            egui::Panel::left("specimen").default_size((0.2 * width).clamp(240.0, 300.0)).resizable(true).show(ui, |ui| {
+                egui::ScrollArea::vertical().id_salt("specimen-scroll").show(ui, |ui| cmds.extend(self.side.side_ui(ui, doc, view, running.clone())));
+            });
+            egui::Panel::right("plan-and-section").default_size((0.24 * width).clamp(260.0, 340.0)).resizable(true).show(ui, |ui| {
+                egui::ScrollArea::vertical().id_salt("section-scroll").show(ui, |ui| {
+                    ui.strong("Plan map");
+                    cmds.extend(plan::plan_ui(ui, doc, view.angle_deg));
+                    ui.separator();
+                    ui.strong("Section inspector");
+                    cmds.extend(self.inspector.inspector_ui(ui, doc, self.selected_row));
+                });
             });
             egui::Panel::bottom("profile").default_size(360.0).min_size(300.0).resizable(true).show(ui, |ui| {
                 ui.strong("Duct profile");

@@ -362,7 +362,8 @@ impl View {
     }
 
     fn toolbar_ui(&mut self, ui: &mut egui::Ui, doc: &Doc) {
-        ui.horizontal(|ui| {
+        // wraps onto a second row in a narrow window
+        ui.horizontal_wrapped(|ui| {
             for (p, label, tip) in [
                 (Plane::Slice(2), "Slices (xy)", "The stack's own slices: constant slice index k (x right, y down)"),
                 (Plane::Slice(1), "Rows (xz)", "Across the slices at one image row j (x right, z down)"),
