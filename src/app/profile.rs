@@ -55,7 +55,12 @@ pub fn profile_ui(ui: &mut egui::Ui, st: &mut ProfileState, rows: &[Row], select
     // one plot per unit, stacked, sharing the x axis
     let h = ((ui.available_height() - 8.0) / 2.0).max(90.0);
     for (title, series) in [("area (mm²)", &[0usize, 1][..]), ("length (mm)", &[2usize, 3, 4][..])] {
-        let mut plot = Plot::new(("duct-profile", title)).height(h).allow_scroll(false).link_axis(egui::Id::unique("profile-x"), [true, false]).link_cursor(egui::Id::unique("profile-x"), [true, false]).y_axis_label(title);
+        let mut plot = Plot::new(("duct-profile", title))
+            .height(h)
+            .allow_scroll(false)
+            .link_axis(egui::Id::unique("profile-x"), [true, false])
+            .link_cursor(egui::Id::unique("profile-x"), [true, false])
+            .y_axis_label(title);
         plot = match x {
             XAxis::Distance => plot.x_axis_label("distance from base s (mm)"),
             XAxis::Angle => plot.x_axis_label("angle (°)"),

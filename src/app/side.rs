@@ -83,6 +83,7 @@ impl Side {
                     ui.radio_value(&mut view.active, *k, k.as_str()).on_hover_text(format!("{} (key {key})", describe(*k)));
                 });
             }
+            ui.checkbox(&mut view.alternate, "alternate lamina / ligament").on_hover_text("After placing a lamina point the next click places a ligament point, and back");
             ui.separator();
             self.landmarks_ui(ui, doc, view);
             ui.separator();

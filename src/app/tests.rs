@@ -54,6 +54,7 @@ fn open_sample_place_undo_redo() {
     h.step();
     assert_eq!(count(&h), n0 + 1, "a click places a landmark");
     assert_eq!(h.state().doc.as_ref().unwrap().lms.items.last().unwrap().kind, Kind::Ligament);
+    assert_eq!(h.state().view.as_ref().unwrap().active, Kind::Lamina, "the kinds alternate");
     assert!(h.state().doc.as_ref().unwrap().dirty);
     h.key_press_modifiers(egui::Modifiers::COMMAND, egui::Key::Z);
     h.step();
@@ -480,4 +481,24 @@ fn propose_landmarks_is_one_undo_step() {
     assert_eq!(count(&h), 7, "one undo takes the proposals back");
     h.state_mut().apply(Cmd::Undo);
     assert_eq!(count(&h), 0, "the import was one step");
+}
+
+/// ctrl+wheel zooms about the cursor: the stack point under it stays under it.
+#[test]
+fn zoom_keeps_the_point_under_the_cursor() {
+    let mut h = harness(Some(sample_path()));
+    wait(&mut h, "the sample", |a| a.doc.is_some());
+    let view = h.get_by_label("Tracing view").rect();
+    let at = view.center() + egui::vec2(view.width() * 0.2, -view.height() * 0.15);
+    h.hover_at(at);
+    h.step();
+    let before = h.state().view.as_ref().unwrap().hover.as_ref().unwrap().p;
+    h.event(egui::Event::Zoom(2.0));
+    h.step();
+    h.hover_at(at);
+    h.step();
+    let v = h.state().view.as_ref().unwrap();
+    assert!(v.zoom > 1.5, "zoomed: {}", v.zoom);
+    let after = v.hover.as_ref().unwrap().p;
+    assert!(ductline::frame::v3::dist(before, after) < 0.05, "{before:?} → {after:?}");
 }

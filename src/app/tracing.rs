@@ -63,6 +63,8 @@ pub struct View {
     wheel: f32,
     /// A menu or popup was open when this frame began: a click then only closes it.
     pub popup_was_open: bool,
+    /// After a lamina point the active kind becomes ligament, and back (one partition, two ends).
+    pub alternate: bool,
 }
 
 impl View {
@@ -81,6 +83,7 @@ impl View {
             tex: None,
             wheel: 0.0,
             popup_was_open: false,
+            alternate: true,
         }
     }
 
@@ -313,6 +316,13 @@ impl View {
                     let p = to_stack(pos);
                     if doc.stack.contains_mm(p) {
                         cmds.push(Cmd::Edit(Edit::Insert { index: doc.lms.items.len(), lm: Landmark { kind: self.active, p } }));
+                        if self.alternate {
+                            self.active = match self.active {
+                                Kind::Lamina => Kind::Ligament,
+                                Kind::Ligament => Kind::Lamina,
+                                k => k,
+                            };
+                        }
                     }
                 }
             }
@@ -326,7 +336,13 @@ impl View {
         if resp.hovered() {
             let (notches, zoom) = ui.input(|i| (wheel_notches(&i.events), i.zoom_delta()));
             if zoom != 1.0 {
+                // about the cursor: the point under it stays put
+                let old = self.zoom;
                 self.zoom = (self.zoom * zoom).clamp(0.2, 40.0);
+                if let Some(c) = resp.hover_pos() {
+                    let d = c - rect.center();
+                    self.pan = d - (d - self.pan) * (self.zoom / old);
+                }
             } else {
                 // one notch, one step: the raw wheel events, not the smoothed scroll (which
                 // spreads one notch over several frames)
