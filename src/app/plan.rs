@@ -77,5 +77,17 @@ pub fn plan_ui(ui: &mut egui::Ui, doc: &Doc, angle_deg: f64) -> Vec<Cmd> {
         cmds.push(Cmd::GoToAngle(a));
     }
     resp.on_hover_text("Seen along the modiolar axis from the apex. Click an angle to show the radial cut there.");
+    // the legend, below the map
+    ui.horizontal_wrapped(|ui| {
+        for (text, col) in [
+            ("lamina fit", palette::LAMINA),
+            ("ligament fit", palette::LIGAMENT),
+            ("midline (the centreline)", palette::CENTRE),
+            ("radial cut shown", palette::CUT),
+        ] {
+            ui.label(egui::RichText::new(format!("— {text}")).color(col).small());
+        }
+        ui.label(egui::RichText::new("dots and squares: landmarks · angles from the window, toward the apex").small());
+    });
     cmds
 }
