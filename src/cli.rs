@@ -371,8 +371,8 @@ pub fn measure(a: MeasureArgs) -> Result<()> {
 /// Measures one specimen and writes the files `a` asks for; progress on stderr when `show`.
 fn measure_to_files(a: &MeasureArgs, show: bool) -> Result<pipeline::Outcome> {
     // asked-for outputs that cannot be written fail before the work, not after
-    if a.plot.is_some() && !["distance", "angle", "frequency"].contains(&a.plot_x.as_str()) {
-        bail!("--plot-x must be distance, angle or frequency, not {:?}", a.plot_x);
+    if a.plot.is_some() {
+        plot_axis(&a.plot_x)?;
     }
     if let Some(p) = &a.plot
         && !p.extension().is_some_and(|e| e.eq_ignore_ascii_case("svg") || e.eq_ignore_ascii_case("png"))
@@ -460,6 +460,16 @@ fn shown<T>(show: bool, label: &'static str, f: impl FnOnce(&Progress) -> T) -> 
     if show { with_progress(label, f) } else { f(&Progress::new()) }
 }
 
+/// The figure's x axis named by `--plot-x`.
+fn plot_axis(name: &str) -> Result<ductline::figure::XAxis> {
+    Ok(match name {
+        "distance" => ductline::figure::XAxis::Distance,
+        "angle" => ductline::figure::XAxis::Angle,
+        "frequency" => ductline::figure::XAxis::Frequency,
+        other => bail!("--plot-x must be distance, angle or frequency, not {other:?}"),
+    })
+}
+
 /// Writes the table and every extra output `a` asks for (each atomically).
 fn write_outputs(a: &MeasureArgs, out: &pipeline::Outcome, prj: &project::Project, st: &stack::Stack, stack_path: &Path) -> Result<()> {
     project::write_atomic(&a.out, export::table_csv(&out.rows).as_bytes())?;
@@ -480,12 +490,7 @@ fn write_outputs(a: &MeasureArgs, out: &pipeline::Outcome, prj: &project::Projec
         ductline::vtk::write(out, dir)?;
     }
     if let Some(f) = &a.plot {
-        let x = match a.plot_x.as_str() {
-            "distance" => ductline::figure::XAxis::Distance,
-            "angle" => ductline::figure::XAxis::Angle,
-            "frequency" => ductline::figure::XAxis::Frequency,
-            other => bail!("--plot-x must be distance, angle or frequency, not {other:?}"),
-        };
+        let x = plot_axis(&a.plot_x)?;
         let title = format!("{} — duct profile", stack_path.file_name().map(|n| n.to_string_lossy().to_string()).unwrap_or_default());
         ductline::figure::write(&out.rows, x, &title, f)?;
     }

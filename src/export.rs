@@ -96,16 +96,17 @@ pub fn table_json(out: &Outcome, prov: &Provenance) -> serde_json::Value {
         .iter()
         .zip(&out.geoms)
         .map(|(r, g)| {
-            let ring = |sc: &Scala| outline(sc).map(|o| o.iter().map(|q| g.from_plane(*q)).collect::<Vec<V>>());
-            let centroid = |sc: &Scala| outline(sc).map(|_| g.from_plane(sc.centroid));
+            // each scala's outline and centroid in stack mm, where it has an area (one outline each)
+            let in_stack = |sc: &Scala| outline(sc).map(|o| (o.iter().map(|q| g.from_plane(*q)).collect::<Vec<V>>(), g.from_plane(sc.centroid)));
+            let (sv, st) = (in_stack(&r.sv), in_stack(&r.st));
             json!({
                 "s_mm": r.s_mm, "angle_deg": r.angle_deg, "x_mm": r.point[0], "y_mm": r.point[1], "z_mm": r.point[2],
                 "radius_mm": r.radius_mm, "height_mm": r.height_mm, "curvature_radius_mm": opt(Some(r.curvature_radius_mm)),
                 "cf_hz": r.cf_hz, "sv_area_mm2": opt(r.sv.area), "st_area_mm2": opt(r.st.area),
                 "partition_width_mm": opt(r.partition_width_mm), "wall_mm": opt(r.wall_mm), "flags": r.flag_words(),
                 "levels": { "lumen": opt(Some(r.levels.lumen as f64)), "soft_tissue": opt(Some(r.levels.tissue as f64)), "bone": opt(Some(r.levels.bone as f64)) },
-                "sv_centroid_mm": centroid(&r.sv), "st_centroid_mm": centroid(&r.st),
-                "sv_outline_mm": ring(&r.sv), "st_outline_mm": ring(&r.st),
+                "sv_centroid_mm": sv.as_ref().map(|x| x.1), "st_centroid_mm": st.as_ref().map(|x| x.1),
+                "sv_outline_mm": sv.map(|x| x.0), "st_outline_mm": st.map(|x| x.0),
             })
         })
         .collect();

@@ -205,7 +205,7 @@ fn find(cut: &Cut, pl: Edge, pg: Edge, vmax: f64) -> std::result::Result<(Edge, 
     let band = ((0.1 * width + vmax) / cut.pitch).ceil() as usize;
     let hp = 0.5 * (pl.h + pg.h);
     let j0 = cut.row(hp);
-    if cut.v.iter().any(|x| x.is_nan()) && cut.v.iter().filter(|x| x.is_nan()).count() * 4 > cut.v.len() {
+    if cut.v.iter().filter(|x| x.is_nan()).count() * 4 > cut.v.len() {
         return Err("the cut leaves the stack".into());
     }
     // 1. partition height: ridge rows in the columns of the shelf's outer end, just inside the
@@ -232,7 +232,7 @@ fn find(cut: &Cut, pl: Edge, pg: Edge, vmax: f64) -> std::result::Result<(Edge, 
     if rows.len() < 3 {
         return Err("no partition found in the cut".into());
     }
-    let jp = median(&mut rows.clone()).round() as usize;
+    let jp = median(&mut rows).round() as usize;
     let h = cut.h0 + jp as f64 * cut.pitch;
     // levels: the lumen from just above and below the partition in the middle of the duct, the
     // noise from their spread
@@ -308,9 +308,10 @@ fn find(cut: &Cut, pl: Edge, pg: Edge, vmax: f64) -> std::result::Result<(Edge, 
     if lb <= la + 2 {
         return Err("the lamina and the ligament run together".into());
     }
-    let inner: Vec<f64> = shelf[la..=cut.col(pl.r - 0.05 * width).max(la)].iter().cloned().filter(|x| x.is_finite()).collect();
-    let outer: Vec<f64> = shelf[cut.col(pl.r + 0.15 * width).min(lb)..=cut.col(rg - 0.1 * width).max(lb)].iter().cloned().filter(|x| x.is_finite()).collect();
-    let (s_in, s_out) = (median(&mut inner.clone()), median(&mut outer.clone()));
+    let mut inner: Vec<f64> = shelf[la..=cut.col(pl.r - 0.05 * width).max(la)].iter().cloned().filter(|x| x.is_finite()).collect();
+    let mut outer: Vec<f64> =
+        shelf[cut.col(pl.r + 0.15 * width).min(lb)..=cut.col(rg - 0.1 * width).max(lb)].iter().cloned().filter(|x| x.is_finite()).collect();
+    let (s_in, s_out) = (median(&mut inner), median(&mut outer));
     if !(s_in - s_out > 2.0 * noise) {
         return Err("no bony shelf found along the partition".into());
     }
@@ -330,7 +331,7 @@ fn find(cut: &Cut, pl: Edge, pg: Edge, vmax: f64) -> std::result::Result<(Edge, 
     let Some(x) = best else { return Err("the end of the bony shelf is not clear".into()) };
     let rl = cut.r0 + x * cut.pitch;
     // confidence: the partition's ridge and the wall's rise against the noise
-    let ridge_snr = median(&mut strengths.clone()) / noise;
+    let ridge_snr = median(&mut strengths) / noise;
     let wall_snr = (top - lumen) / noise;
     let conf = (ridge_snr / 4.0).min(1.0) * (wall_snr / 6.0).min(1.0) * ((s_in - s_out) / (4.0 * noise)).min(1.0);
     Ok((Edge { angle: pl.angle, r: rl, h }, Edge { angle: pg.angle, r: rg, h }, conf.max(0.0)))

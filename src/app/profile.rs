@@ -19,10 +19,6 @@ impl Default for ProfileState {
 
 const SERIES: [&str; 5] = ["SV area (mm²)", "ST area (mm²)", "partition width (mm)", "wall (mm)", "curvature radius (mm)"];
 
-fn x_of(r: &Row, x: XAxis) -> f64 {
-    x.value(r)
-}
-
 fn y_of(r: &Row, k: usize) -> Option<f64> {
     match k {
         0 => r.sv.area,
@@ -75,7 +71,7 @@ pub fn profile_ui(ui: &mut egui::Ui, st: &mut ProfileState, rows: &[Row], select
                 let mut seg: Vec<[f64; 2]> = vec![];
                 for r in rows {
                     match y_of(r, k) {
-                        Some(y) => seg.push([x_of(r, x), y]),
+                        Some(y) => seg.push([x.value(r), y]),
                         None if !seg.is_empty() => {
                             pui.line(Line::new(SERIES[k], PlotPoints::from(std::mem::take(&mut seg))).color(palette::SERIES[k]));
                         }
@@ -86,19 +82,19 @@ pub fn profile_ui(ui: &mut egui::Ui, st: &mut ProfileState, rows: &[Row], select
                     pui.line(Line::new(SERIES[k], PlotPoints::from(seg)).color(palette::SERIES[k]));
                 }
             }
-            let flagged: Vec<[f64; 2]> = rows.iter().filter(|r| !r.sound()).map(|r| [x_of(r, x), 0.0]).collect();
+            let flagged: Vec<[f64; 2]> = rows.iter().filter(|r| !r.sound()).map(|r| [x.value(r), 0.0]).collect();
             if !flagged.is_empty() {
                 pui.points(Points::new("flagged sections", PlotPoints::from(flagged)).color(palette::FLAG).radius(3.0));
             }
             if let Some(r) = selected.and_then(|i| rows.get(i)) {
-                pui.vline(egui_plot::VLine::new("selected", x_of(r, x)).color(palette::CUT));
+                pui.vline(egui_plot::VLine::new("selected", x.value(r)).color(palette::CUT));
             }
             pui.pointer_coordinate()
         });
         if resp.response.clicked()
             && let Some(p) = resp.inner
         {
-            let best = rows.iter().enumerate().min_by(|a, b| (x_of(a.1, x) - p.x).abs().total_cmp(&(x_of(b.1, x) - p.x).abs())).map(|(i, _)| i);
+            let best = rows.iter().enumerate().min_by(|a, b| (x.value(a.1) - p.x).abs().total_cmp(&(x.value(b.1) - p.x).abs())).map(|(i, _)| i);
             if let Some(i) = best {
                 cmds.push(Cmd::SelectRow(Some(i)));
             }
