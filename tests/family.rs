@@ -7,7 +7,8 @@
 //!
 //! What is held here is what the method reaches today, as a guard against regressions; the
 //! targets of the measures issue (median ≤ 1.5 %, p95 ≤ 4 %) are not met on every member yet —
-//! the soft-tissue level is hard to read from a thin, blurred ligament (README, limits).
+//! soft tissue thinner than the blur (the limbus on the thin bony shelf, the tapering ends of the
+//! ligament) still counts partly as fluid (README, limits).
 //! The printed table is the record.
 
 use ductline::centreline::FitSettings;
@@ -111,6 +112,6 @@ fn family_sweep() {
     }
     // the state reached (see the module note), with room for other seeds: every member's median
     // area error
-    assert!(worst_st < 0.09, "worst ST median error {:.1} %", 100.0 * worst_st);
-    assert!(worst_sv < 0.14, "worst SV median error {:.1} %", 100.0 * worst_sv);
+    assert!(worst_st < 0.07, "worst ST median error {:.1} %", 100.0 * worst_st);
+    assert!(worst_sv < 0.10, "worst SV median error {:.1} %", 100.0 * worst_sv);
 }

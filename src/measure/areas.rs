@@ -117,7 +117,7 @@ pub(super) fn fraction_area(img: &Img, r: &Region, side: f64, lv: &Levels, band:
                 // soft tissue met by any ray wins over what other rays say of the pixel
                 if let Some(c) = cell(a + t * p.dir[0], b + t * p.dir[1])
                     && !mask[at(c)]
-                    && (by_ray[c].is_none() || mark == Ref::Tissue)
+                    && (by_ray[c].is_none() || mark == Ref::Tissue || (mark == Ref::None && by_ray[c] == Some(Ref::Bone)))
                 {
                     by_ray[c] = Some(mark);
                 }
@@ -158,6 +158,8 @@ pub(super) fn fraction_area(img: &Img, r: &Region, side: f64, lv: &Levels, band:
             } else {
                 match reference(i) {
                     Ref::Bone => (lv.bone - x) / (lv.bone - lv.lumen),
+                    // outside the grown lumen, brighter than soft tissue is bone's blur, not less lumen
+                    Ref::Tissue if !mask[i] => ((lv.tissue - x) / (lv.tissue - lv.lumen)).max(0.0),
                     Ref::Tissue => (lv.tissue - x) / (lv.tissue - lv.lumen),
                     Ref::None => 0.0,
                 }

@@ -22,7 +22,10 @@
 //!    the bone level, out to a three-voxel band; elsewhere ref is the soft-tissue level (taken a
 //!    little higher where the pixel's own surroundings are), and only within 1.5 voxels of the
 //!    lumen — soft tissue beyond the lumen's blur holds no lumen, and a thin layer on bone is not
-//!    half fluid. Pixels nearer to another lumen region are left to it.
+//!    half fluid. A stretch of edge is lined with soft tissue where its rays climb from the
+//!    lumen/soft-tissue midpoint to bone much more slowly than the section's bare edges do, even
+//!    where the layer is too thin to show a plateau. Pixels nearer to another lumen region are
+//!    left to it.
 //! 5. Wall ([`wall`]): along the partition direction outward, from where bone starts to where it
 //!    ends. Width and wall under one voxel are flagged `below_resolution` and left blank.
 
