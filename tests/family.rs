@@ -7,8 +7,8 @@
 //!
 //! What is held here is what the method reaches today, as a guard against regressions; the
 //! targets of the measures issue (median ≤ 1.5 %, p95 ≤ 4 %) are not met on every member yet —
-//! soft tissue thinner than the blur (the limbus on the thin bony shelf, the tapering ends of the
-//! ligament) still counts partly as fluid (README, limits).
+//! soft tissue thinner than about 1.5 blur widths (the tapering ends of the ligament) still
+//! counts partly as fluid, and anisotropic voxels blur unevenly by direction (README, limits).
 //! The printed table is the record.
 
 use ductline::centreline::FitSettings;
@@ -113,5 +113,5 @@ fn family_sweep() {
     // the state reached (see the module note), with room for other seeds: every member's median
     // area error
     assert!(worst_st < 0.07, "worst ST median error {:.1} %", 100.0 * worst_st);
-    assert!(worst_sv < 0.10, "worst SV median error {:.1} %", 100.0 * worst_sv);
+    assert!(worst_sv < 0.08, "worst SV median error {:.1} %", 100.0 * worst_sv);
 }

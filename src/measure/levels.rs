@@ -190,44 +190,60 @@ pub(super) struct Plateau {
 ///
 /// From an edge pixel a ray runs outward along the gradient of the smoothed image (steps of
 /// half a pixel, at most four voxels of `vox` pixels each). A ray that climbs from the
-/// lumen/soft-tissue midpoint to the soft-tissue/bone midpoint much more slowly than a bare
-/// edge of the same section meets soft tissue lining bone (a spiral ligament or limbus thinner
-/// than the blur shows no plateau); its plateau is put one blur width past the lumen edge.
-/// Otherwise, past the steepest rise of the lumen
-/// edge (within its first 1.5 voxels), the plateau is where the rise is least before it climbs
-/// again (by half the edge's rise) or two voxels have passed: inside a soft-tissue layer however
-/// thin or blurred (the saddle between its edge and the bone's behind it), or in bone where bone
-/// walls the lumen. A ray whose value falls back toward the lumen past that point (the crest of
-/// a thin septum between two lumens) or that reaches a region again says nothing about any
-/// material and is dropped. The value says which material (the area step compares it with the
+/// lumen/soft-tissue midpoint to the soft-tissue/bone midpoint (or, where it crosses a thin bony
+/// shelf whose blurred crest stays lower, to half the way from soft tissue to the crest) much
+/// more slowly than the bare edges of the same section meets soft tissue lining bone (a spiral
+/// ligament or a limbus thinner than the blur shows no plateau); its plateau is put one blur
+/// width past the lumen edge. A ray over a bare thin crest finds bone. Otherwise, past the
+/// steepest rise of the lumen edge (within its first 1.5 voxels), the plateau is where the rise
+/// is least before it climbs again (by half the edge's rise) or two voxels have passed: inside a
+/// soft-tissue layer (the saddle between its edge and the bone's behind it), or in bone where
+/// bone walls the lumen. A ray that falls back toward the lumen past that point (a crest of soft
+/// tissue between two lumens) or that reaches a region again says nothing about any material and
+/// is dropped. The value says which material (the area step compares it with the
 /// soft-tissue–bone midpoint); the soft-tissue level itself comes from [`wall_level`].
 pub(super) fn plateaus(img: &Img, masks: &[&[bool]], bounds: super::regions::Rect, lv: &Levels, vox: usize) -> Vec<Plateau> {
     let step = lv.bone - lv.lumen;
     let reach = 8 * vox; // half-pixel steps: four voxels
     let rays = edge_rays(img, masks, bounds, reach + 1, vox, |_, _| true);
-    // where a ray first crosses the lumen/soft-tissue and then the soft-tissue/bone midpoint
-    // (half steps, linear between samples); None if it never reaches bone
-    let crossings = |f: &[f32]| -> Option<(f64, f64)> {
+    // Where a ray first crosses the lumen/soft-tissue midpoint and then the soft-tissue/bone
+    // midpoint (half steps, linear between samples), and whether it turned back below bone: a
+    // thin bony shelf or septum whose blurred crest stays under that midpoint stands in for bone
+    // at half the way from soft tissue to its crest. None where no bone is met.
+    let crossings = |f: &[f32]| -> Option<(f64, f64, bool)> {
         let first =
             |level: f32| (1..f.len()).find(|&i| f[i] >= level).map(|i| (i - 1) as f64 + ((level - f[i - 1]) / (f[i] - f[i - 1])).clamp(0.0, 1.0) as f64);
-        Some((first(lv.lumen_cut())?, first(lv.bone_cut())?))
+        let peak = f.iter().fold(f32::MIN, |m, &x| m.max(x));
+        let crest = peak < lv.bone_cut();
+        if crest && peak < lv.tissue + 0.2 * (lv.bone - lv.tissue) {
+            return None;
+        }
+        let level = if crest { 0.5 * (lv.tissue + peak) } else { lv.bone_cut() };
+        Some((first(lv.lumen_cut())?, first(level)?, crest))
     };
     // A bare blurred edge climbs from one midpoint to the other in the shortest run the section
-    // shows (1.4 blur widths for soft tissue a third of the way to bone); a soft-tissue layer on
-    // bone holds the climb back for about its thickness, even where blur leaves it no plateau.
-    // The bare run is the lower quartile of the section's runs: most of a scala's edge meets bone.
-    let gaps: Vec<Option<(f64, f64)>> = rays.iter().map(|(_, _, f)| if lv.tissue < lv.bone { crossings(f) } else { None }).collect();
-    let mut runs: Vec<f64> = gaps.iter().flatten().map(|(xt, xb)| xb - xt).collect();
+    // shows (1.4 blur widths for soft tissue a third of the way to bone; a thin crest's climb is
+    // shorter still); a soft-tissue layer on bone holds the climb back for about its thickness,
+    // even where blur leaves it no plateau. The bare run is the lower quartile of the runs to
+    // thick bone: most of a scala's edge meets bone.
+    let gaps: Vec<Option<(f64, f64, bool)>> = rays.iter().map(|(_, _, f)| if lv.tissue < lv.bone { crossings(f) } else { None }).collect();
+    let mut runs: Vec<f64> = gaps.iter().flatten().filter(|g| !g.2).map(|(xt, xb, _)| xb - xt).collect();
     runs.sort_by(f64::total_cmp);
     let bare_run = (runs.len() >= 8).then(|| runs[runs.len() / 4]);
     let mut out = vec![];
     for ((k, [dx, dy], f), gap) in rays.into_iter().zip(gaps) {
-        if let (Some(bare), Some((xt, xb))) = (bare_run, gap)
-            && xb - xt > 1.4 * bare + 1.0
+        // a thin crest's bare climb to half its height is shorter: 0.9 blur widths, not 1.4
+        if let (Some(bare), Some((xt, xb, crest))) = (bare_run, gap)
+            && xb - xt > 1.25 * bare * if crest { 0.7 } else { 1.0 } + 1.0
         {
-            // lined (a layer over about 1.7 blur widths): soft tissue from the lumen edge on;
+            // lined (a layer over about 1.5 blur widths): soft tissue from the lumen edge on;
             // the lumen's blur reaches about half the bare run (one blur width) past it
             out.push(Plateau { pixel: k, value: lv.tissue, dir: [dx, dy], at: 0.5 * (xt + 0.7 * bare) });
+            continue;
+        }
+        if let Some((_, xb, true)) = gap {
+            // a bare thin crest (a bony shelf or septum under the blur): bone, whatever its height
+            out.push(Plateau { pixel: k, value: lv.bone, dir: [dx, dy], at: 0.5 * xb });
             continue;
         }
         let slope: Vec<f32> = f.windows(2).map(|w| w[1] - w[0]).collect();

@@ -281,9 +281,14 @@ pub fn measure(
             levels::wall_level(&sum, pitch).map(|q| (i, q))
         })
         .collect();
+    // Where most stretches of the duct show a soft-tissue layer, every section takes the
+    // nearest layer's level: a ligament too thin or blurred to fit in one stretch is still there
+    // (the rays of each edge then say where it lines the lumen and where bone is bare). With no
+    // wall profile anywhere: the tube's soft-tissue peak if it has one (see `levels::pooled`),
+    // else two materials.
+    let layered: Vec<(usize, levels::Wall)> = fitted.iter().copied().filter(|f| matches!(f.1, levels::Wall::Layer(_))).collect();
+    let fitted = if 2 * layered.len() > fitted.len() { layered } else { fitted };
     for (i, lv) in auto.iter_mut().enumerate() {
-        // with no wall profile anywhere: the tube's soft-tissue peak if it has one (see
-        // `levels::pooled`), else two materials
         if let (Some(lv), Some(&(_, wall))) = (lv.as_mut(), fitted.iter().min_by_key(|f| f.0.abs_diff(i))) {
             lv.tissue = match wall {
                 levels::Wall::Layer(q) => lv.lumen + q * (lv.bone - lv.lumen),

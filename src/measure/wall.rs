@@ -30,7 +30,11 @@ pub(super) fn wall(stack: &Stack, g: &SectionGeom, mid: [f64; 2], dir: [f64; 2],
         ((i - 1) as f64 + ((t - a) / (b - a)).clamp(0.0, 1.0) as f64) * h
     };
     let first_dark = prof.iter().position(|x| x.is_finite() && *x < lumen_cut)?;
-    let up = (first_dark + 1..prof.len()).find(|&i| !prof[i].is_finite() || prof[i] >= thr)?;
+    // a thin wall blurred below the soft-tissue/bone midpoint is looked for at the lumen/bone one
+    // (its thickness then comes from the bone it holds, below)
+    let (up, thr) = [thr, 0.5 * (lv.lumen + bone)]
+        .into_iter()
+        .find_map(|t| (first_dark + 1..prof.len()).find(|&i| !prof[i].is_finite() || prof[i] >= t).map(|i| (i, t)))?;
     let down = (up + 1..prof.len()).find(|&i| !prof[i].is_finite() || prof[i] < thr)?;
     if !prof[up].is_finite() || !prof[down].is_finite() {
         return None;
