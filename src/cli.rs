@@ -550,48 +550,41 @@ fn read_list(list: &Path) -> Result<Vec<Specimen>> {
 pub fn batch(list: &Path, out_dir: &Path, step_mm: Option<f64>, species: Option<String>) -> Result<()> {
     let specimens = read_list(list)?;
     std::fs::create_dir_all(out_dir).with_context(|| format!("{}: cannot create", out_dir.display()))?;
+    let n = specimens.len();
+    let workers = batch_workers(&specimens);
+    if workers > 1 {
+        eprintln!("measuring {n} specimens, {workers} at a time");
+    }
+    // each specimen's summary row (Ok) or error cell (Err), in list order
+    let rows: Vec<std::sync::Mutex<Option<std::result::Result<String, String>>>> = (0..n).map(|_| std::sync::Mutex::new(None)).collect();
+    let (next, done) = (std::sync::atomic::AtomicUsize::new(0), std::sync::atomic::AtomicUsize::new(0));
+    std::thread::scope(|scope| {
+        for _ in 0..workers {
+            scope.spawn(|| {
+                loop {
+                    let k = next.fetch_add(1, std::sync::atomic::Ordering::SeqCst);
+                    let Some(sp) = specimens.get(k) else { break };
+                    let row = batch_one(sp, out_dir, step_mm, species.clone());
+                    let d = done.fetch_add(1, std::sync::atomic::Ordering::SeqCst) + 1;
+                    match &row {
+                        Ok((_, line)) => eprintln!("[{d}/{n}] {}: {line}", sp.name),
+                        Err(msg) => eprintln!("[{d}/{n}] {}: failed: {msg}", sp.name),
+                    }
+                    *rows[k].lock().unwrap_or_else(|e| e.into_inner()) = Some(row.map(|(r, _)| r));
+                }
+            });
+        }
+    });
     let mut summary = String::from("name,length_mm,depth_deg,turns,handedness,sv_volume_mm3,st_volume_mm3,basal_diameter_mm,sections,flagged_sections,error\n");
     let mut failed = 0;
-    let n = specimens.len();
-    for (k, sp) in specimens.into_iter().enumerate() {
-        let dir = out_dir.join(&sp.name);
-        let args = MeasureArgs { out: dir.join("table.csv"), json: Some(dir.join("table.json")), step_mm, species: species.clone(), ..sp.args };
-        let res = std::fs::create_dir_all(&dir).map_err(anyhow::Error::from).and_then(|_| measure_to_files(&args, false));
-        match res {
-            Ok(out) => {
-                let cl = &out.centreline;
-                let f = |x: Option<f64>| x.map(|v| format!("{v:.4}")).unwrap_or_default();
-                let hand = format!("{:?}", cl.frame.handed).to_lowercase();
-                let _ = writeln!(
-                    summary,
-                    "{},{:.4},{:.1},{:.3},{hand},{},{},{},{},{},",
-                    sp.name,
-                    cl.length,
-                    cl.depth_deg(),
-                    cl.depth_deg() / 360.0,
-                    f(export::volume(&out.geoms, &out.rows, true)),
-                    f(export::volume(&out.geoms, &out.rows, false)),
-                    f(out.estimates.as_ref().ok().map(|e| e.basal_diameter_mm)),
-                    out.rows.len(),
-                    out.flagged_sections()
-                );
-                eprintln!(
-                    "[{}/{n}] {}: {:.2} mm over {:.0}°, {} of {} sections flagged",
-                    k + 1,
-                    sp.name,
-                    cl.length,
-                    cl.depth_deg(),
-                    out.flagged_sections(),
-                    out.rows.len()
-                );
-            }
-            Err(e) => {
+    for (sp, row) in specimens.iter().zip(rows) {
+        match row.into_inner().unwrap_or_else(|e| e.into_inner()) {
+            Some(Ok(r)) => summary.push_str(&r),
+            Some(Err(msg)) => {
                 failed += 1;
-                // one plain CSV cell: no commas, quotes or line breaks
-                let msg = format!("{e:#}").replace(['\n', '"'], " ").replace(',', ";");
                 let _ = writeln!(summary, "{},,,,,,,,,,{msg}", sp.name);
-                eprintln!("[{}/{n}] {}: failed: {msg}", k + 1, sp.name);
             }
+            None => unreachable!("every specimen is taken by a worker"),
         }
     }
     let path = out_dir.join("summary.csv");
@@ -601,6 +594,65 @@ pub fn batch(list: &Path, out_dir: &Path, step_mm: Option<f64>, species: Option<
         bail!("{failed} of {n} specimens failed (their errors are in {})", path.display());
     }
     Ok(())
+}
+
+/// One specimen of a batch: its summary row and progress line, or its error as one plain CSV
+/// cell (no commas, quotes or line breaks).
+fn batch_one(sp: &Specimen, out_dir: &Path, step_mm: Option<f64>, species: Option<String>) -> std::result::Result<(String, String), String> {
+    let dir = out_dir.join(&sp.name);
+    let args = MeasureArgs { out: dir.join("table.csv"), json: Some(dir.join("table.json")), step_mm, species, ..sp.args.clone() };
+    let out = std::fs::create_dir_all(&dir)
+        .map_err(anyhow::Error::from)
+        .and_then(|_| measure_to_files(&args, false))
+        .map_err(|e| format!("{e:#}").replace(['\n', '"'], " ").replace(',', ";"))?;
+    let cl = &out.centreline;
+    let f = |x: Option<f64>| x.map(|v| format!("{v:.4}")).unwrap_or_default();
+    let hand = format!("{:?}", cl.frame.handed).to_lowercase();
+    let row = format!(
+        "{},{:.4},{:.1},{:.3},{hand},{},{},{},{},{},\n",
+        sp.name,
+        cl.length,
+        cl.depth_deg(),
+        cl.depth_deg() / 360.0,
+        f(export::volume(&out.geoms, &out.rows, true)),
+        f(export::volume(&out.geoms, &out.rows, false)),
+        f(out.estimates.as_ref().ok().map(|e| e.basal_diameter_mm)),
+        out.rows.len(),
+        out.flagged_sections()
+    );
+    let line = format!("{:.2} mm over {:.0}°, {} of {} sections flagged", cl.length, cl.depth_deg(), out.flagged_sections(), out.rows.len());
+    Ok((row, line))
+}
+
+/// How many specimens a batch measures at once: one per core, as far as the memory available
+/// now holds four times the largest stack file each (the voxels, a decompressed copy, the
+/// sections); one where the free memory cannot be read (outside Linux) or a size is unknown.
+fn batch_workers(specimens: &[Specimen]) -> usize {
+    let cores = std::thread::available_parallelism().map_or(1, |c| c.get());
+    let Some(free) = std::fs::read_to_string("/proc/meminfo")
+        .ok()
+        .and_then(|m| m.lines().find(|l| l.starts_with("MemAvailable:"))?.split_whitespace().nth(1)?.parse::<u64>().ok().map(|kb| kb * 1024))
+    else {
+        return 1;
+    };
+    let size = |p: &Path| -> Option<u64> {
+        let m = std::fs::metadata(p).ok()?;
+        if m.is_dir() { std::fs::read_dir(p).ok().map(|d| d.flatten().filter_map(|e| e.metadata().ok()).map(|m| m.len()).sum()) } else { Some(m.len()) }
+    };
+    let mut largest = 0u64;
+    for sp in specimens {
+        // a project keeps its stack's size on disk
+        let bytes = match (&sp.args.stack, &sp.args.project) {
+            (Some(st), _) => size(st),
+            (None, Some(p)) => project::Project::load(p).ok().map(|prj| prj.stack.bytes),
+            (None, None) => None,
+        };
+        match bytes {
+            Some(b) => largest = largest.max(b),
+            None => return 1,
+        }
+    }
+    (free / (4 * largest.max(1))).clamp(1, cores.min(specimens.len()).max(1) as u64) as usize
 }
 
 /// `ductline trace`: proposals written with the seeds; where and why it stopped on stderr.

@@ -198,24 +198,102 @@ pub fn outline(sc: &Scala) -> Option<Vec<[f64; 2]>> {
     Some(sc.outline.iter().map(|q| [c[0] + k * (q[0] - c[0]), c[1] + k * (q[1] - c[1])]).collect())
 }
 
+/// Where neighbouring section planes close in (the curvature radius of the centreline under a
+/// section's reach toward its centre of curvature: a tightly curled apex, or a wiggle of the
+/// fitted curve), a lumen swept from plane to plane would fold through itself. The sweep stays
+/// one-to-one while every outline point keeps 1 − κ·d > 0 (d its offset toward the centre of
+/// curvature, κ the curvature), so outline points past half the curvature radius are drawn in
+/// smoothly toward the centre, never beyond 0.8 of it (a monotone map along one direction: each
+/// outline stays simple). Points nearer than half the radius, all of them on most sections,
+/// are not moved. `k` is the curvature vector dt/ds in section coordinates (1/mm). Tested on
+/// scalae reaching 1.25 curvature radii toward the centre (tests/export.rs).
+///
+/// ```
+/// use ductline::export::unfold;
+/// // curvature 1/mm toward +u: a point 0.3 mm that way stays, one 1.5 mm that way (past the
+/// // centre of curvature) is drawn in under 0.8 mm; across, nothing moves
+/// assert_eq!(unfold([0.3, 0.2], [1.0, 0.0]), [0.3, 0.2]);
+/// let q = unfold([1.5, 0.2], [1.0, 0.0]);
+/// assert!(q[0] > 0.5 && q[0] < 0.8 && q[1] == 0.2);
+/// ```
+pub fn unfold(q: [f64; 2], k: [f64; 2]) -> [f64; 2] {
+    const FREE: f64 = 0.5;
+    const MAX: f64 = 0.8;
+    let d = q[0] * k[0] + q[1] * k[1];
+    let kk = k[0] * k[0] + k[1] * k[1];
+    if d <= FREE || kk <= 0.0 {
+        return q;
+    }
+    let to = FREE + (MAX - FREE) * ((d - FREE) / (MAX - FREE)).tanh();
+    let shift = (d - to) / kk;
+    [q[0] - shift * k[0], q[1] - shift * k[1]]
+}
+
+/// The curvature vector dt/ds (1/mm) at each section in its own (u, v) coordinates, from the
+/// tangents of its neighbours (central differences; one-sided at the ends).
+pub fn curvature_in_plane(geoms: &[SectionGeom]) -> Vec<[f64; 2]> {
+    let n = geoms.len();
+    (0..n)
+        .map(|i| {
+            let (a, b) = (i.saturating_sub(1), (i + 1).min(n.saturating_sub(1)));
+            let ds = geoms[b].s - geoms[a].s;
+            if !(ds > 0.0) {
+                return [0.0, 0.0];
+            }
+            let k = v3::scale(v3::sub(geoms[b].t, geoms[a].t), 1.0 / ds);
+            [v3::dot(k, geoms[i].u), v3::dot(k, geoms[i].v)]
+        })
+        .collect()
+}
+
+/// One scala's rings for the surfaces and volumes: each measured outline ([`outline`]) with
+/// [`unfold`] applied, as (section index, the ring in section coordinates (mm)).
+pub fn sweep_rings(geoms: &[SectionGeom], rows: &[Row], scala_vestibuli: bool) -> Vec<(usize, Vec<[f64; 2]>)> {
+    let k = curvature_in_plane(geoms);
+    geoms
+        .iter()
+        .zip(rows)
+        .enumerate()
+        .filter_map(|(i, (_, r))| {
+            let sc = if scala_vestibuli { &r.sv } else { &r.st };
+            outline(sc).map(|o| (i, o.into_iter().map(|q| unfold(q, k[i])).collect()))
+        })
+        .collect()
+}
+
 /// One scala's lumen volume (mm³) between its first and last measured sections: each stretch
 /// between neighbouring measured sections adds its mean area times the advance of the scala's
 /// centroid along the mean section normal (Pappus: dV = A·(1 − κ·d)·ds, with d the centroid's
 /// offset toward the centre of curvature; the centroids of the inner scala travel less far than
-/// the midline). Sections without an area are bridged. None with fewer than two.
+/// the midline). Areas and centroids are those of the swept rings ([`sweep_rings`]), so the
+/// volume is the one the surfaces enclose. Sections without an area are bridged. None with
+/// fewer than two.
 pub fn volume(geoms: &[SectionGeom], rows: &[Row], scala_vestibuli: bool) -> Option<f64> {
-    let measured: Vec<(f64, V, V)> = geoms
-        .iter()
-        .zip(rows)
-        .filter_map(|(g, r)| {
-            let sc = if scala_vestibuli { &r.sv } else { &r.st };
-            outline(sc).map(|_| (sc.area.unwrap_or(0.0), g.from_plane(sc.centroid), g.t))
+    let measured: Vec<(f64, V, V)> = sweep_rings(geoms, rows, scala_vestibuli)
+        .into_iter()
+        .map(|(i, ring)| {
+            let g = &geoms[i];
+            (polygon_area(&ring), g.from_plane(polygon_centroid(&ring)), g.t)
         })
         .collect();
     if measured.len() < 2 {
         return None;
     }
     Some(measured.windows(2).map(|w| 0.5 * (w[0].0 + w[1].0) * v3::dot(v3::sub(w[1].1, w[0].1), v3::unit(v3::add(w[0].2, w[1].2)))).sum())
+}
+
+/// Area centroid (mm) of a closed polygon.
+pub fn polygon_centroid(q: &[[f64; 2]]) -> [f64; 2] {
+    let n = q.len();
+    let (mut a, mut cx, mut cy) = (0.0, 0.0, 0.0);
+    for i in 0..n {
+        let (p, r) = (q[i], q[(i + 1) % n]);
+        let c = p[0] * r[1] - r[0] * p[1];
+        a += c;
+        cx += (p[0] + r[0]) * c;
+        cy += (p[1] + r[1]) * c;
+    }
+    if a == 0.0 { q.iter().fold([0.0, 0.0], |s, p| [s[0] + p[0] / n as f64, s[1] + p[1] / n as f64]) } else { [cx / (3.0 * a), cy / (3.0 * a)] }
 }
 
 /// A closed triangle mesh in stack mm.
@@ -232,17 +310,11 @@ impl Mesh {
     }
 }
 
-/// Lofts one scala's star outlines (same point count per section) into a closed tube with flat
-/// fan caps at both ends. Sections without an outline are skipped; returns None with fewer than 2.
+/// Lofts one scala's star outlines (same point count per section; [`sweep_rings`]) into a
+/// closed tube with flat fan caps at both ends. Sections without an outline are skipped; returns None with fewer than 2.
 pub fn loft(geoms: &[SectionGeom], rows: &[Row], scala_vestibuli: bool) -> Option<Mesh> {
-    let rings: Vec<Vec<V>> = geoms
-        .iter()
-        .zip(rows)
-        .filter_map(|(g, r)| {
-            let sc = if scala_vestibuli { &r.sv } else { &r.st };
-            outline(sc).map(|o| o.iter().map(|q| g.from_plane(*q)).collect())
-        })
-        .collect();
+    let rings: Vec<Vec<V>> =
+        sweep_rings(geoms, rows, scala_vestibuli).into_iter().map(|(i, ring)| ring.iter().map(|q| geoms[i].from_plane(*q)).collect()).collect();
     if rings.len() < 2 {
         return None;
     }
@@ -277,6 +349,105 @@ pub fn loft(geoms: &[SectionGeom], rows: &[Row], scala_vestibuli: bool) -> Optio
         }
     }
     Some(m)
+}
+
+/// Pairs of triangles of a mesh that share no vertex yet cross each other (0 for a surface that
+/// does not fold through itself). Triangles are binned in a uniform grid of cells twice the
+/// mean edge long; each pair is tested once, in the first cell both cover, by segment–triangle
+/// crossings (Möller & Trumbore 1997) of each one's edges against the other.
+///
+/// ```
+/// use ductline::export::{Mesh, self_intersections};
+/// // two triangles piercing each other, and the same two moved apart
+/// let mut m = Mesh {
+///     vertices: vec![[0.0, 0.0, 0.0], [2.0, 0.0, 0.0], [0.0, 2.0, 0.0], [0.5, 0.5, -1.0], [0.5, 0.5, 1.0], [3.0, 3.0, 0.0]],
+///     triangles: vec![[0, 1, 2], [3, 4, 5]],
+/// };
+/// assert_eq!(self_intersections(&m), 1);
+/// for v in &mut m.vertices[3..] {
+///     v[0] += 5.0;
+/// }
+/// assert_eq!(self_intersections(&m), 0);
+/// ```
+pub fn self_intersections(m: &Mesh) -> usize {
+    crossing_pairs(m).len()
+}
+
+/// The pairs of triangles (indices, lower first) that [`self_intersections`] counts.
+pub fn crossing_pairs(m: &Mesh) -> Vec<(u32, u32)> {
+    let tri = |t: &[u32; 3]| t.map(|i| m.vertices[i as usize]);
+    let nt = m.triangles.len();
+    if nt < 2 {
+        return vec![];
+    }
+    let edge: f64 = m
+        .triangles
+        .iter()
+        .map(|t| {
+            let [a, b, c] = tri(t);
+            v3::dist(a, b) + v3::dist(b, c) + v3::dist(c, a)
+        })
+        .sum::<f64>()
+        / (3 * nt) as f64;
+    let h = 2.0 * edge.max(1e-9);
+    let cell_range = |t: &[u32; 3]| -> [[i64; 2]; 3] {
+        let p = tri(t);
+        std::array::from_fn(|a| {
+            let lo = p.iter().map(|v| v[a]).fold(f64::INFINITY, f64::min);
+            let hi = p.iter().map(|v| v[a]).fold(f64::NEG_INFINITY, f64::max);
+            [(lo / h).floor() as i64, (hi / h).floor() as i64]
+        })
+    };
+    let ranges: Vec<[[i64; 2]; 3]> = m.triangles.iter().map(cell_range).collect();
+    let mut grid: std::collections::HashMap<[i64; 3], Vec<u32>> = std::collections::HashMap::new();
+    for (i, r) in ranges.iter().enumerate() {
+        for x in r[0][0]..=r[0][1] {
+            for y in r[1][0]..=r[1][1] {
+                for z in r[2][0]..=r[2][1] {
+                    grid.entry([x, y, z]).or_default().push(i as u32);
+                }
+            }
+        }
+    }
+    // does the segment p→q cross the triangle (a, b, c)? (strictly inside both)
+    let crosses = |p: V, q: V, [a, b, c]: [V; 3]| -> bool {
+        let d = v3::sub(q, p);
+        let (e1, e2) = (v3::sub(b, a), v3::sub(c, a));
+        let pv = v3::cross(d, e2);
+        let det = v3::dot(e1, pv);
+        if det.abs() < 1e-15 {
+            return false;
+        }
+        let tv = v3::sub(p, a);
+        let u = v3::dot(tv, pv) / det;
+        let qv = v3::cross(tv, e1);
+        let v = v3::dot(d, qv) / det;
+        let t = v3::dot(e2, qv) / det;
+        u > 0.0 && v > 0.0 && u + v < 1.0 && t > 0.0 && t < 1.0
+    };
+    let mut pairs = vec![];
+    for (cell, list) in &grid {
+        for (x, &i) in list.iter().enumerate() {
+            for &j in &list[x + 1..] {
+                let (ti, tj) = (&m.triangles[i as usize], &m.triangles[j as usize]);
+                if ti.iter().any(|v| tj.contains(v)) {
+                    continue;
+                }
+                let (ri, rj) = (ranges[i as usize], ranges[j as usize]);
+                let first: [i64; 3] = std::array::from_fn(|a| ri[a][0].max(rj[a][0]));
+                if first != *cell {
+                    continue;
+                }
+                let (a, b) = (tri(ti), tri(tj));
+                let hit = (0..3).any(|e| crosses(a[e], a[(e + 1) % 3], b)) || (0..3).any(|e| crosses(b[e], b[(e + 1) % 3], a));
+                if hit {
+                    pairs.push((i.min(j), i.max(j)));
+                }
+            }
+        }
+    }
+    pairs.sort_unstable();
+    pairs
 }
 
 /// Binary STL bytes of a mesh (normals from the triangle winding).

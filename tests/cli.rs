@@ -198,7 +198,7 @@ fn failures_exit_non_zero_with_one_line() {
 
 /// `batch`: two specimens measured (one listed by stack and landmarks, one by project) and one
 /// broken (its landmark file missing): each good one gets its table and JSON under OUT/NAME/,
-/// summary.csv has a row per specimen with the broken one's error, the exit code is non-zero,
+/// summary.csv has a row per specimen (in the list's order) with the broken one's error, the exit code is non-zero,
 /// and the good rows agree with the specimen's own `measure` run (the JSON's volumes).
 #[test]
 fn batch_goes_on_past_a_broken_specimen() {
@@ -218,7 +218,8 @@ fn batch_goes_on_past_a_broken_specimen() {
     let o = ductline(&["batch", "--list", s(&list), "--out-dir", s(&out), "--step-mm", "0.25"]);
     assert!(!o.status.success());
     let err = stderr(&o);
-    assert!(err.contains("[2/3] broken: failed") && err.contains("1 of 3 specimens failed"), "{err}");
+    // a progress line per specimen as each finishes (several at a time where memory allows)
+    assert!(err.contains("/3] broken: failed") && err.contains("/3] ears_a: ") && err.contains("1 of 3 specimens failed"), "{err}");
     let (head, rows) = read_csv(&out.join("summary.csv"));
     for c in [
         "name",

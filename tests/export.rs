@@ -239,3 +239,80 @@ fn profile_figure_svg_and_png() {
     assert!(px([0, 0, 0]) + px([0x44, 0x44, 0x44]) > 2000, "text and axes are drawn");
     assert!(figure::write(&out.rows, XAxis::Angle, "test", &dir.path().join("fig.pdf")).is_err());
 }
+
+/// A tight curl (a small species' apex, a basal hook, a fit bent sharply near an end): the
+/// scalae measured on the phantom's basal turn, each reaching up to about 1 mm toward the
+/// modiolus, set along 300° of a helix of radius 0.5 mm, so that neighbouring section planes
+/// cross inside the lumen. Lofted plane to plane as measured, the surfaces fold through
+/// themselves (counted here, to show the curl is that tight); as written ([`export::unfold`])
+/// they do not, they stay closed, and the JSON volume equals the enclosed one. gmsh (an outside
+/// mesher) fills each with tetrahedra, which it refuses for a boundary that crosses itself.
+#[test]
+fn tight_curl_surfaces_do_not_fold() {
+    let spec = PhantomSpec { voxel_um: [80.0; 3], ..Default::default() };
+    let ph = phantom::generate(&spec, &Progress::new()).unwrap();
+    let ms = MeasureSettings { step_mm: 0.1, ..Default::default() };
+    let mut out = pipeline::run(&ph.stack, &ph.landmarks, &FitSettings::default(), &ms, &[], &Greenwood::preset("human").unwrap(), &Progress::new()).unwrap();
+    // 43 measured basal sections, 0.1 mm apart along the helix
+    out.rows.retain(|r| r.sv.area.is_some() && r.st.area.is_some());
+    out.rows.truncate(43);
+    let (radius, climb) = (0.8f64, 0.05f64); // mm, mm per radian
+    let len = radius.hypot(climb);
+    out.geoms = (0..out.rows.len())
+        .map(|i| {
+            let s = 0.1 * i as f64;
+            let phi = s / len;
+            let (sn, cs) = phi.sin_cos();
+            let centre = [radius * cs, radius * sn, climb * phi];
+            let t = [-radius * sn / len, radius * cs / len, climb / len];
+            let u = [cs, sn, 0.0]; // outward, lamina → ligament
+            let v = v3::cross(t, u);
+            let w = 0.5 * out.rows[i].partition_width_mm.unwrap_or(0.5);
+            ductline::section::SectionGeom { s, theta: phi, centre, t, u, v, lamina: v3::axpy(centre, -w, u), ligament: v3::axpy(centre, w, u), rmf: u }
+        })
+        .collect();
+    for sv in [true, false] {
+        // plane to plane as measured: the same loft without the unfolding
+        let rings: Vec<Vec<v3::V>> = out
+            .geoms
+            .iter()
+            .zip(&out.rows)
+            .filter_map(|(g, r)| export::outline(if sv { &r.sv } else { &r.st }).map(|o| o.iter().map(|q| g.from_plane(*q)).collect()))
+            .collect();
+        let k = rings[0].len();
+        let mut raw = export::Mesh { vertices: rings.concat(), triangles: vec![] };
+        for i in 0..rings.len() - 1 {
+            for j in 0..k {
+                let (a, b) = ((i * k + j) as u32, (i * k + (j + 1) % k) as u32);
+                raw.triangles.push([a, b, b + k as u32]);
+                raw.triangles.push([a, b + k as u32, a + k as u32]);
+            }
+        }
+        let mesh = export::loft(&out.geoms, &out.rows, sv).unwrap();
+        let (folds_raw, folds) = (export::self_intersections(&raw), export::self_intersections(&mesh));
+        eprintln!("sv {sv}: crossing triangle pairs {folds_raw} as measured, {folds} as written");
+        assert!(folds_raw > 0, "the curl is tight enough to fold a plain loft");
+        assert_eq!(folds, 0);
+        let v = export::volume(&out.geoms, &out.rows, sv).unwrap();
+        assert!((v / mesh.volume() - 1.0).abs() < 0.005, "volume {v} vs enclosed {}", mesh.volume());
+    }
+    let dir = tempfile::tempdir().unwrap();
+    export::write_stl(&out, dir.path()).unwrap();
+    python_check(
+        "gmsh",
+        dir.path(),
+        r#"
+import gmsh
+for name in ["scala_vestibuli", "scala_tympani"]:
+    gmsh.initialize(); gmsh.option.setNumber("General.Terminal", 0)
+    gmsh.merge(f"{DIR}/{name}.stl")
+    l = gmsh.model.geo.addSurfaceLoop([e[1] for e in gmsh.model.getEntities(2)])
+    gmsh.model.geo.addVolume([l]); gmsh.model.geo.synchronize()
+    gmsh.model.mesh.generate(3)
+    n = sum(len(t) for t in gmsh.model.mesh.getElements(3)[1])
+    assert n > 100, (name, n)
+    print("gmsh", gmsh.__version__, name, n, "tetrahedra (tight curl)")
+    gmsh.finalize()
+"#,
+    );
+}
