@@ -38,9 +38,22 @@ pub struct Doc {
     /// The folder unsaved work is kept in (the user's data folder; never beside the stack, which
     /// may be read-only or the bundled sample in the install).
     pub autosave_dir: PathBuf,
+    /// Landmarks the last trace proposed, for review: drawn apart until accepted (see [`Doc::pending`]).
+    pub proposals: Vec<ductline::trace::Proposed>,
 }
 
 impl Doc {
+    /// The proposals not accepted yet, with their index: a proposal counts as accepted while a
+    /// placed landmark of its kind sits on it, so undoing an acceptance shows it again.
+    pub fn pending(&self) -> Vec<(usize, ductline::trace::Proposed)> {
+        self.proposals
+            .iter()
+            .copied()
+            .enumerate()
+            .filter(|(_, pr)| !self.lms.items.iter().any(|l| l.kind == pr.lm.kind && ductline::frame::v3::dist(l.p, pr.lm.p) < 1e-9))
+            .collect()
+    }
+
     /// A document for a loaded stack; `range` and `window` come from [`looks`] (computed off the
     /// UI thread, since they read the whole stack).
     pub fn new(stack: Stack, stack_path: PathBuf, (range, window): ((f32, f32), [f32; 2])) -> Doc {
@@ -63,6 +76,7 @@ impl Doc {
             overview: None,
             autosave_dir: default_autosave_dir(),
             fingerprint: None,
+            proposals: vec![],
         };
         d.refit();
         d

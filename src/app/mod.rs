@@ -40,6 +40,8 @@ pub mod palette {
     pub const CENTRE: Color32 = Color32::from_rgb(215, 227, 107);
     pub const CUT: Color32 = Color32::from_rgb(120, 200, 255);
     pub const FLAG: Color32 = Color32::from_rgb(255, 70, 70);
+    /// The ring round a landmark the fit leaves out (magenta: apart from the window mark's red).
+    pub const OUTLIER: Color32 = Color32::from_rgb(235, 90, 235);
     pub const WARN: Color32 = Color32::from_rgb(240, 190, 80);
     pub const SERIES: [Color32; 5] = [
         Color32::from_rgb(110, 198, 255),
@@ -88,6 +90,12 @@ pub enum Cmd {
     SaveFigureDialog,
     /// Propose lamina and ligament landmarks along the spiral from those placed (seeds).
     Trace,
+    /// Accept the pending proposals up to this angle (degrees; infinity: all), as one step.
+    AcceptProposals(f64),
+    /// Accept one pending proposal (its index in the proposals).
+    AcceptProposal(usize),
+    /// Drop the proposals not accepted.
+    DiscardProposals,
     /// The duct-profile figure, as .svg or .png by the name.
     SaveFigure(PathBuf),
     Edit(Edit),
@@ -107,7 +115,7 @@ pub enum Cmd {
 }
 
 /// A trace's proposed landmarks and its one-line summary.
-type Proposals = (Vec<Landmark>, String);
+type Proposals = (Vec<ductline::trace::Proposed>, String);
 
 /// A stack (and maybe its project) read in the background.
 pub struct Loaded {
@@ -135,7 +143,7 @@ pub enum Pending {
 pub struct DuctApp {
     pub doc: Option<Doc>,
     pub view: Option<tracing::View>,
-    side: side::Side,
+    pub side: side::Side,
     profile: profile::ProfileState,
     inspector: inspector::Inspector,
     pub selected_row: Option<usize>,
@@ -275,19 +283,10 @@ impl DuctApp {
         if let Some(res) = self.tracing.as_ref().and_then(|j| j.poll()) {
             self.tracing = None;
             match (res, &mut self.doc) {
-                (Ok((lms, summary)), Some(doc)) => {
-                    // the proposals are one step: a single undo takes them all back
-                    let n = doc.lms.items.len();
-                    let group = lms.into_iter().enumerate().map(|(k, lm)| Edit::Insert { index: n + k, lm }).collect();
-                    match doc.lms.apply(Edit::Group(group)) {
-                        Ok(()) => {
-                            doc.refit();
-                            doc.dirty = true;
-                            doc.stale = true;
-                            self.status = summary;
-                        }
-                        Err(e) => self.status = format!("error: {e}"),
-                    }
+                (Ok((proposed, summary)), Some(doc)) => {
+                    // held apart for review: nothing counts until accepted
+                    doc.proposals = proposed;
+                    self.status = summary;
                 }
                 (Err(e), _) => self.status = format!("error: {e}"),
                 _ => {}
@@ -537,6 +536,32 @@ impl DuctApp {
         };
         let result: Result<String, String> = match cmd {
             Cmd::Edit(e) => doc.lms.apply(e).map(|_| String::new()).map_err(|e| e.to_string()),
+            Cmd::AcceptProposals(up_to) => {
+                let lms: Vec<Landmark> = doc.pending().into_iter().filter(|(_, p)| p.angle_deg <= up_to).map(|(_, p)| p.lm).collect();
+                let (n, at) = (lms.len(), doc.lms.items.len());
+                if n == 0 {
+                    self.status = "no proposal up to that angle".into();
+                    return;
+                }
+                // one step: a single undo takes them back (and shows them as proposals again)
+                let group = lms.into_iter().enumerate().map(|(k, lm)| Edit::Insert { index: at + k, lm }).collect();
+                doc.lms.apply(Edit::Group(group)).map(|_| format!("accepted {n} proposed landmarks")).map_err(|e| e.to_string())
+            }
+            Cmd::AcceptProposal(k) => match doc.proposals.get(k) {
+                Some(p) => {
+                    let lm = p.lm;
+                    doc.lms
+                        .apply(Edit::Insert { index: doc.lms.items.len(), lm })
+                        .map(|_| format!("accepted a proposed {} point", lm.kind.as_str()))
+                        .map_err(|e| e.to_string())
+                }
+                None => Err("no such proposal".into()),
+            },
+            Cmd::DiscardProposals => {
+                let n = doc.pending().len();
+                doc.proposals.clear();
+                Ok(format!("discarded {n} proposed landmarks"))
+            }
             Cmd::Undo => Ok(if doc.lms.undo() { "undone".into() } else { "nothing to undo".into() }),
             Cmd::Redo => Ok(if doc.lms.redo() { "redone".into() } else { "nothing to redo".into() }),
             Cmd::Refit => Ok(String::new()),
@@ -581,12 +606,12 @@ impl DuctApp {
                     let t = ductline::trace::trace(&st, &seeds, 10.0).map_err(|e| e.to_string())?;
                     let low = t.proposed.iter().filter(|p| p.confidence < 0.5).count();
                     let summary = format!(
-                        "proposed {} landmarks to {:.0}° (stopped: {}); {low} below confidence 0.5 — check them, ctrl+Z takes them all back",
+                        "proposed {} landmarks to {:.0}° (stopped: {}); {low} below confidence 0.5 — review them: accept all, up to an angle, or click one",
                         t.proposed.len(),
                         t.stopped_deg,
                         t.reason
                     );
-                    Ok((t.proposed.into_iter().map(|p| p.lm).collect(), summary))
+                    Ok((t.proposed, summary))
                 }));
                 Ok("tracing…".into())
             }
@@ -1005,7 +1030,8 @@ impl DuctApp {
         cmds.extend(self.windows_ui(&ctx));
         cmds.extend(self.in_app_dialog_ui(&ctx));
         for c in cmds {
-            let edits = matches!(c, Cmd::Edit(_) | Cmd::Undo | Cmd::Redo | Cmd::Refit | Cmd::ImportLandmarks(..));
+            let edits =
+                matches!(c, Cmd::Edit(_) | Cmd::Undo | Cmd::Redo | Cmd::Refit | Cmd::ImportLandmarks(..) | Cmd::AcceptProposals(_) | Cmd::AcceptProposal(_));
             self.apply(c);
             if edits && let Some(d) = &mut self.doc {
                 d.refit();

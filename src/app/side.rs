@@ -11,11 +11,13 @@ use ductline::landmarks::Kind;
 pub struct Side {
     pub sort_by_angle: bool,
     pub voxel_text: String,
+    /// Accept proposals up to this angle (degrees); None: the last pending one's.
+    pub accept_up_to: Option<f64>,
 }
 
 impl Default for Side {
     fn default() -> Self {
-        Side { sort_by_angle: true, voxel_text: String::new() }
+        Side { sort_by_angle: true, voxel_text: String::new(), accept_up_to: None }
     }
 }
 
@@ -85,6 +87,7 @@ impl Side {
             }
             ui.checkbox(&mut view.alternate, "alternate lamina / ligament").on_hover_text("After placing a lamina point the next click places a ligament point, and back");
             ui.separator();
+            cmds.extend(self.proposals_ui(ui, doc));
             self.landmarks_ui(ui, doc, view);
             ui.separator();
             ui.strong("Fit");
@@ -126,7 +129,7 @@ impl Side {
                         }
                     }
                     for (i, t, r) in c.flagged() {
-                        ui.colored_label(palette::FLAG, format!("#{} ({}) at {:.0}° lies {r:.3} mm from the fit (ringed)", i + 1, doc.lms.items[i].kind.as_str(), t.to_degrees()));
+                        ui.colored_label(palette::OUTLIER, format!("#{} ({}) at {:.0}° lies {r:.3} mm from the fit (ringed)", i + 1, doc.lms.items[i].kind.as_str(), t.to_degrees()));
                     }
                     for (i, t, alt) in &c.ambiguous {
                         ui.colored_label(
@@ -186,6 +189,43 @@ impl Side {
             ui.separator();
             ui.small(ductline::CAUTION);
         });
+        cmds
+    }
+
+    /// The last trace's proposals awaiting review: how many, how far, how sure; accept all, up
+    /// to an angle, or drop them (one click on a proposal in the view accepts that one).
+    fn proposals_ui(&mut self, ui: &mut egui::Ui, doc: &Doc) -> Vec<Cmd> {
+        let pending = doc.pending();
+        let mut cmds = vec![];
+        if pending.is_empty() {
+            return cmds;
+        }
+        let (lo, hi) = pending.iter().fold((f64::INFINITY, f64::NEG_INFINITY), |(a, b), (_, p)| (a.min(p.angle_deg), b.max(p.angle_deg)));
+        let low = pending.iter().filter(|(_, p)| p.confidence < 0.5).count();
+        ui.strong(format!("Proposed landmarks ({})", pending.len()));
+        ui.label(format!("{lo:.0}° – {hi:.0}°, {low} below confidence 0.5"));
+        ui.small("Drawn as open rings until accepted, fainter where less sure (amber: below 0.5). Click one in the view to accept it.");
+        let mut up_to = self.accept_up_to.unwrap_or(hi).clamp(lo, hi);
+        ui.horizontal(|ui| {
+            let l = ui.label("up to");
+            ui.add(egui::DragValue::new(&mut up_to).range(lo..=hi).speed(1.0).fixed_decimals(0).suffix("°"))
+                .labelled_by(l.id)
+                .on_hover_text("Angle along the spiral up to which to accept");
+            if ui.button(format!("Accept up to {up_to:.0}°")).on_hover_text("Add the proposals up to this angle as landmarks (one undo step)").clicked() {
+                cmds.push(Cmd::AcceptProposals(up_to));
+            }
+        });
+        self.accept_up_to = Some(up_to);
+        ui.horizontal(|ui| {
+            if ui.button("Accept all").on_hover_text("Add every proposal as a landmark (one undo step)").clicked() {
+                cmds.push(Cmd::AcceptProposals(f64::INFINITY));
+            }
+            if ui.button("Discard proposals").on_hover_text("Drop the proposals not accepted").clicked() {
+                cmds.push(Cmd::DiscardProposals);
+                self.accept_up_to = None;
+            }
+        });
+        ui.separator();
         cmds
     }
 

@@ -447,10 +447,12 @@ fn title_and_quit_prompt() {
     assert!(!h.state().doc.as_ref().unwrap().dirty, "saved before quitting");
 }
 
-/// Edit → Propose landmarks: from seven seeds the trace adds its proposals in the background as
-/// one step (one undo takes them all back); an import is one step too.
+/// Edit → Propose landmarks: from seven seeds the trace proposes landmarks in the background,
+/// held apart for review (nothing counts until accepted): "Accept up to" an angle adds those
+/// as one step, a click on an open ring in the view accepts that one, "Accept all" the rest;
+/// an undo shows accepted ones as proposals again. An import is one step too.
 #[test]
-fn propose_landmarks_is_one_undo_step() {
+fn proposals_are_reviewed_before_they_count() {
     let (dir, tif) = sample_copy(false);
     let text = std::fs::read_to_string(sample_path().parent().unwrap().join("landmarks.csv")).unwrap();
     let mut lines: Vec<&str> = text.lines().take(1).collect();
@@ -473,12 +475,48 @@ fn propose_landmarks_is_one_undo_step() {
     h.get_by_label("Propose landmarks along the spiral").click();
     h.step();
     wait(&mut h, "the trace", |a| !a.busy());
-    let n = count(&h);
-    assert!(n > 100, "{n} landmarks: {}", h.state().status);
+    h.step();
+    let pending = |h: &Harness<'_, DuctApp>| h.state().doc.as_ref().unwrap().pending().len();
+    let n = pending(&h);
+    assert!(n > 100, "{n} proposed: {}", h.state().status);
+    assert_eq!(count(&h), 7, "proposals do not count until accepted");
     assert!(h.state().status.contains("stopped"), "{}", h.state().status);
-    assert!(h.state().doc.as_ref().unwrap().fitted.is_ok(), "the proposals fit");
+    // up to 360°: those, as one step
+    h.state_mut().side.accept_up_to = Some(360.0);
+    h.step();
+    h.get_by_role_and_label(Role::Button, "Accept up to 360°").click();
+    h.step();
+    let first_turn = h.state().doc.as_ref().unwrap().proposals.iter().filter(|p| p.angle_deg <= 360.0).count();
+    assert!(first_turn > 20 && count(&h) == 7 + first_turn, "{} landmarks, {first_turn} proposed in the first turn", count(&h));
+    assert!(h.state().doc.as_ref().unwrap().fitted.is_ok(), "the accepted ones fit");
+    // one by one: a click on an open ring in the view
+    let (k, p) = h.state().doc.as_ref().unwrap().pending().into_iter().next().map(|(k, p)| (k, p.lm.p)).unwrap();
+    {
+        let app = h.state_mut();
+        app.view.as_mut().unwrap().go_to(app.doc.as_ref().unwrap(), p);
+    }
+    h.step();
+    h.step();
+    let at = h.state().view.as_ref().unwrap().drawn_proposals.iter().find(|d| d.0 == k).expect("the proposal is drawn").1;
+    h.hover_at(at);
+    h.step();
+    for pressed in [true, false] {
+        h.event(egui::Event::PointerButton { pos: at, button: egui::PointerButton::Primary, pressed, modifiers: Default::default() });
+        h.step();
+    }
+    assert_eq!(count(&h), 7 + first_turn + 1, "{}", h.state().status);
+    assert!(!h.state().doc.as_ref().unwrap().pending().iter().any(|(j, _)| *j == k));
+    h.get_by_role_and_label(Role::Button, "Accept all").click();
+    h.step();
+    assert_eq!(count(&h), 7 + n);
+    assert_eq!(pending(&h), 0);
+    // undo: the last acceptance comes back as proposals
     h.state_mut().apply(Cmd::Undo);
-    assert_eq!(count(&h), 7, "one undo takes the proposals back");
+    assert_eq!(count(&h), 7 + first_turn + 1);
+    assert_eq!(pending(&h), n - first_turn - 1);
+    h.state_mut().apply(Cmd::Undo);
+    h.state_mut().apply(Cmd::Undo);
+    assert_eq!(count(&h), 7);
     h.state_mut().apply(Cmd::Undo);
     assert_eq!(count(&h), 0, "the import was one step");
 }

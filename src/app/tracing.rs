@@ -65,6 +65,8 @@ pub struct View {
     pub popup_was_open: bool,
     /// After a lamina point the active kind becomes ligament, and back (one partition, two ends).
     pub alternate: bool,
+    /// Where the last frame drew each pending proposal (index, screen position).
+    pub drawn_proposals: Vec<(usize, Pos2)>,
 }
 
 impl View {
@@ -84,6 +86,7 @@ impl View {
             wheel: 0.0,
             popup_was_open: false,
             alternate: true,
+            drawn_proposals: vec![],
         }
     }
 
@@ -270,6 +273,22 @@ impl View {
             let fade = 1.0 - (d.abs() / (1.5 * vmax)) as f32 * 0.6;
             mark(&painter, s, lm.kind, fade, self.selected == Some(i), flagged.contains(&i));
         }
+        // proposals awaiting review: open rings, fainter where the tracer is less sure
+        let mut screen_proposals = vec![];
+        for (k, pr) in doc.pending() {
+            let (a, b, d) = map.project(pr.lm.p);
+            if d.abs() > 1.5 * vmax {
+                continue;
+            }
+            let s = to_screen(a, b);
+            screen_proposals.push((k, s));
+            let c = palette::kind(pr.lm.kind).gamma_multiply(0.35 + 0.65 * pr.confidence.clamp(0.0, 1.0) as f32);
+            painter.circle_stroke(s, 6.0, Stroke::new(1.5, c));
+            if pr.confidence < 0.5 {
+                painter.circle_stroke(s, 9.0, Stroke::new(1.0, palette::WARN));
+            }
+        }
+        self.drawn_proposals = screen_proposals.clone();
         // interaction
         let nearest =
             |pos: Pos2| screen_lms.iter().filter(|(_, s)| s.distance(pos) < 9.0).min_by(|a, b| a.1.distance(pos).total_cmp(&b.1.distance(pos))).map(|x| x.0);
@@ -310,9 +329,11 @@ impl View {
             && !self.popup_was_open
             && let Some(pos) = resp.interact_pointer_pos()
         {
-            match nearest(pos) {
-                Some(i) => self.selected = Some(i),
-                None => {
+            let proposal = screen_proposals.iter().filter(|(_, s)| s.distance(pos) < 9.0).min_by(|a, b| a.1.distance(pos).total_cmp(&b.1.distance(pos)));
+            match (nearest(pos), proposal) {
+                (Some(i), _) => self.selected = Some(i),
+                (None, Some(&(k, _))) => cmds.push(Cmd::AcceptProposal(k)),
+                (None, None) => {
                     let p = to_stack(pos);
                     if doc.stack.contains_mm(p) {
                         cmds.push(Cmd::Edit(Edit::Insert { index: doc.lms.items.len(), lm: Landmark { kind: self.active, p } }));
@@ -356,7 +377,7 @@ impl View {
         } else {
             self.wheel = 0.0;
         }
-        resp.on_hover_text("Click: place the active landmark kind · drag a mark: move it · right-click a mark: delete · drag elsewhere: pan · wheel: next slice or angle · ctrl+wheel: zoom");
+        resp.on_hover_text("Click: place the active landmark kind (on an open ring: accept that proposal) · drag a mark: move it · right-click a mark: delete · drag elsewhere: pan · wheel: next slice or angle · ctrl+wheel: zoom");
         cmds
     }
 
@@ -452,7 +473,7 @@ pub fn mark(p: &egui::Painter, s: Pos2, kind: Kind, fade: f32, selected: bool, f
         }
     }
     if flagged {
-        p.circle_stroke(s, r + 5.0, Stroke::new(2.0, palette::FLAG));
+        p.circle_stroke(s, r + 5.0, Stroke::new(2.0, palette::OUTLIER));
     }
     if selected {
         p.circle_stroke(s, r + 3.0, Stroke::new(1.5, Color32::WHITE));
