@@ -18,7 +18,7 @@
 //! narrow, too little contrast three steps running, or the cut leaves the stack — and says at what angle
 //! and why.
 
-use crate::frame::{Frame, Handedness};
+use crate::frame::{Frame, Handedness, v3::V};
 use crate::landmarks::{Kind, Landmark};
 use crate::stack::Stack;
 use crate::{Error, Result};
@@ -335,6 +335,29 @@ fn find(cut: &Cut, pl: Edge, pg: Edge, vmax: f64) -> std::result::Result<(Edge, 
     let wall_snr = (top - lumen) / noise;
     let conf = (ridge_snr / 4.0).min(1.0) * (wall_snr / 6.0).min(1.0) * ((s_in - s_out) / (4.0 * noise)).min(1.0);
     Ok((Edge { angle: pl.angle, r: rl, h }, Edge { angle: pg.angle, r: rg, h }, conf.max(0.0)))
+}
+
+/// Where the partition's ends lie near a guess, for snapping a click: `lamina` and `ligament`
+/// are rough stack points (mm) of the two ends at one angle (one clicked, the other from the
+/// fit); the radial cut through the lamina guess is read as the tracer reads each step
+/// ([`trace`]). Returns the found lamina tip and ligament point, or None where the cut does not
+/// show them clearly.
+pub fn snap(stack: &Stack, frame: &Frame, lamina: V, ligament: V) -> Option<(V, V)> {
+    let vox = stack.voxel().ok()?;
+    let (vmax, pitch) = (vox.max(), 0.5 * vox.min());
+    let [rl, angle, hl] = frame.to_cochlear(lamina);
+    // the ligament guess's radius and height, taken at the lamina's angle
+    let [rg, _, hg] = frame.to_cochlear(ligament);
+    let (pl, pg) = (Edge { angle, r: rl, h: hl }, Edge { angle, r: rg, h: hg });
+    let width = pg.r - pl.r;
+    if width < 3.0 * vmax {
+        return None;
+    }
+    let hp = 0.5 * (pl.h + pg.h);
+    let half_h = 0.9 * width + 4.0 * vmax;
+    let cut = Cut::new(stack, frame, angle, [(pl.r - 1.2 * width).max(0.0), pg.r + 0.6 * width + 4.0 * vmax], [hp - half_h, hp + half_h], pitch);
+    let (l, g, conf) = find(&cut, pl, pg, vmax).ok()?;
+    (conf >= 0.2).then(|| (frame.to_stack(l.r, angle, l.h), frame.to_stack(g.r, angle, g.h)))
 }
 
 /// The landmark CSV of a trace: the seeds (confidence 1) then the proposals, with `confidence`

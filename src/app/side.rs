@@ -85,6 +85,9 @@ impl Side {
                     ui.radio_value(&mut view.active, *k, k.as_str()).on_hover_text(format!("{} (key {key})", describe(*k)));
                 });
             }
+            ui.checkbox(&mut view.snap, "snap to edges").on_hover_text(
+                "A lamina or ligament click within two voxels of the lamina tip or the ligament edge (read in the radial cut through the click) lands on it; needs a fit",
+            );
             ui.checkbox(&mut view.alternate, "alternate lamina / ligament").on_hover_text("After placing a lamina point the next click places a ligament point, and back");
             ui.separator();
             cmds.extend(self.proposals_ui(ui, doc));

@@ -540,3 +540,43 @@ fn zoom_keeps_the_point_under_the_cursor() {
     let after = v.hover.as_ref().unwrap().p;
     assert!(ductline::frame::v3::dist(before, after) < 0.05, "{before:?} → {after:?}");
 }
+
+/// Snapping: on the bundled sample (fitted), a lamina click one voxel off a placed lamina point
+/// lands on the tip the radial cut through the click shows (within a voxel of the fitted lamina
+/// curve at that angle), a ligament click likewise; with snapping off, or far from any edge, a click stays where it was made.
+#[test]
+fn clicks_snap_to_the_edges() {
+    let mut h = harness(Some(sample_path()));
+    wait(&mut h, "the sample", |a| a.doc.is_some());
+    h.step();
+    let app = h.state_mut();
+    let doc = app.doc.as_ref().unwrap();
+    assert!(doc.fitted.is_ok());
+    let vox = doc.stack.voxel.as_ref().unwrap().max();
+    let view = app.view.as_mut().unwrap();
+    let mut snapped = 0;
+    for kind in [Kind::Lamina, Kind::Ligament] {
+        view.active = kind;
+        for lm in doc.lms.items.iter().filter(|l| l.kind == kind).skip(3).step_by(7).take(6) {
+            let click = [lm.p[0] + 0.7 * vox, lm.p[1] - 0.7 * vox, lm.p[2]];
+            view.snap = true;
+            let q = view.snapped(doc, click);
+            if q != click {
+                snapped += 1;
+                let c = doc.fitted.as_ref().unwrap();
+                let [r, a, hh] = c.frame.to_cochlear(q);
+                let on_curve = c.edge_point(kind, c.unwrap_deg(r, a, hh).to_radians());
+                let d = ductline::frame::v3::dist(q, on_curve);
+                assert!(d < vox, "{kind:?}: landed {d:.3} mm from the fitted curve");
+            }
+            view.snap = false;
+            assert_eq!(view.snapped(doc, click), click);
+        }
+        // far from the partition: no snap
+        view.snap = true;
+        let c = doc.fitted.as_ref().unwrap();
+        let far = c.frame.to_stack(0.3, 45.0, 0.0);
+        assert_eq!(view.snapped(doc, far), far);
+    }
+    assert!(snapped >= 9, "{snapped} of 12 clicks snapped");
+}

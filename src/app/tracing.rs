@@ -67,6 +67,8 @@ pub struct View {
     pub alternate: bool,
     /// Where the last frame drew each pending proposal (index, screen position).
     pub drawn_proposals: Vec<(usize, Pos2)>,
+    /// A lamina or ligament click within two voxels of the edge the image shows lands on it.
+    pub snap: bool,
 }
 
 impl View {
@@ -87,6 +89,7 @@ impl View {
             popup_was_open: false,
             alternate: true,
             drawn_proposals: vec![],
+            snap: true,
         }
     }
 
@@ -334,7 +337,7 @@ impl View {
                 (Some(i), _) => self.selected = Some(i),
                 (None, Some(&(k, _))) => cmds.push(Cmd::AcceptProposal(k)),
                 (None, None) => {
-                    let p = to_stack(pos);
+                    let p = self.snapped(doc, to_stack(pos));
                     if doc.stack.contains_mm(p) {
                         cmds.push(Cmd::Edit(Edit::Insert { index: doc.lms.items.len(), lm: Landmark { kind: self.active, p } }));
                         if self.alternate {
@@ -377,7 +380,7 @@ impl View {
         } else {
             self.wheel = 0.0;
         }
-        resp.on_hover_text("Click: place the active landmark kind (on an open ring: accept that proposal) · drag a mark: move it · right-click a mark: delete · drag elsewhere: pan · wheel: next slice or angle · ctrl+wheel: zoom");
+        resp.on_hover_text("Click: place the active landmark kind (snapped to the edge within two voxels when snapping is on; on an open ring: accept that proposal) · drag a mark: move it · right-click a mark: delete · drag elsewhere: pan · wheel: next slice or angle · ctrl+wheel: zoom");
         cmds
     }
 
@@ -430,6 +433,30 @@ impl View {
                 self.pan = Vec2::ZERO;
             }
         });
+    }
+
+    /// Where a click at `p` places the active kind: with snapping on, a lamina or ligament
+    /// click within two voxels of that end of the partition as the radial cut through it shows
+    /// it ([`ductline::trace::snap`]; the other end's guess from the fit) lands there; else where
+    /// clicked. Nothing snaps before a fit exists.
+    pub fn snapped(&self, doc: &Doc, p: V) -> V {
+        let (Ok(c), Some(vox)) = (&doc.fitted, doc.stack.voxel.as_ref()) else { return p };
+        if !self.snap || !matches!(self.active, Kind::Lamina | Kind::Ligament) {
+            return p;
+        }
+        let [r, a, h] = c.frame.to_cochlear(p);
+        let t = c.unwrap_deg(r, a, h).to_radians();
+        let (lam, lig) = match self.active {
+            Kind::Lamina => (p, c.edge_point(Kind::Ligament, t)),
+            _ => (c.edge_point(Kind::Lamina, t), p),
+        };
+        match ductline::trace::snap(&doc.stack, &c.frame, lam, lig) {
+            Some((l, g)) => {
+                let q = if self.active == Kind::Lamina { l } else { g };
+                if ductline::frame::v3::dist(p, q) <= 2.0 * vox.max() { q } else { p }
+            }
+            None => p,
+        }
     }
 
     /// Moves the view to show a landmark's plane.
