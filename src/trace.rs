@@ -360,6 +360,178 @@ pub fn snap(stack: &Stack, frame: &Frame, lamina: V, ligament: V) -> Option<(V, 
     (conf >= 0.2).then(|| (frame.to_stack(l.r, angle, l.h), frame.to_stack(g.r, angle, g.h)))
 }
 
+/// A proposed modiolar axis (axis_base, axis_apex; stack mm) from the window and three or more
+/// lamina points placed along the basal turn, in the order placed (base toward apex).
+///
+/// The points of one turn lie near a plane across the axis: its normal (Newell's method over
+/// the points in order) is the first axis direction; with five points or more it is turned
+/// against the tilt a climbing spiral gives its points' plane. The axis passes through the
+/// centre of the circle fitted to the points in that plane (algebraic least squares, Kåsa 1976),
+/// with five points or more of a spiral whose radius changes linearly with the angle (a
+/// circle's centre sits off toward the wide end of a shrinking turn), and points the way the
+/// points climb — the
+/// basal dip can make the first turn sink, so the result is a proposal to check. axis_base is
+/// the axis point level with the window; axis_apex lies one mean lamina radius above it.
+///
+/// ```
+/// use ductline::trace::propose_axis;
+/// // four points on a circle of radius 2 about the line x = 1, y = 1 (z up), climbing
+/// let pts: Vec<[f64; 3]> = (0..4).map(|k| { let a = 1.5 * k as f64; [1.0 + 2.0 * a.cos(), 1.0 + 2.0 * a.sin(), 0.1 * k as f64] }).collect();
+/// let (b, a) = propose_axis([3.5, 1.0, -0.2], &pts).unwrap();
+/// assert!((b[0] - 1.0).abs() < 0.05 && (b[1] - 1.0).abs() < 0.05 && a[2] > b[2]);
+/// ```
+pub fn propose_axis(window: V, lamina: &[V]) -> Result<(V, V)> {
+    use crate::frame::v3;
+    if lamina.len() < 3 {
+        return Err(Error::invalid(format!("an axis proposal needs three or more lamina points along the basal turn, got {}", lamina.len())));
+    }
+    let n = lamina.len();
+    let c = v3::scale(lamina.iter().fold([0.0; 3], |a, p| v3::add(a, *p)), 1.0 / n as f64);
+    let mut normal = [0.0; 3];
+    for i in 0..n {
+        normal = v3::add(normal, v3::cross(v3::sub(lamina[i], c), v3::sub(lamina[(i + 1) % n], c)));
+    }
+    if v3::norm(normal) < 1e-12 {
+        return Err(Error::invalid("the lamina points lie on a line: place them around the basal turn"));
+    }
+    let mut ez = v3::unit(normal);
+    let mut centre = c;
+    // a spiral climbs as it turns, which tilts the plane of its points: with five points or more
+    // the heights are fitted as a climb linear in the angle plus a tilt (h = h0 + k·θ + a·cos θ +
+    // b·sin θ) and the axis is turned against the tilt, three times
+    for _ in 0..if n >= 5 { 4 } else { 1 } {
+        let ex = v3::unit(v3::sub(v3::sub(lamina[0], c), v3::scale(ez, v3::dot(v3::sub(lamina[0], c), ez))));
+        let ey = v3::cross(ez, ex);
+        let q: Vec<[f64; 2]> = lamina.iter().map(|p| [v3::dot(v3::sub(*p, c), ex), v3::dot(v3::sub(*p, c), ey)]).collect();
+        let circle = circle_centre(&q).ok_or_else(|| Error::invalid("the lamina points do not define a circle: place them around the basal turn"))?;
+        let [cx, cy] = if n >= 5 { spiral_centre(&q, circle) } else { circle };
+        centre = v3::add(c, v3::add(v3::scale(ex, cx), v3::scale(ey, cy)));
+        if n < 5 {
+            break;
+        }
+        let th = unwrapped_angles(&q, [cx, cy]);
+        let h: Vec<f64> = lamina.iter().map(|p| v3::dot(v3::sub(*p, centre), ez)).collect();
+        let rows: Vec<[f64; 4]> = th.iter().map(|t| [1.0, *t, t.cos(), t.sin()]).collect();
+        let Some([_, _, a, b]) = least_squares4(&rows, &h) else { break };
+        let r = q.iter().map(|p| (p[0] - cx).hypot(p[1] - cy)).sum::<f64>() / n as f64;
+        ez = v3::unit(v3::sub(ez, v3::scale(v3::add(v3::scale(ex, a), v3::scale(ey, b)), 1.0 / r)));
+    }
+    // up: the way the points climb
+    if v3::dot(v3::sub(lamina[n - 1], lamina[0]), ez) < 0.0 {
+        ez = v3::scale(ez, -1.0);
+    }
+    let radius = lamina
+        .iter()
+        .map(|p| {
+            let d = v3::sub(*p, centre);
+            v3::norm(v3::sub(d, v3::scale(ez, v3::dot(d, ez))))
+        })
+        .sum::<f64>()
+        / n as f64;
+    let base = v3::axpy(centre, v3::dot(v3::sub(window, centre), ez), ez);
+    Ok((base, v3::axpy(base, radius, ez)))
+}
+
+/// Centre of the circle through 2-D points by algebraic least squares (Kåsa 1976):
+/// x² + y² + D·x + E·y + F = 0 solved for D, E, F; None when they are collinear.
+fn circle_centre(q: &[[f64; 2]]) -> Option<[f64; 2]> {
+    let rows: Vec<[f64; 3]> = q.iter().map(|p| [p[0], p[1], 1.0]).collect();
+    let rhs: Vec<f64> = q.iter().map(|p| -(p[0] * p[0] + p[1] * p[1])).collect();
+    let mut m = [[0.0f64; 3]; 3];
+    let mut r = [0.0f64; 3];
+    for (row, y) in rows.iter().zip(&rhs) {
+        for i in 0..3 {
+            r[i] += row[i] * y;
+            for j in 0..3 {
+                m[i][j] += row[i] * row[j];
+            }
+        }
+    }
+    let x = solve::<3>(m, r)?;
+    Some([-0.5 * x[0], -0.5 * x[1]])
+}
+
+/// Angles (rad) of 2-D points about `c`, unwrapped in their order.
+fn unwrapped_angles(q: &[[f64; 2]], c: [f64; 2]) -> Vec<f64> {
+    let mut th: Vec<f64> = vec![];
+    for p in q {
+        let t = (p[1] - c[1]).atan2(p[0] - c[0]);
+        th.push(match th.last() {
+            Some(&prev) => prev + (t - prev + std::f64::consts::PI).rem_euclid(std::f64::consts::TAU) - std::f64::consts::PI,
+            None => t,
+        });
+    }
+    th
+}
+
+/// Centre of a spiral through 2-D points in order whose radius changes linearly with the angle
+/// (|q − c| = r0 + r1·θ), by Gauss–Newton from the circle's centre `start`; the circle's
+/// centre sits off toward the wide end of a shrinking turn.
+fn spiral_centre(q: &[[f64; 2]], start: [f64; 2]) -> [f64; 2] {
+    let mut c = start;
+    let mean_r = q.iter().map(|p| (p[0] - c[0]).hypot(p[1] - c[1])).sum::<f64>() / q.len() as f64;
+    let (mut r0, mut r1) = (mean_r, 0.0);
+    for _ in 0..20 {
+        let th = unwrapped_angles(q, c);
+        let mut rows = vec![];
+        let mut e = vec![];
+        for (p, t) in q.iter().zip(&th) {
+            let rho = (p[0] - c[0]).hypot(p[1] - c[1]).max(1e-12);
+            rows.push([-(p[0] - c[0]) / rho, -(p[1] - c[1]) / rho, -1.0, -t]);
+            e.push(-(rho - r0 - r1 * t));
+        }
+        let Some(d) = least_squares4(&rows, &e) else { break };
+        c = [c[0] + d[0], c[1] + d[1]];
+        r0 += d[2];
+        r1 += d[3];
+        if d[0].hypot(d[1]) < 1e-9 * mean_r {
+            break;
+        }
+    }
+    c
+}
+
+/// Least squares with four unknowns (normal equations).
+fn least_squares4(rows: &[[f64; 4]], y: &[f64]) -> Option<[f64; 4]> {
+    let mut m = [[0.0f64; 4]; 4];
+    let mut r = [0.0f64; 4];
+    for (row, y) in rows.iter().zip(y) {
+        for i in 0..4 {
+            r[i] += row[i] * y;
+            for j in 0..4 {
+                m[i][j] += row[i] * row[j];
+            }
+        }
+    }
+    solve::<4>(m, r)
+}
+
+/// Gaussian elimination with partial pivoting; None for a singular system.
+fn solve<const N: usize>(mut m: [[f64; N]; N], mut r: [f64; N]) -> Option<[f64; N]> {
+    let scale = m.iter().flatten().fold(0.0f64, |a, x| a.max(x.abs())).max(1e-300);
+    for k in 0..N {
+        let p = (k..N).max_by(|&a, &b| m[a][k].abs().total_cmp(&m[b][k].abs()))?;
+        if m[p][k].abs() < 1e-12 * scale {
+            return None;
+        }
+        m.swap(k, p);
+        r.swap(k, p);
+        for i in k + 1..N {
+            let f = m[i][k] / m[k][k];
+            let pivot = m[k];
+            for (a, b) in m[i][k..].iter_mut().zip(&pivot[k..]) {
+                *a -= f * b;
+            }
+            r[i] -= f * r[k];
+        }
+    }
+    let mut x = [0.0; N];
+    for k in (0..N).rev() {
+        x[k] = (r[k] - (k + 1..N).map(|j| m[k][j] * x[j]).sum::<f64>()) / m[k][k];
+    }
+    Some(x)
+}
+
 /// The landmark CSV of a trace: the seeds (confidence 1) then the proposals, with `confidence`
 /// and `source` (seed or proposed) columns after the four the format requires.
 pub fn to_csv(seeds: &[Landmark], t: &Trace) -> String {

@@ -96,6 +96,8 @@ pub enum Cmd {
     AcceptProposal(usize),
     /// Drop the proposals not accepted.
     DiscardProposals,
+    /// Place axis_base and axis_apex from the window and the lamina points (one step).
+    ProposeAxis,
     /// The duct-profile figure, as .svg or .png by the name.
     SaveFigure(PathBuf),
     Edit(Edit),
@@ -557,6 +559,33 @@ impl DuctApp {
                 }
                 None => Err("no such proposal".into()),
             },
+            Cmd::ProposeAxis => {
+                let items = doc.lms.items.clone();
+                let window = items.iter().find(|l| l.kind == Kind::Window).map(|l| l.p);
+                // the lamina points as placed (base toward apex), the first dozen: the basal turn
+                let lamina: Vec<[f64; 3]> = items.iter().filter(|l| l.kind == Kind::Lamina).take(12).map(|l| l.p).collect();
+                match window {
+                    None => Err("place the window first, then three or more lamina points along the basal turn".into()),
+                    Some(w) => ductline::trace::propose_axis(w, &lamina).map_err(|e| e.to_string()).and_then(|(b, a)| {
+                        let mut at = items.len();
+                        let mut group = vec![];
+                        for (kind, p) in [(Kind::AxisBase, b), (Kind::AxisApex, a)] {
+                            group.push(match items.iter().position(|l| l.kind == kind) {
+                                Some(index) => Edit::Move { index, to: p },
+                                None => {
+                                    at += 1;
+                                    Edit::Insert { index: at - 1, lm: Landmark { kind, p } }
+                                }
+                            });
+                        }
+                        doc.lms.apply(Edit::Group(group)).map_err(|e| e.to_string())?;
+                        Ok(format!(
+                            "proposed the modiolar axis from the window and {} lamina points: check which end is the apex and move them if needed",
+                            lamina.len()
+                        ))
+                    }),
+                }
+            }
             Cmd::DiscardProposals => {
                 let n = doc.pending().len();
                 doc.proposals.clear();
@@ -843,6 +872,13 @@ impl DuctApp {
                 {
                     cmds.push(Cmd::Trace);
                 }
+                if ui
+                    .add_enabled(self.doc.is_some(), egui::Button::new("Propose the modiolar axis"))
+                    .on_hover_text("From the window and three or more lamina points placed along the basal turn (five or more: better): axis_base and axis_apex placed, as one step, for you to check and move")
+                    .clicked()
+                {
+                    cmds.push(Cmd::ProposeAxis);
+                }
             });
             ui.menu_button("Help", |ui| {
                 if ui.button("Shortcuts  (F1)").clicked() {
@@ -1030,8 +1066,17 @@ impl DuctApp {
         cmds.extend(self.windows_ui(&ctx));
         cmds.extend(self.in_app_dialog_ui(&ctx));
         for c in cmds {
-            let edits =
-                matches!(c, Cmd::Edit(_) | Cmd::Undo | Cmd::Redo | Cmd::Refit | Cmd::ImportLandmarks(..) | Cmd::AcceptProposals(_) | Cmd::AcceptProposal(_));
+            let edits = matches!(
+                c,
+                Cmd::Edit(_)
+                    | Cmd::Undo
+                    | Cmd::Redo
+                    | Cmd::Refit
+                    | Cmd::ImportLandmarks(..)
+                    | Cmd::AcceptProposals(_)
+                    | Cmd::AcceptProposal(_)
+                    | Cmd::ProposeAxis
+            );
             self.apply(c);
             if edits && let Some(d) = &mut self.doc {
                 d.refit();

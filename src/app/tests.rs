@@ -580,3 +580,38 @@ fn clicks_snap_to_the_edges() {
     }
     assert!(snapped >= 9, "{snapped} of 12 clicks snapped");
 }
+
+/// Edit → Propose the modiolar axis: on the bundled sample with its axis points removed, the
+/// window and the lamina points place axis_base and axis_apex near the ones removed (direction
+/// within 8°), as one step (one undo takes them back); without a window it says what is missing.
+#[test]
+fn propose_the_axis_from_the_window_and_lamina() {
+    let mut h = harness(Some(sample_path()));
+    wait(&mut h, "the sample", |a| a.doc.is_some());
+    let axis = |h: &Harness<'_, DuctApp>| {
+        let items = &h.state().doc.as_ref().unwrap().lms.items;
+        let get = |k: Kind| items.iter().position(|l| l.kind == k);
+        (get(Kind::AxisBase), get(Kind::AxisApex))
+    };
+    let (Some(b), Some(a)) = axis(&h) else { panic!("the sample has an axis") };
+    let items = h.state().doc.as_ref().unwrap().lms.items.clone();
+    let truth = ductline::frame::v3::unit(ductline::frame::v3::sub(items[a].p, items[b].p));
+    for i in [a.max(b), a.min(b)] {
+        h.state_mut().apply(Cmd::Edit(ductline::landmarks::Edit::Delete { index: i }));
+    }
+    h.step();
+    assert_eq!(axis(&h), (None, None));
+    h.get_by_role_and_label(Role::Button, "Edit").click();
+    h.step();
+    h.step();
+    h.get_by_label("Propose the modiolar axis").click();
+    h.step();
+    let (Some(b), Some(a)) = axis(&h) else { panic!("no axis proposed: {}", h.state().status) };
+    let items = &h.state().doc.as_ref().unwrap().lms.items;
+    let dir = ductline::frame::v3::unit(ductline::frame::v3::sub(items[a].p, items[b].p));
+    let angle = ductline::frame::v3::dot(dir, truth).clamp(-1.0, 1.0).acos().to_degrees();
+    assert!(angle < 8.0, "proposed axis {angle:.1}° off the sample's: {}", h.state().status);
+    assert!(h.state().doc.as_ref().unwrap().fitted.is_ok(), "the proposed axis fits");
+    h.state_mut().apply(Cmd::Undo);
+    assert_eq!(axis(&h), (None, None), "one undo takes the proposal back");
+}
