@@ -28,6 +28,18 @@ use std::sync::mpsc::Receiver;
 use std::time::{Duration, Instant};
 
 /// Colours of the app (its own palette).
+/// The status line's colour: errors red, warnings and stops amber, the rest plain.
+pub fn status_colour(status: &str, plain: egui::Color32) -> egui::Color32 {
+    let s = status.to_lowercase();
+    if s.starts_with("error") || s.contains("failed") || s.contains("cannot") {
+        palette::FLAG
+    } else if s.starts_with("warning") || s.contains("stopped") || s.contains("below confidence") {
+        palette::WARN
+    } else {
+        plain
+    }
+}
+
 pub mod palette {
     use ductline::landmarks::Kind;
     use egui::Color32;
@@ -903,7 +915,7 @@ impl DuctApp {
                 ui.monospace(format!("│ value {}", if h.value.is_nan() { "—".to_string() } else { format!("{:.1}", h.value) }));
                 ui.separator();
             }
-            ui.label(&self.status);
+            ui.label(egui::RichText::new(&self.status).color(status_colour(&self.status, ui.visuals().text_color())));
         });
     }
 

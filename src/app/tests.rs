@@ -615,3 +615,35 @@ fn propose_the_axis_from_the_window_and_lamina() {
     h.state_mut().apply(Cmd::Undo);
     assert_eq!(axis(&h), (None, None), "one undo takes the proposal back");
 }
+
+/// The radial cut keeps one scale while stepping round the spiral: the same rectangle (size and
+/// pixel pitch) at every angle.
+#[test]
+fn radial_cut_keeps_its_scale() {
+    let mut h = harness(Some(sample_path()));
+    wait(&mut h, "the sample", |a| a.doc.is_some());
+    h.get_by_label("Radial cut").click();
+    h.step();
+    let app = h.state_mut();
+    let doc = app.doc.as_ref().unwrap();
+    let view = app.view.as_mut().unwrap();
+    let mut seen = vec![];
+    for a in [0.0, 37.0, 90.0, 135.0, 200.0, 290.0] {
+        view.angle_deg = a;
+        let m = view.plane_map(doc).unwrap();
+        seen.push((m.nu, m.nv, ductline::frame::v3::norm(m.du)));
+    }
+    assert!(seen.windows(2).all(|w| w[0].0 == w[1].0 && w[0].1 == w[1].1 && (w[0].2 - w[1].2).abs() < 1e-12), "{seen:?}");
+}
+
+/// The status line is coloured by what it says: errors red, warnings and stops amber, the rest
+/// plain (so a failure is not read as a note).
+#[test]
+fn status_line_colours() {
+    use super::{palette, status_colour};
+    let plain = egui::Color32::GRAY;
+    assert_eq!(status_colour("error: /tmp/x.tif: not a readable TIFF", plain), palette::FLAG);
+    assert_eq!(status_colour("measure stopped: cancelled", plain), palette::WARN);
+    assert_eq!(status_colour("warning: no slice spacing", plain), palette::WARN);
+    assert_eq!(status_colour("wrote /tmp/table.csv", plain), plain);
+}
