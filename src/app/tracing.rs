@@ -122,8 +122,8 @@ impl View {
                 let (o, er, ez) = frame.radial_plane(self.angle_deg);
                 let (lo, hi) = st.bounds_mm().ok()?;
                 // the same rectangle at every angle (a fixed scale while stepping round the
-                // spiral): from just inside the axis out to the stack corner farthest from it,
-                // over the heights the stack's corners span
+                // spiral): the plane through the axis out to the stack corner farthest from it on
+                // either side, over the heights the stack's corners span
                 let (mut u1, mut w0, mut w1) = (0.0f64, f64::INFINITY, f64::NEG_INFINITY);
                 for c in 0..8 {
                     let p = [if c & 1 == 0 { lo[0] } else { hi[0] }, if c & 2 == 0 { lo[1] } else { hi[1] }, if c & 4 == 0 { lo[2] } else { hi[2] }];
@@ -131,7 +131,7 @@ impl View {
                     let w = v3::dot(d, ez);
                     (u1, w0, w1) = (u1.max(v3::norm(v3::axpy(d, -w, ez))), w0.min(w), w1.max(w));
                 }
-                let u0 = -0.05 * u1;
+                let u0 = -u1;
                 let pitch = (v[0].min(v[1]).min(v[2])).max((u1 - u0).max(w1 - w0) / 1024.0);
                 PlaneMap {
                     origin: v3::axpy(v3::axpy(o, u0, er), w1, ez),
