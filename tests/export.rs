@@ -96,6 +96,30 @@ fn phantom_volume(spec: &PhantomSpec, a0: f64, a1: f64, sv: bool) -> f64 {
     v
 }
 
+/// gmsh (an outside mesher) fills both STL surfaces in `dir` with at least `min` tetrahedra
+/// each; it refuses a boundary that is open or crosses itself.
+fn gmsh_fills(dir: &std::path::Path, min: usize, what: &str) {
+    python_check(
+        "gmsh",
+        dir,
+        &format!(
+            r#"
+import gmsh
+for name in ["scala_vestibuli", "scala_tympani"]:
+    gmsh.initialize(); gmsh.option.setNumber("General.Terminal", 0)
+    gmsh.merge(f"{{DIR}}/{{name}}.stl")
+    l = gmsh.model.geo.addSurfaceLoop([e[1] for e in gmsh.model.getEntities(2)])
+    gmsh.model.geo.addVolume([l]); gmsh.model.geo.synchronize()
+    gmsh.model.mesh.generate(3)
+    n = sum(len(t) for t in gmsh.model.mesh.getElements(3)[1])
+    assert n > {min}, (name, n)
+    print("gmsh", gmsh.__version__, name, n, "tetrahedra{what}")
+    gmsh.finalize()
+"#
+        ),
+    );
+}
+
 /// Runs a Python check (`code`, with `DIR` bound to `dir`) when `module` imports; says so and
 /// returns false when it does not (the CI installs it: .ci/run).
 fn python_check(module: &str, dir: &std::path::Path, code: &str) -> bool {
@@ -188,25 +212,7 @@ assert sec.GetNumberOfLines() > 600
 print("vtk", vtk.vtkVersion.GetVTKVersion(), ": centreline arrays equal the CSV; surfaces closed")
 "#,
     );
-    python_check(
-        "gmsh",
-        dir.path(),
-        r#"
-import gmsh
-for name in ["scala_vestibuli", "scala_tympani"]:
-    gmsh.initialize(); gmsh.option.setNumber("General.Terminal", 0)
-    gmsh.merge(f"{DIR}/{name}.stl")
-    s = gmsh.model.getEntities(2)
-    l = gmsh.model.geo.addSurfaceLoop([e[1] for e in s])
-    gmsh.model.geo.addVolume([l]); gmsh.model.geo.synchronize()
-    gmsh.model.mesh.generate(3)
-    types, tags, _ = gmsh.model.mesh.getElements(3)
-    n = sum(len(t) for t in tags)
-    assert n > 1000, (name, n)
-    print("gmsh", gmsh.__version__, name, n, "tetrahedra")
-    gmsh.finalize()
-"#,
-    );
+    gmsh_fills(dir.path(), 1000, "");
 }
 
 /// The profile figure: the SVG has both panels' axis titles with units, a curve per series and
@@ -298,21 +304,5 @@ fn tight_curl_surfaces_do_not_fold() {
     }
     let dir = tempfile::tempdir().unwrap();
     export::write_stl(&out, dir.path()).unwrap();
-    python_check(
-        "gmsh",
-        dir.path(),
-        r#"
-import gmsh
-for name in ["scala_vestibuli", "scala_tympani"]:
-    gmsh.initialize(); gmsh.option.setNumber("General.Terminal", 0)
-    gmsh.merge(f"{DIR}/{name}.stl")
-    l = gmsh.model.geo.addSurfaceLoop([e[1] for e in gmsh.model.getEntities(2)])
-    gmsh.model.geo.addVolume([l]); gmsh.model.geo.synchronize()
-    gmsh.model.mesh.generate(3)
-    n = sum(len(t) for t in gmsh.model.mesh.getElements(3)[1])
-    assert n > 100, (name, n)
-    print("gmsh", gmsh.__version__, name, n, "tetrahedra (tight curl)")
-    gmsh.finalize()
-"#,
-    );
+    gmsh_fills(dir.path(), 100, " (tight curl)");
 }
