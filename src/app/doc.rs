@@ -43,14 +43,17 @@ pub struct Doc {
 }
 
 impl Doc {
-    /// The proposals not accepted yet, with their index: a proposal counts as accepted while a
-    /// placed landmark of its kind sits on it, so undoing an acceptance shows it again.
+    /// The proposals not settled yet, with their index: a proposal is settled while a placed
+    /// landmark of its kind lies within one voxel of it (accepted, then maybe nudged; or placed
+    /// there by hand; neighbouring proposals lie farther apart), so undoing an acceptance shows it
+    /// again.
     pub fn pending(&self) -> Vec<(usize, ductline::trace::Proposed)> {
+        let near = self.stack.voxel.as_ref().map_or(0.0, |v| v.max());
         self.proposals
             .iter()
             .copied()
             .enumerate()
-            .filter(|(_, pr)| !self.lms.items.iter().any(|l| l.kind == pr.lm.kind && ductline::frame::v3::dist(l.p, pr.lm.p) < 1e-9))
+            .filter(|(_, pr)| !self.lms.items.iter().any(|l| l.kind == pr.lm.kind && ductline::frame::v3::dist(l.p, pr.lm.p) <= near.max(1e-9)))
             .collect()
     }
 
