@@ -220,10 +220,10 @@ impl LandmarkSet {
         Ok(())
     }
 
-    /// Adds a landmark at the end.
-    pub fn add(&mut self, lm: Landmark) {
-        let index = self.items.len();
-        let _ = self.apply(Edit::Insert { index, lm });
+    /// Adds landmarks at the end as one step (one undo takes them all back).
+    pub fn append(&mut self, lms: Vec<Landmark>) -> Result<()> {
+        let at = self.items.len();
+        self.apply(Edit::Group(lms.into_iter().enumerate().map(|(k, lm)| Edit::Insert { index: at + k, lm }).collect()))
     }
 
     pub fn undo(&mut self) -> bool {

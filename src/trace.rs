@@ -74,6 +74,15 @@ impl Cut {
         }
         Cut { r0: r[0], h0: h[0], pitch, nr, nh, v }
     }
+    /// The cut the tracer reads for predicted lamina and ligament points `pl`, `pg` (their
+    /// partition `width` apart): from the lamina's inner side (1.2 widths in) to beyond the
+    /// ligament, a duct height about their mean height, sampled every `pitch` mm.
+    fn around(stack: &Stack, f: &Frame, angle_deg: f64, pl: Edge, pg: Edge, vmax: f64, pitch: f64) -> Cut {
+        let width = pg.r - pl.r;
+        let hp = 0.5 * (pl.h + pg.h);
+        let half_h = 0.9 * width + 4.0 * vmax;
+        Cut::new(stack, f, angle_deg, [(pl.r - 1.2 * width).max(0.0), pg.r + 0.6 * width + 4.0 * vmax], [hp - half_h, hp + half_h], pitch)
+    }
     fn at(&self, i: usize, j: usize) -> f32 {
         self.v[j * self.nr + i]
     }
@@ -157,11 +166,7 @@ pub fn trace(stack: &Stack, seeds: &[Landmark], step_deg: f64) -> Result<Trace> 
         if width < 3.0 * vmax {
             break (format!("the predicted partition is under three voxels wide ({:.3} mm)", width), last_ok);
         }
-        // the cut: from the lamina's inner side to beyond the ligament, a duct height about
-        let hp = 0.5 * (pl.h + pg.h);
-        let (span_in, span_out) = (1.2 * width, 0.6 * width + 4.0 * vmax);
-        let half_h = 0.9 * width + 4.0 * vmax;
-        let cut = Cut::new(stack, &frame, angle, [(pl.r - span_in).max(0.0), pg.r + span_out], [hp - half_h, hp + half_h], pitch);
+        let cut = Cut::around(stack, &frame, angle, pl, pg, vmax, pitch);
         match find(&cut, pl, pg, vmax) {
             Ok((l, g, conf)) => {
                 // a point far from its prediction is less sure; one over a fifth of the width off
@@ -349,14 +354,10 @@ pub fn snap(stack: &Stack, frame: &Frame, lamina: V, ligament: V) -> Option<(V, 
     // the ligament guess's radius and height, taken at the lamina's angle
     let [rg, _, hg] = frame.to_cochlear(ligament);
     let (pl, pg) = (Edge { angle, r: rl, h: hl }, Edge { angle, r: rg, h: hg });
-    let width = pg.r - pl.r;
-    if width < 3.0 * vmax {
+    if pg.r - pl.r < 3.0 * vmax {
         return None;
     }
-    let hp = 0.5 * (pl.h + pg.h);
-    let half_h = 0.9 * width + 4.0 * vmax;
-    let cut = Cut::new(stack, frame, angle, [(pl.r - 1.2 * width).max(0.0), pg.r + 0.6 * width + 4.0 * vmax], [hp - half_h, hp + half_h], pitch);
-    let (l, g, conf) = find(&cut, pl, pg, vmax).ok()?;
+    let (l, g, conf) = find(&Cut::around(stack, frame, angle, pl, pg, vmax, pitch), pl, pg, vmax).ok()?;
     (conf >= 0.2).then(|| (frame.to_stack(l.r, angle, l.h), frame.to_stack(g.r, angle, g.h)))
 }
 
@@ -369,9 +370,9 @@ pub fn snap(stack: &Stack, frame: &Frame, lamina: V, ligament: V) -> Option<(V, 
 /// centre of the circle fitted to the points in that plane (algebraic least squares, Kåsa 1976),
 /// with five points or more of a spiral whose radius changes linearly with the angle (a
 /// circle's centre sits off toward the wide end of a shrinking turn), and points the way the
-/// points climb — the
-/// basal dip can make the first turn sink, so the result is a proposal to check. axis_base is
-/// the axis point level with the window; axis_apex lies one mean lamina radius above it.
+/// points climb — the basal dip can make the first turn sink, so the result is a proposal to
+/// check. axis_base is the axis point level with the window; axis_apex lies one mean lamina
+/// radius above it.
 ///
 /// ```
 /// use ductline::trace::propose_axis;
@@ -398,7 +399,7 @@ pub fn propose_axis(window: V, lamina: &[V]) -> Result<(V, V)> {
     let mut centre = c;
     // a spiral climbs as it turns, which tilts the plane of its points: with five points or more
     // the heights are fitted as a climb linear in the angle plus a tilt (h = h0 + k·θ + a·cos θ +
-    // b·sin θ) and the axis is turned against the tilt, three times
+    // b·sin θ) and the axis is turned against the tilt, four times
     for _ in 0..if n >= 5 { 4 } else { 1 } {
         let ex = v3::unit(v3::sub(v3::sub(lamina[0], c), v3::scale(ez, v3::dot(v3::sub(lamina[0], c), ez))));
         let ey = v3::cross(ez, ex);
@@ -412,7 +413,7 @@ pub fn propose_axis(window: V, lamina: &[V]) -> Result<(V, V)> {
         let th = unwrapped_angles(&q, [cx, cy]);
         let h: Vec<f64> = lamina.iter().map(|p| v3::dot(v3::sub(*p, centre), ez)).collect();
         let rows: Vec<[f64; 4]> = th.iter().map(|t| [1.0, *t, t.cos(), t.sin()]).collect();
-        let Some([_, _, a, b]) = least_squares4(&rows, &h) else { break };
+        let Some([_, _, a, b]) = least_squares(&rows, &h) else { break };
         let r = q.iter().map(|p| (p[0] - cx).hypot(p[1] - cy)).sum::<f64>() / n as f64;
         ez = v3::unit(v3::sub(ez, v3::scale(v3::add(v3::scale(ex, a), v3::scale(ey, b)), 1.0 / r)));
     }
@@ -437,17 +438,7 @@ pub fn propose_axis(window: V, lamina: &[V]) -> Result<(V, V)> {
 fn circle_centre(q: &[[f64; 2]]) -> Option<[f64; 2]> {
     let rows: Vec<[f64; 3]> = q.iter().map(|p| [p[0], p[1], 1.0]).collect();
     let rhs: Vec<f64> = q.iter().map(|p| -(p[0] * p[0] + p[1] * p[1])).collect();
-    let mut m = [[0.0f64; 3]; 3];
-    let mut r = [0.0f64; 3];
-    for (row, y) in rows.iter().zip(&rhs) {
-        for i in 0..3 {
-            r[i] += row[i] * y;
-            for j in 0..3 {
-                m[i][j] += row[i] * row[j];
-            }
-        }
-    }
-    let x = solve::<3>(m, r)?;
+    let x = least_squares(&rows, &rhs)?;
     Some([-0.5 * x[0], -0.5 * x[1]])
 }
 
@@ -480,7 +471,7 @@ fn spiral_centre(q: &[[f64; 2]], start: [f64; 2]) -> [f64; 2] {
             rows.push([-(p[0] - c[0]) / rho, -(p[1] - c[1]) / rho, -1.0, -t]);
             e.push(-(rho - r0 - r1 * t));
         }
-        let Some(d) = least_squares4(&rows, &e) else { break };
+        let Some(d) = least_squares(&rows, &e) else { break };
         c = [c[0] + d[0], c[1] + d[1]];
         r0 += d[2];
         r1 += d[3];
@@ -491,19 +482,19 @@ fn spiral_centre(q: &[[f64; 2]], start: [f64; 2]) -> [f64; 2] {
     c
 }
 
-/// Least squares with four unknowns (normal equations).
-fn least_squares4(rows: &[[f64; 4]], y: &[f64]) -> Option<[f64; 4]> {
-    let mut m = [[0.0f64; 4]; 4];
-    let mut r = [0.0f64; 4];
+/// Least squares for N unknowns (normal equations); None for a singular system.
+fn least_squares<const N: usize>(rows: &[[f64; N]], y: &[f64]) -> Option<[f64; N]> {
+    let mut m = [[0.0f64; N]; N];
+    let mut r = [0.0f64; N];
     for (row, y) in rows.iter().zip(y) {
-        for i in 0..4 {
+        for i in 0..N {
             r[i] += row[i] * y;
-            for j in 0..4 {
+            for j in 0..N {
                 m[i][j] += row[i] * row[j];
             }
         }
     }
-    solve::<4>(m, r)
+    solve(m, r)
 }
 
 /// Gaussian elimination with partial pivoting; None for a singular system.

@@ -27,7 +27,6 @@ use std::path::{Path, PathBuf};
 use std::sync::mpsc::Receiver;
 use std::time::{Duration, Instant};
 
-/// Colours of the app (its own palette).
 /// The status line's colour: errors red, warnings and stops amber, the rest plain.
 pub fn status_colour(status: &str, plain: egui::Color32) -> egui::Color32 {
     let s = status.to_lowercase();
@@ -40,6 +39,7 @@ pub fn status_colour(status: &str, plain: egui::Color32) -> egui::Color32 {
     }
 }
 
+/// Colours of the app (its own palette).
 pub mod palette {
     use ductline::landmarks::Kind;
     use egui::Color32;
@@ -552,22 +552,18 @@ impl DuctApp {
             Cmd::Edit(e) => doc.lms.apply(e).map(|_| String::new()).map_err(|e| e.to_string()),
             Cmd::AcceptProposals(up_to) => {
                 let lms: Vec<Landmark> = doc.pending().into_iter().filter(|(_, p)| p.angle_deg <= up_to).map(|(_, p)| p.lm).collect();
-                let (n, at) = (lms.len(), doc.lms.items.len());
+                let n = lms.len();
                 if n == 0 {
                     self.status = "no proposal up to that angle".into();
                     return;
                 }
                 // one step: a single undo takes them back (and shows them as proposals again)
-                let group = lms.into_iter().enumerate().map(|(k, lm)| Edit::Insert { index: at + k, lm }).collect();
-                doc.lms.apply(Edit::Group(group)).map(|_| format!("accepted {n} proposed landmarks")).map_err(|e| e.to_string())
+                doc.lms.append(lms).map(|_| format!("accepted {n} proposed landmarks")).map_err(|e| e.to_string())
             }
             Cmd::AcceptProposal(k) => match doc.proposals.get(k) {
                 Some(p) => {
                     let lm = p.lm;
-                    doc.lms
-                        .apply(Edit::Insert { index: doc.lms.items.len(), lm })
-                        .map(|_| format!("accepted a proposed {} point", lm.kind.as_str()))
-                        .map_err(|e| e.to_string())
+                    doc.lms.append(vec![lm]).map(|_| format!("accepted a proposed {} point", lm.kind.as_str())).map_err(|e| e.to_string())
                 }
                 None => Err("no such proposal".into()),
             },
@@ -616,9 +612,7 @@ impl DuctApp {
                 read.map_err(|e| e.to_string()).and_then(|items| {
                     let n = items.len();
                     // one step: a single undo takes the whole import back
-                    let at = doc.lms.items.len();
-                    let group = items.into_iter().enumerate().map(|(k, lm)| Edit::Insert { index: at + k, lm }).collect();
-                    doc.lms.apply(Edit::Group(group)).map_err(|e| e.to_string())?;
+                    doc.lms.append(items).map_err(|e| e.to_string())?;
                     let frame = if world { doc.stack.world.as_ref().map(|w| format!(" (world frame {})", w.frame)).unwrap_or_default() } else { String::new() };
                     Ok(format!("imported {n} landmarks from {}{frame}", p.display()))
                 })
@@ -879,7 +873,7 @@ impl DuctApp {
                 ui.separator();
                 if ui
                     .add_enabled(self.doc.is_some() && self.tracing.is_none(), egui::Button::new("Propose landmarks along the spiral"))
-                    .on_hover_text("From the axis, the window and at least two lamina and two ligament points near the base: lamina and ligament points every 10° up the spiral, added as one step")
+                    .on_hover_text("From the axis, the window and at least two lamina and two ligament points near the base: lamina and ligament points every 10° up the spiral, held apart for review (accept them from the side panel or by clicking one)")
                     .clicked()
                 {
                     cmds.push(Cmd::Trace);

@@ -24,174 +24,184 @@ impl Default for Side {
 impl Side {
     pub fn side_ui(&mut self, ui: &mut egui::Ui, doc: &mut Doc, view: &mut View, running: Option<(String, f32)>) -> Vec<Cmd> {
         let mut cmds = vec![];
-        egui::ScrollArea::vertical().show(ui, |ui| {
-            ui.heading("Specimen");
-            let st = &doc.stack;
-            ui.label(doc.stack_path.file_name().map(|n| n.to_string_lossy().to_string()).unwrap_or_default())
-                .on_hover_text(doc.stack_path.display().to_string());
-            ui.label(format!("{} × {} × {} voxels, {}", st.dims[0], st.dims[1], st.dims[2], st.samples.type_name()));
-            let how = if st.samples.is_mapped() { "memory-mapped" } else { "in memory" };
-            ui.label(format!("{:.1} MB {how}, values {:.0} … {:.0}", st.bytes() as f64 / 1e6, doc.range.0, doc.range.1));
-            if doc.overview.is_some() {
-                ui.small("zoomed-out views use a block-averaged overview");
+        // (the panel itself scrolls: the app wraps it in a scroll area)
+        ui.heading("Specimen");
+        let st = &doc.stack;
+        ui.label(doc.stack_path.file_name().map(|n| n.to_string_lossy().to_string()).unwrap_or_default()).on_hover_text(doc.stack_path.display().to_string());
+        ui.label(format!("{} × {} × {} voxels, {}", st.dims[0], st.dims[1], st.dims[2], st.samples.type_name()));
+        let how = if st.samples.is_mapped() { "memory-mapped" } else { "in memory" };
+        ui.label(format!("{:.1} MB {how}, values {:.0} … {:.0}", st.bytes() as f64 / 1e6, doc.range.0, doc.range.1));
+        if doc.overview.is_some() {
+            ui.small("zoomed-out views use a block-averaged overview");
+        }
+        match &st.voxel {
+            Some(v) => {
+                ui.label(format!("voxel {}", v.describe()));
             }
-            match &st.voxel {
-                Some(v) => {
-                    ui.label(format!("voxel {}", v.describe()));
-                }
-                None => {
-                    ui.colored_label(palette::FLAG, "The file gives no voxel size.");
-                    ui.horizontal(|ui| {
-                        let l = ui.label("voxel (µm)");
-                        ui.add(egui::TextEdit::singleline(&mut self.voxel_text).desired_width(90.0).hint_text("e.g. 20 or 20,20,25"))
-                            .labelled_by(l.id)
-                            .on_hover_text("One value for cubic voxels, or X,Y,Z");
-                        if ui.button("Set").on_hover_text("Use this voxel size").clicked() {
-                            let vals: Result<Vec<f64>, _> = self.voxel_text.split(',').map(|s| s.trim().parse::<f64>()).collect();
-                            cmds.push(match vals {
-                                Ok(v) => Cmd::SetVoxel(v),
-                                Err(_) => Cmd::Status(format!("'{}' is not a voxel size in µm", self.voxel_text)),
-                            });
-                        }
-                    });
-                }
-            }
-            ui.separator();
-            ui.strong("Window / level");
-            let span = (doc.range.1 - doc.range.0).max(1.0);
-            let mut level = 0.5 * (doc.window[0] + doc.window[1]);
-            let mut width = doc.window[1] - doc.window[0];
-            ui.horizontal(|ui| {
-                let l = ui.label("level");
-                let a = ui.add(egui::DragValue::new(&mut level).speed(span / 500.0)).labelled_by(l.id).on_hover_text("Grey value shown as mid grey");
-                let l = ui.label("window");
-                let b = ui
-                    .add(egui::DragValue::new(&mut width).speed(span / 500.0).range(1e-6..=f64::MAX))
-                    .labelled_by(l.id)
-                    .on_hover_text("Range of grey values from black to white");
-                if a.changed() || b.changed() {
-                    doc.window = [level - 0.5 * width, level + 0.5 * width];
-                }
-                if ui.button("Auto").on_hover_text("From the 0.5 and 99.5 percentiles of the stack").clicked() {
-                    doc.window = super::doc::auto_window(&doc.stack);
-                }
-            });
-            ui.separator();
-            ui.strong("Place");
-            for (k, key) in Kind::ALL.iter().zip(["1", "2", "3", "4", "5"]) {
+            None => {
+                ui.colored_label(palette::FLAG, "The file gives no voxel size.");
                 ui.horizontal(|ui| {
-                    let (r, p) = ui.allocate_painter(egui::vec2(16.0, 16.0), egui::Sense::hover());
-                    super::tracing::mark(&p, r.rect.center(), *k, 1.0, false, false);
-                    ui.radio_value(&mut view.active, *k, k.as_str()).on_hover_text(format!("{} (key {key})", describe(*k)));
+                    let l = ui.label("voxel (µm)");
+                    ui.add(egui::TextEdit::singleline(&mut self.voxel_text).desired_width(90.0).hint_text("e.g. 20 or 20,20,25"))
+                        .labelled_by(l.id)
+                        .on_hover_text("One value for cubic voxels, or X,Y,Z");
+                    if ui.button("Set").on_hover_text("Use this voxel size").clicked() {
+                        let vals: Result<Vec<f64>, _> = self.voxel_text.split(',').map(|s| s.trim().parse::<f64>()).collect();
+                        cmds.push(match vals {
+                            Ok(v) => Cmd::SetVoxel(v),
+                            Err(_) => Cmd::Status(format!("'{}' is not a voxel size in µm", self.voxel_text)),
+                        });
+                    }
                 });
             }
-            ui.checkbox(&mut view.snap, "snap to edges").on_hover_text(
-                "A lamina or ligament click within two voxels of the lamina tip or the ligament edge (read in the radial cut through the click) lands on it; needs a fit",
-            );
-            ui.checkbox(&mut view.alternate, "alternate lamina / ligament").on_hover_text("After placing a lamina point the next click places a ligament point, and back");
-            ui.separator();
-            cmds.extend(self.proposals_ui(ui, doc));
-            self.landmarks_ui(ui, doc, view);
-            ui.separator();
-            ui.strong("Fit");
-            let mut auto = doc.fit.smoothing.is_none();
-            if ui.checkbox(&mut auto, "smoothing by cross-validation").on_hover_text("Generalized cross-validation picks the smoothing of each curve").changed()
-            {
-                doc.fit.smoothing = if auto { None } else { Some(1e-3) };
+        }
+        ui.separator();
+        ui.strong("Window / level");
+        let span = (doc.range.1 - doc.range.0).max(1.0);
+        let mut level = 0.5 * (doc.window[0] + doc.window[1]);
+        let mut width = doc.window[1] - doc.window[0];
+        ui.horizontal(|ui| {
+            let l = ui.label("level");
+            let a = ui.add(egui::DragValue::new(&mut level).speed(span / 500.0)).labelled_by(l.id).on_hover_text("Grey value shown as mid grey");
+            let l = ui.label("window");
+            let b = ui
+                .add(egui::DragValue::new(&mut width).speed(span / 500.0).range(1e-6..=f64::MAX))
+                .labelled_by(l.id)
+                .on_hover_text("Range of grey values from black to white");
+            if a.changed() || b.changed() {
+                doc.window = [level - 0.5 * width, level + 0.5 * width];
+            }
+            if ui.button("Auto").on_hover_text("From the 0.5 and 99.5 percentiles of the stack").clicked() {
+                doc.window = super::doc::auto_window(&doc.stack);
+            }
+        });
+        ui.separator();
+        ui.strong("Place");
+        for (k, key) in Kind::ALL.iter().zip(["1", "2", "3", "4", "5"]) {
+            ui.horizontal(|ui| {
+                let (r, p) = ui.allocate_painter(egui::vec2(16.0, 16.0), egui::Sense::hover());
+                super::tracing::mark(&p, r.rect.center(), *k, 1.0, false, false);
+                ui.radio_value(&mut view.active, *k, k.as_str()).on_hover_text(format!("{} (key {key})", describe(*k)));
+            });
+        }
+        ui.checkbox(&mut view.snap, "snap to edges").on_hover_text(
+            "A lamina or ligament click within two voxels of the lamina tip or the ligament edge (read in the radial cut through the click) lands on it; needs a fit",
+        );
+        ui.checkbox(&mut view.alternate, "alternate lamina / ligament")
+            .on_hover_text("After placing a lamina point the next click places a ligament point, and back");
+        ui.separator();
+        cmds.extend(self.proposals_ui(ui, doc));
+        self.landmarks_ui(ui, doc, view);
+        ui.separator();
+        ui.strong("Fit");
+        let mut auto = doc.fit.smoothing.is_none();
+        if ui.checkbox(&mut auto, "smoothing by cross-validation").on_hover_text("Generalized cross-validation picks the smoothing of each curve").changed() {
+            doc.fit.smoothing = if auto { None } else { Some(1e-3) };
+            cmds.push(Cmd::Refit);
+        }
+        if let Some(l) = doc.fit.smoothing {
+            let mut lg = l.log10();
+            let lab = ui.label("log₁₀ λ");
+            if ui.add(egui::Slider::new(&mut lg, -8.0..=3.0)).labelled_by(lab.id).on_hover_text("Larger = smoother curves").changed() {
+                doc.fit.smoothing = Some(10f64.powf(lg));
                 cmds.push(Cmd::Refit);
             }
-            if let Some(l) = doc.fit.smoothing {
-                let mut lg = l.log10();
-                let lab = ui.label("log₁₀ λ");
-                if ui.add(egui::Slider::new(&mut lg, -8.0..=3.0)).labelled_by(lab.id).on_hover_text("Larger = smoother curves").changed() {
-                    doc.fit.smoothing = Some(10f64.powf(lg));
-                    cmds.push(Cmd::Refit);
+        }
+        match &doc.fitted {
+            Ok(c) => {
+                let hand = if c.frame.handed == ductline::frame::Handedness::Left { "left-handed" } else { "right-handed" };
+                ui.label(format!("length {:.2} mm, {:.0}° ({:.2} turns, {hand})", c.length, c.depth_deg(), c.depth_deg() / 360.0)).on_hover_text(format!(
+                    "Traced from {:.0}° to {:.0}°",
+                    c.t0.to_degrees(),
+                    c.t1.to_degrees()
+                ));
+                match c.basal_diameter() {
+                    Ok(a) => {
+                        let e = ductline::cochlea::LengthEstimates::new(a, c.depth_deg());
+                        ui.label(format!("basal diameter A {:.2} mm", e.basal_diameter_mm))
+                            .on_hover_text("Round window through the axis to the far lateral wall, on the fitted ligament curve");
+                        ui.label(format!(
+                            "Escudé 2006 to {:.0}°: {:.1} mm · Alexiades 2015 (full): {:.1} / {:.1} mm",
+                            c.depth_deg(),
+                            e.escude_lw_mm,
+                            e.alexiades_oc_mm,
+                            e.alexiades_lw_mm
+                        ))
+                        .on_hover_text("Published length estimates from A: Escudé's to the traced depth (lateral wall), Alexiades' for the whole cochlea (organ of Corti / lateral wall)");
+                    }
+                    Err(why) => {
+                        ui.label(format!("basal diameter A not given: {why}"));
+                    }
+                }
+                for (i, t, r) in c.flagged() {
+                    ui.colored_label(
+                        palette::OUTLIER,
+                        format!("#{} ({}) at {:.0}° lies {r:.3} mm from the fit (ringed)", i + 1, doc.lms.items[i].kind.as_str(), t.to_degrees()),
+                    );
+                }
+                for (i, t, alt) in &c.ambiguous {
+                    ui.colored_label(
+                        palette::FLAG,
+                        format!(
+                            "#{} ({}) at {:.0}° could belong to the turn at {:.0}°",
+                            i + 1,
+                            doc.lms.items[*i].kind.as_str(),
+                            t.to_degrees(),
+                            alt.to_degrees()
+                        ),
+                    );
                 }
             }
-            match &doc.fitted {
-                Ok(c) => {
-                    let hand = if c.frame.handed == ductline::frame::Handedness::Left { "left-handed" } else { "right-handed" };
-                    ui.label(format!("length {:.2} mm, {:.0}° ({:.2} turns, {hand})", c.length, c.depth_deg(), c.depth_deg() / 360.0))
-                        .on_hover_text(format!("Traced from {:.0}° to {:.0}°", c.t0.to_degrees(), c.t1.to_degrees()));
-                    match c.basal_diameter() {
-                        Ok(a) => {
-                            let e = ductline::cochlea::LengthEstimates::new(a, c.depth_deg());
-                            ui.label(format!("basal diameter A {:.2} mm", e.basal_diameter_mm))
-                                .on_hover_text("Round window through the axis to the far lateral wall, on the fitted ligament curve");
-                            ui.label(format!(
-                                "Escudé 2006 to {:.0}°: {:.1} mm · Alexiades 2015 (full): {:.1} / {:.1} mm",
-                                c.depth_deg(),
-                                e.escude_lw_mm,
-                                e.alexiades_oc_mm,
-                                e.alexiades_lw_mm
-                            ))
-                            .on_hover_text("Published length estimates from A: Escudé's to the traced depth (lateral wall), Alexiades' for the whole cochlea (organ of Corti / lateral wall)");
-                        }
-                        Err(why) => {
-                            ui.label(format!("basal diameter A not given: {why}"));
-                        }
-                    }
-                    for (i, t, r) in c.flagged() {
-                        ui.colored_label(palette::OUTLIER, format!("#{} ({}) at {:.0}° lies {r:.3} mm from the fit (ringed)", i + 1, doc.lms.items[i].kind.as_str(), t.to_degrees()));
-                    }
-                    for (i, t, alt) in &c.ambiguous {
-                        ui.colored_label(
-                            palette::FLAG,
-                            format!("#{} ({}) at {:.0}° could belong to the turn at {:.0}°", i + 1, doc.lms.items[*i].kind.as_str(), t.to_degrees(), alt.to_degrees()),
-                        );
-                    }
-                }
-                Err(e) if !e.is_empty() => {
-                    ui.colored_label(palette::FLAG, e);
-                }
-                Err(_) => {}
+            Err(e) if !e.is_empty() => {
+                ui.colored_label(palette::FLAG, e);
             }
-            ui.separator();
-            ui.strong("Measure");
-            ui.horizontal(|ui| {
-                let l = ui.label("step");
-                if ui
-                    .add(egui::DragValue::new(&mut doc.measure.step_mm).speed(0.01).range(0.01..=2.0).suffix(" mm"))
-                    .labelled_by(l.id)
-                    .on_hover_text("Distance between sections along the centreline")
-                    .changed()
-                {
+            Err(_) => {}
+        }
+        ui.separator();
+        ui.strong("Measure");
+        ui.horizontal(|ui| {
+            let l = ui.label("step");
+            if ui
+                .add(egui::DragValue::new(&mut doc.measure.step_mm).speed(0.01).range(0.01..=2.0).suffix(" mm"))
+                .labelled_by(l.id)
+                .on_hover_text("Distance between sections along the centreline")
+                .changed()
+            {
+                doc.stale = true;
+                doc.dirty = true;
+            }
+        });
+        egui::ComboBox::from_label("species").selected_text(doc.species.clone()).show_ui(ui, |ui| {
+            for s in SPECIES {
+                if ui.selectable_value(&mut doc.species, s.to_string(), s).changed() {
                     doc.stale = true;
                     doc.dirty = true;
                 }
-            });
-            egui::ComboBox::from_label("species").selected_text(doc.species.clone()).show_ui(ui, |ui| {
-                for s in SPECIES {
-                    if ui.selectable_value(&mut doc.species, s.to_string(), s).changed() {
-                        doc.stale = true;
-                        doc.dirty = true;
-                    }
-                }
-            });
-            match running {
-                Some((label, f)) => {
-                    ui.add(egui::ProgressBar::new(f).text(format!("{label} {:.0}%", f * 100.0)));
-                    if ui.button("Cancel").on_hover_text("Stop the running work").clicked() {
-                        cmds.push(Cmd::Cancel);
-                    }
-                }
-                None => {
-                    let ok = doc.fitted.is_ok() && doc.stack.voxel.is_some();
-                    if ui
-                        .add_enabled(ok, egui::Button::new("Fit & measure"))
-                        .on_hover_text("Measure every section along the fitted centreline (in the background)")
-                        .clicked()
-                    {
-                        cmds.push(Cmd::Measure);
-                    }
-                    if doc.outcome.is_some() && doc.stale {
-                        ui.colored_label(palette::WARN, "results are older than the landmarks or settings");
-                    }
+            }
+        });
+        match running {
+            Some((label, f)) => {
+                ui.add(egui::ProgressBar::new(f).text(format!("{label} {:.0}%", f * 100.0)));
+                if ui.button("Cancel").on_hover_text("Stop the running work").clicked() {
+                    cmds.push(Cmd::Cancel);
                 }
             }
-            ui.separator();
-            ui.small(ductline::CAUTION);
-        });
+            None => {
+                let ok = doc.fitted.is_ok() && doc.stack.voxel.is_some();
+                if ui
+                    .add_enabled(ok, egui::Button::new("Fit & measure"))
+                    .on_hover_text("Measure every section along the fitted centreline (in the background)")
+                    .clicked()
+                {
+                    cmds.push(Cmd::Measure);
+                }
+                if doc.outcome.is_some() && doc.stale {
+                    ui.colored_label(palette::WARN, "results are older than the landmarks or settings");
+                }
+            }
+        }
+        ui.separator();
+        ui.small(ductline::CAUTION);
         cmds
     }
 

@@ -280,24 +280,22 @@ impl View {
             mark(&painter, s, lm.kind, fade, self.selected == Some(i), flagged.contains(&i));
         }
         // proposals awaiting review: open rings, fainter where the tracer is less sure
-        let mut screen_proposals = vec![];
+        self.drawn_proposals.clear();
         for (k, pr) in doc.pending() {
             let (a, b, d) = map.project(pr.lm.p);
             if d.abs() > 1.5 * vmax {
                 continue;
             }
             let s = to_screen(a, b);
-            screen_proposals.push((k, s));
+            self.drawn_proposals.push((k, s));
             let c = palette::kind(pr.lm.kind).gamma_multiply(0.35 + 0.65 * pr.confidence.clamp(0.0, 1.0) as f32);
             painter.circle_stroke(s, 6.0, Stroke::new(1.5, c));
             if pr.confidence < 0.5 {
                 painter.circle_stroke(s, 9.0, Stroke::new(1.0, palette::WARN));
             }
         }
-        self.drawn_proposals = screen_proposals.clone();
         // interaction
-        let nearest =
-            |pos: Pos2| screen_lms.iter().filter(|(_, s)| s.distance(pos) < 9.0).min_by(|a, b| a.1.distance(pos).total_cmp(&b.1.distance(pos))).map(|x| x.0);
+        let nearest = |pos: Pos2| nearest_mark(&screen_lms, pos);
         if let Some(pos) = resp.hover_pos() {
             let p = to_stack(pos);
             let value = doc.stack.sample_mm(p);
@@ -335,10 +333,9 @@ impl View {
             && !self.popup_was_open
             && let Some(pos) = resp.interact_pointer_pos()
         {
-            let proposal = screen_proposals.iter().filter(|(_, s)| s.distance(pos) < 9.0).min_by(|a, b| a.1.distance(pos).total_cmp(&b.1.distance(pos)));
-            match (nearest(pos), proposal) {
+            match (nearest(pos), nearest_mark(&self.drawn_proposals, pos)) {
                 (Some(i), _) => self.selected = Some(i),
-                (None, Some(&(k, _))) => cmds.push(Cmd::AcceptProposal(k)),
+                (None, Some(k)) => cmds.push(Cmd::AcceptProposal(k)),
                 (None, None) => {
                     let p = self.snapped(doc, to_stack(pos));
                     if doc.stack.contains_mm(p) {
@@ -479,6 +476,11 @@ pub fn to_image(size: [usize; 2], values: &[f32], window: [f32; 2]) -> egui::Col
     let mut rgba = vec![];
     ductline::display::window_level(values, window, &mut rgba);
     egui::ColorImage::from_rgba_unmultiplied(size, &rgba)
+}
+
+/// The mark (index, screen position) nearest `pos` within 9 points, if any.
+fn nearest_mark(marks: &[(usize, Pos2)], pos: Pos2) -> Option<usize> {
+    marks.iter().filter(|(_, s)| s.distance(pos) < 9.0).min_by(|a, b| a.1.distance(pos).total_cmp(&b.1.distance(pos))).map(|x| x.0)
 }
 
 /// A landmark mark: each kind its own shape and colour.
