@@ -68,6 +68,44 @@ fn crossing(cl: &Centreline, kind: Kind, c: V, t: V, theta: f64) -> V {
     if (b - theta).abs() > 0.5 { cl.edge_point(kind, theta) } else { cl.edge_point(kind, b) }
 }
 
+/// How far past the traced range (rad, about 35°) the other turns are followed.
+pub const BEYOND_RAD: f64 = 0.6;
+
+/// Where the other turns of the spiral cross a section's plane: for each half turn k·π away
+/// (k = ±1 … ±5) the centreline point in the plane (section coordinates, mm). Turns stacked
+/// above and below and the turns across the modiolus all meet the plane, each with its own lumen
+/// around that point. The duct goes on a little past the traced range (the hook, the apex), so
+/// the centreline is followed up to [`BEYOND_RAD`] past either end.
+pub fn other_turns(cl: &Centreline, g: &SectionGeom) -> Vec<[f64; 2]> {
+    let f = |a: f64| v3::dot(v3::sub(cl.point(a), g.centre), g.t);
+    let (lo, hi) = (cl.t0 - BEYOND_RAD, cl.t1 + BEYOND_RAD);
+    let mut out = vec![];
+    for k in (-5i32..=5).filter(|&k| k != 0) {
+        let start = g.theta + k as f64 * std::f64::consts::PI;
+        if start < lo - 0.5 || start > hi + 0.5 {
+            continue;
+        }
+        // secant steps from the half turn, kept on the range
+        let (mut a, mut b) = (start.clamp(lo, hi), (start + 0.05).clamp(lo, hi));
+        if a == b {
+            b = a - 0.05;
+        }
+        let (mut fa, mut fb) = (f(a), f(b));
+        for _ in 0..40 {
+            if fb.abs() < 1e-9 || (fb - fa).abs() < 1e-300 {
+                break;
+            }
+            let c = (b - fb * (b - a) / (fb - fa)).clamp(lo, hi);
+            (a, fa) = (b, fb);
+            (b, fb) = (c, f(c));
+        }
+        if fb.abs() < 1e-6 && (b - start).abs() < 1.2 {
+            out.push(g.to_plane(cl.point(b)));
+        }
+    }
+    out
+}
+
 /// Section geometry at s = 0, step, 2·step, … ≤ length (mm).
 pub fn geometry(cl: &Centreline, step: f64) -> Vec<SectionGeom> {
     let n = (cl.length / step + 1e-9).floor() as usize + 1;

@@ -47,7 +47,7 @@ pub(super) fn fraction_area(img: &Img, r: &Region, side: f64, lv: &Levels, band:
     let (n, mask) = (img.n, &r.mask);
     let thr = lv.lumen_cut();
     let k = band as isize;
-    let same = |i: usize| img.apical[i] == (side > 0.0);
+    let same = |i: usize| img.on(i, side);
     let other_dark = |i: usize| !mask[i] && img.sm[i].is_finite() && img.sm[i] < thr && same(i);
     let reach = r.bounds.widen(band, n);
     let near_region = near(n, r.bounds, band, |i| mask[i]);

@@ -233,7 +233,7 @@ pub fn measure(
         .map(|g| {
             progress.check()?;
             let half = (START_HALF * g.width()).max(10.0 * vmax).min(s.capture_mm);
-            let img = sample_section(stack, g, &Partition::of(g).line, half, pitch, None, ov_of(g).and_then(|o| o.barrier));
+            let img = sample_section(stack, g, &Partition::of(cl, g), half, pitch, None, ov_of(g).and_then(|o| o.barrier));
             progress.add(1);
             Ok(img)
         })
@@ -250,7 +250,7 @@ pub fn measure(
         .zip(auto.par_iter())
         .map(|((img, g), lv)| {
             let Some(lv) = lv.filter(|l| l.lumen < l.bone) else { return (vec![], 0) };
-            let part = Partition::of(g);
+            let part = Partition::of(cl, g);
             let erode = (vmax / pitch).ceil() as usize;
             // grown below a cut that stays under any soft tissue (fluid-filled: 20 % or more of
             // the lumen–bone step above the lumen), so the rays start before the tissue does
@@ -316,15 +316,18 @@ pub fn measure(
     Ok((geoms, rows))
 }
 
-/// The partition in a section: its line, midpoint and unit direction lamina → ligament (mm).
+/// The partition in a section: its line, midpoint and unit direction lamina → ligament (mm);
+/// and the other turns crossing the plane, whose lumen this section's scalae may not take.
 struct Partition {
     line: Line,
     mid: [f64; 2],
     dir: [f64; 2],
+    /// Where the other turns cross the plane (section coordinates, mm).
+    turns: Vec<[f64; 2]>,
 }
 
 impl Partition {
-    fn of(g: &SectionGeom) -> Partition {
+    fn of(cl: &Centreline, g: &SectionGeom) -> Partition {
         let (lam, lig) = (g.to_plane(g.lamina), g.to_plane(g.ligament));
         let d = [lig[0] - lam[0], lig[1] - lam[1]];
         let dn = d[0].hypot(d[1]).max(1e-12);
@@ -332,7 +335,8 @@ impl Partition {
         if n[1] < 0.0 {
             n = [-n[0], -n[1]];
         }
-        Partition { line: Line { p: lam, n }, mid: [0.5 * (lam[0] + lig[0]), 0.5 * (lam[1] + lig[1])], dir: [d[0] / dn, d[1] / dn] }
+        let (mid, dir) = ([0.5 * (lam[0] + lig[0]), 0.5 * (lam[1] + lig[1])], [d[0] / dn, d[1] / dn]);
+        Partition { line: Line { p: lam, n }, mid, dir, turns: section::other_turns(cl, g) }
     }
 }
 
@@ -356,8 +360,9 @@ struct Img {
     n: usize,
     pitch: f64,
     start: f64,
-    /// Per pixel: on the apical (positive) side of the partition line.
-    apical: Vec<bool>,
+    /// Per pixel: +1 on the apical side of the partition line, −1 on the basal side, 0 in
+    /// another turn's territory ([`Partition::owns`]).
+    side: Vec<i8>,
     /// Per pixel: on a barrier line drawn by the user (empty when there is none).
     blocked: Vec<bool>,
 }
@@ -370,6 +375,11 @@ impl Img {
         let a = ((q[0] - self.start) / self.pitch).round();
         let b = ((q[1] - self.start) / self.pitch).round();
         if a < 0.0 || b < 0.0 || a >= self.n as f64 || b >= self.n as f64 { None } else { Some(b as usize * self.n + a as usize) }
+    }
+    /// Whether pixel i lies on the given side of the partition (+1.0 apical, −1.0 basal) and
+    /// in this turn's territory.
+    fn on(&self, i: usize, side: f64) -> bool {
+        self.side[i] as f64 == side
     }
     fn is_blocked(&self, i: usize) -> bool {
         !self.blocked.is_empty() && self.blocked[i]
@@ -391,7 +401,7 @@ fn section_row(
     given: bool,
 ) -> Row {
     let (radius, height) = cl.radius_height(g.theta);
-    let part = Partition::of(g);
+    let part = Partition::of(cl, g);
     let mut row = Row {
         s_mm: g.s,
         angle_deg: g.theta.to_degrees(),
@@ -435,7 +445,7 @@ fn section_row(
         let can_grow = half < s.capture_mm;
         let regrow = |img: Img, half: &mut f64| -> Img {
             *half = (*half * GROWTH).min(s.capture_mm);
-            sample_section(stack, g, line, *half, pitch, Some(img), barrier)
+            sample_section(stack, g, &part, *half, pitch, Some(img), barrier)
         };
         // the lumen level from the interior of the scalae themselves (levels found, not given)
         if !given {
@@ -503,7 +513,7 @@ fn section_row(
 
 /// Resamples the section square of half-size `half`; samples an earlier, smaller square `old`
 /// already holds are copied, not resampled (both grids have an even size, so they align).
-fn sample_section(stack: &Stack, g: &SectionGeom, line: &Line, half: f64, pitch: f64, old: Option<Img>, barrier: Option<[[f64; 2]; 2]>) -> Img {
+fn sample_section(stack: &Stack, g: &SectionGeom, part: &Partition, half: f64, pitch: f64, old: Option<Img>, barrier: Option<[[f64; 2]; 2]>) -> Img {
     let grid = section::section_grid(g, half, pitch);
     let n = grid.nu;
     let start = -(n as f64 - 1.0) * 0.5 * pitch;
@@ -521,14 +531,27 @@ fn sample_section(stack: &Stack, g: &SectionGeom, line: &Line, half: f64, pitch:
         }
         None => section::resample_part(stack, &grid, 0..n, 0..n, &mut v),
     }
-    // which side of the partition line each pixel lies on, row by row
-    let mut apical = Vec::with_capacity(n * n);
-    for b in 0..n {
-        let q = start + b as f64 * pitch;
-        apical.extend((0..n).map(|a| line.side([start + a as f64 * pitch, q]) > 0.0));
-    }
     let sm = regions::smooth(&v, n);
-    let mut img = Img { v, sm, n, pitch, start, apical, blocked: vec![] };
+    // this turn's territory: a watershed of the smoothed image from the centreline points of this
+    // turn and of the others crossing the plane, so that where a septum between two turns is
+    // thinner than the blur its ridge still parts them
+    let seed = |q: [f64; 2]| -> Option<usize> {
+        let (a, b) = (((q[0] - start) / pitch).round(), ((q[1] - start) / pitch).round());
+        (a >= 0.0 && b >= 0.0 && a < n as f64 && b < n as f64).then(|| b as usize * n + a as usize)
+    };
+    let seeds: Vec<usize> = std::iter::once([0.0, 0.0]).chain(part.turns.iter().copied()).filter_map(seed).collect();
+    let own = regions::territory(&sm, n, &seeds);
+    // which side of the partition line each pixel lies on, row by row
+    let mut side = Vec::with_capacity(n * n);
+    for b in 0..n {
+        let y = start + b as f64 * pitch;
+        side.extend((0..n).map(|a| (b * n + a, [start + a as f64 * pitch, y])).map(|(i, q)| match (own[i], part.line.side(q) > 0.0) {
+            (false, _) => 0,
+            (true, true) => 1,
+            (true, false) => -1,
+        }));
+    }
+    let mut img = Img { v, sm, n, pitch, start, side, blocked: vec![] };
     if let Some([p, q]) = barrier {
         // the segment drawn with steps of a third of a pixel, each step blocking its 3×3 pixels
         img.blocked = vec![false; n * n];

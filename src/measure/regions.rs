@@ -50,7 +50,7 @@ pub(super) fn find_seed(img: &Img, line: &Line, mid: [f64; 2], side: f64, thr: f
         let q = [mid[0] + side * d * line.n[0], mid[1] + side * d * line.n[1]];
         if let Some(i) = img.index(q) {
             let (a, b) = (i % n, i / n);
-            if a > 0 && b > 0 && a + 1 < n && b + 1 < n && img.apical[i] == (side > 0.0) {
+            if a > 0 && b > 0 && a + 1 < n && b + 1 < n && img.on(i, side) {
                 let all = (0..3).all(|db| (0..3).all(|da| dark((b + db - 1) * n + a + da - 1)));
                 if all {
                     return Some(i);
@@ -136,7 +136,7 @@ pub(super) fn grow(img: &Img, seed: usize, side: f64, thr: f32) -> Region {
                 touches_nan = true;
                 return;
             }
-            if x < thr && img.apical[j] == (side > 0.0) && !img.is_blocked(j) {
+            if x < thr && img.on(j, side) && !img.is_blocked(j) {
                 mask[j] = true;
                 stack.push(j);
             }
@@ -352,4 +352,82 @@ pub(super) fn scala(
 ) -> Option<(usize, Region)> {
     let seed = seed.or_else(|| find_seed(img, line, mid, side, thr, vmax, width))?;
     Some((seed, cut_necks(img, grow(img, seed, side, thr), seed, erode)))
+}
+
+/// Which pixels of an n×n image belong to the first of several seeds: a seeded watershed
+/// (flooding in order of value, each pixel taken by the first label to reach it through its
+/// 4-neighbours), so the boundaries between labels run along the ridges between their basins —
+/// the septa between turns, however blurred. Values are binned into 1024 levels; within a bin
+/// flooding goes first come, first served (a geodesic split where the image is flat). NaN pixels
+/// belong to no one. Seeds past the first that fall on an earlier seed are ignored.
+pub(super) fn territory(v: &[f32], n: usize, seeds: &[usize]) -> Vec<bool> {
+    const BINS: usize = 1024;
+    let (lo, hi) = v.iter().filter(|x| x.is_finite()).fold((f32::INFINITY, f32::NEG_INFINITY), |(a, b), &x| (a.min(x), b.max(x)));
+    let scale = if hi > lo { (BINS - 1) as f32 / (hi - lo) } else { 0.0 };
+    let bin = |i: usize| ((v[i] - lo) * scale) as usize;
+    // label + 1 per pixel (0: not reached yet)
+    let mut label = vec![0u16; n * n];
+    let mut queue: Vec<Vec<usize>> = vec![vec![]; BINS];
+    for (k, &s) in seeds.iter().enumerate() {
+        if label[s] == 0 && v[s].is_finite() {
+            label[s] = k as u16 + 1;
+            queue[bin(s)].push(s);
+        }
+    }
+    // the flood never runs back down: a pixel below the current level joins it, so each bin is
+    // read once, first in first out
+    for level in 0..BINS {
+        let mut h = 0;
+        while let Some(&i) = queue[level].get(h) {
+            h += 1;
+            for j in neighbours(i, n, n) {
+                if label[j] == 0 && v[j].is_finite() {
+                    label[j] = label[i];
+                    queue[bin(j).max(level)].push(j);
+                }
+            }
+        }
+        queue[level] = vec![];
+    }
+    label.into_iter().map(|l| l == 1).collect()
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    /// Two dark discs of unequal size touching at a faint ridge (a septum thinner than the blur,
+    /// still below any lumen threshold between them): the split follows the ridge, not the
+    /// midpoint between the seeds. Closed form: the ridge is where the discs meet (x = 32).
+    #[test]
+    fn territory_follows_the_ridge_between_seeds() {
+        let n = 64;
+        let (a, b) = (([18.0, 32.0], 14.0), ([38.0, 32.0], 6.0));
+        let dark = |c: [f64; 2], r: f64, x: f64, y: f64| (x - c[0]).hypot(y - c[1]) < r;
+        let v: Vec<f32> = (0..n * n)
+            .map(|i| {
+                let (x, y) = ((i % n) as f64, (i / n) as f64);
+                if x == 32.0 && (y - 32.0).abs() < 6.0 {
+                    0.3 // the faint septum
+                } else if dark(a.0, a.1, x, y) || dark(b.0, b.1, x, y) {
+                    0.1
+                } else {
+                    1.0
+                }
+            })
+            .collect();
+        let v = smooth(&v, n);
+        let own = territory(&v, n, &[32 * n + 18, 32 * n + 38]);
+        // the seeds' midpoint is x = 28; the ridge at 32 decides
+        for x in 5..=30 {
+            assert!(own[32 * n + x], "x = {x} on the own side of the ridge");
+        }
+        for x in 34..=43 {
+            assert!(!own[32 * n + x], "x = {x} beyond the ridge");
+        }
+        // a plain geodesic split without the ridge would cut at the midpoint
+        let flat: Vec<f32> = vec![0.5; n * n];
+        let own = territory(&flat, n, &[32 * n + 18, 32 * n + 38]);
+        assert!(own[32 * n + 27] && !own[32 * n + 29]);
+    }
 }
