@@ -38,7 +38,7 @@ pub use levels::{Levels, otsu3};
 
 use crate::centreline::Centreline;
 use crate::cochlea::Greenwood;
-use crate::frame::v3::V;
+use crate::frame::v3::{self, V};
 use crate::progress::Progress;
 use crate::section::{self, SectionGeom};
 use crate::stack::Stack;
@@ -317,14 +317,21 @@ pub fn measure(
 }
 
 /// The partition in a section: its line, midpoint and unit direction lamina → ligament (mm);
-/// and the other turns crossing the plane, whose lumen this section's scalae may not take.
+/// and points of what lies around the duct, whose dark spaces this section's scalae may not
+/// take (see [`sample_section`]).
 struct Partition {
     line: Line,
     mid: [f64; 2],
     dir: [f64; 2],
-    /// Where the other turns cross the plane (section coordinates, mm).
-    turns: Vec<[f64; 2]>,
+    /// Section coordinates (mm) of points in other spaces: where the other turns cross the
+    /// plane, the modiolar axis (nerve core, internal auditory canal) and points beyond the
+    /// lateral wall.
+    others: Vec<[f64; 2]>,
 }
+
+/// Distances (mm) past the ligament point, along the partition, of the points taken to lie
+/// beyond the lateral wall (spiral ligament and capsule bone, or whatever is outside it).
+const BEYOND_WALL_MM: [f64; 5] = [0.6, 1.0, 1.5, 2.0, 3.0];
 
 impl Partition {
     fn of(cl: &Centreline, g: &SectionGeom) -> Partition {
@@ -336,7 +343,13 @@ impl Partition {
             n = [-n[0], -n[1]];
         }
         let (mid, dir) = ([0.5 * (lam[0] + lig[0]), 0.5 * (lam[1] + lig[1])], [d[0] / dn, d[1] / dn]);
-        Partition { line: Line { p: lam, n }, mid, dir, turns: section::other_turns(cl, g) }
+        let mut others = section::other_turns(cl, g);
+        // the modiolar axis within 3 mm of the foot of the section centre on it
+        let f = &cl.frame;
+        let foot = v3::axpy(f.origin, v3::dot(v3::sub(g.centre, f.origin), f.ez), f.ez);
+        others.extend((-30..=30).map(|k| g.to_plane(v3::axpy(foot, 0.1 * k as f64, f.ez))));
+        others.extend(BEYOND_WALL_MM.iter().map(|d| [lig[0] + d * dir[0], lig[1] + d * dir[1]]));
+        Partition { line: Line { p: lam, n }, mid, dir, others }
     }
 }
 
@@ -532,14 +545,14 @@ fn sample_section(stack: &Stack, g: &SectionGeom, part: &Partition, half: f64, p
         None => section::resample_part(stack, &grid, 0..n, 0..n, &mut v),
     }
     let sm = regions::smooth(&v, n);
-    // this turn's territory: a watershed of the smoothed image from the centreline points of this
-    // turn and of the others crossing the plane, so that where a septum between two turns is
-    // thinner than the blur its ridge still parts them
+    // this turn's territory: a watershed of the smoothed image from its centreline point and the
+    // points of the spaces around it (other turns, modiolus, beyond the lateral wall), so that
+    // where a septum or a wall is thinner than the blur its ridge still parts them
     let seed = |q: [f64; 2]| -> Option<usize> {
         let (a, b) = (((q[0] - start) / pitch).round(), ((q[1] - start) / pitch).round());
         (a >= 0.0 && b >= 0.0 && a < n as f64 && b < n as f64).then(|| b as usize * n + a as usize)
     };
-    let seeds: Vec<usize> = std::iter::once([0.0, 0.0]).chain(part.turns.iter().copied()).filter_map(seed).collect();
+    let seeds: Vec<usize> = std::iter::once([0.0, 0.0]).chain(part.others.iter().copied()).filter_map(seed).collect();
     let own = regions::territory(&sm, n, &seeds);
     // which side of the partition line each pixel lies on, row by row
     let mut side = Vec::with_capacity(n * n);

@@ -39,27 +39,30 @@ impl BoxCount {
     }
 }
 
-/// A dark pixel on the given side of the partition, a little way off its midpoint, whose 3×3
-/// neighbourhood is dark too.
+/// The darkest pixel on the given side of the partition, along its normal through the midpoint
+/// (from half a voxel to 0.8 partition widths or four voxels off), whose 3×3 neighbourhood is
+/// dark too: deep in the scala even where a small scala at coarse voxels is dark only near its
+/// middle.
 pub(super) fn find_seed(img: &Img, line: &Line, mid: [f64; 2], side: f64, thr: f32, vmax: f64, width: f64) -> Option<usize> {
     let n = img.n;
     let dark = |i: usize| img.sm[i].is_finite() && img.sm[i] < thr && !img.is_blocked(i);
-    let mut d = 1.5 * vmax;
     let far = (0.8 * width).max(4.0 * vmax);
+    let mut best: Option<usize> = None;
+    let mut d = 0.5 * vmax;
     while d <= far {
         let q = [mid[0] + side * d * line.n[0], mid[1] + side * d * line.n[1]];
         if let Some(i) = img.index(q) {
             let (a, b) = (i % n, i / n);
             if a > 0 && b > 0 && a + 1 < n && b + 1 < n && img.on(i, side) {
                 let all = (0..3).all(|db| (0..3).all(|da| dark((b + db - 1) * n + a + da - 1)));
-                if all {
-                    return Some(i);
+                if all && best.is_none_or(|k| img.sm[i] < img.sm[k]) {
+                    best = Some(i);
                 }
             }
         }
         d += 0.5 * img.pitch;
     }
-    None
+    best
 }
 
 /// Pixel rectangle a ∈ [a0, a1), b ∈ [b0, b1).
