@@ -163,22 +163,22 @@ pub(super) fn grow(img: &Img, seed: usize, side: f64, thr: f32) -> Region {
 /// The image smoothed by a binomial [1 2 1]/4 kernel applied twice in each direction (σ ≈ one
 /// pixel, half a voxel); a pixel next to a NaN is NaN.
 pub(super) fn smooth(v: &[f32], n: usize) -> Vec<f32> {
-    let pass = |src: &[f32], step: usize| -> Vec<f32> {
-        (0..src.len())
-            .map(|i| {
-                let (a, b) = (i % n, i / n);
-                let (lo, hi) = if step == 1 { (a > 0, a + 1 < n) } else { (b > 0, b + 1 < n) };
-                let l = if lo { src[i - step] } else { src[i] };
-                let r = if hi { src[i + step] } else { src[i] };
-                0.25 * l + 0.5 * src[i] + 0.25 * r
-            })
-            .collect()
-    };
-    let mut out = v.to_vec();
+    let (mut a, mut b) = (v.to_vec(), vec![0.0f32; v.len()]);
     for _ in 0..2 {
-        out = pass(&pass(&out, 1), n);
+        // along rows, then along columns; an edge pixel stands in for its missing neighbour
+        for (src, dst) in a.chunks_exact(n).zip(b.chunks_exact_mut(n)) {
+            for i in 0..n {
+                dst[i] = 0.25 * src[i.saturating_sub(1)] + 0.5 * src[i] + 0.25 * src[(i + 1).min(n - 1)];
+            }
+        }
+        for y in 0..n {
+            let (up, here, down) = (y.saturating_sub(1) * n, y * n, (y + 1).min(n - 1) * n);
+            for x in 0..n {
+                a[here + x] = 0.25 * b[up + x] + 0.5 * b[here + x] + 0.25 * b[down + x];
+            }
+        }
     }
-    out
+    a
 }
 
 /// Cuts the necks of a region: pixels deeper than ρ (chamfer distance to the region's outside,
@@ -364,6 +364,31 @@ pub(super) fn scala(
 /// flooding goes first come, first served (a geodesic split where the image is flat). NaN pixels
 /// belong to no one. Seeds past the first that fall on an earlier seed are ignored.
 pub(super) fn territory(v: &[f32], n: usize, seeds: &[usize]) -> Vec<bool> {
+    // on 2×2 blocks (the section pitch is at most half a voxel, so a block is at most a voxel:
+    // a septum's ridge survives), a quarter of the work; the blocks' labels go back to their pixels
+    let m = n.div_ceil(2);
+    let block = |i: usize| (i / n / 2) * m + (i % n) / 2;
+    let mut coarse = vec![0.0f32; m * m];
+    let mut count = vec![0u8; m * m];
+    for (y, row) in v.chunks_exact(n).enumerate() {
+        let (c, k) = (&mut coarse[y / 2 * m..(y / 2 + 1) * m], &mut count[y / 2 * m..(y / 2 + 1) * m]);
+        for (x, &val) in row.iter().enumerate() {
+            c[x / 2] += val;
+            k[x / 2] += 1;
+        }
+    }
+    coarse.iter_mut().zip(&count).for_each(|(c, &k)| *c /= k as f32);
+    let seeds: Vec<usize> = seeds.iter().map(|&s| block(s)).collect();
+    let own = watershed(&coarse, m, &seeds);
+    let mut out = Vec::with_capacity(n * n);
+    for y in 0..n {
+        out.extend((0..n).map(|x| own[y / 2 * m + x / 2]));
+    }
+    out
+}
+
+/// The seeded watershed of [`territory`] on an m×m image: whether each pixel goes to the first seed.
+fn watershed(v: &[f32], n: usize, seeds: &[usize]) -> Vec<bool> {
     const BINS: usize = 1024;
     let (lo, hi) = v.iter().filter(|x| x.is_finite()).fold((f32::INFINITY, f32::NEG_INFINITY), |(a, b), &x| (a.min(x), b.max(x)));
     let scale = if hi > lo { (BINS - 1) as f32 / (hi - lo) } else { 0.0 };
@@ -428,9 +453,9 @@ mod tests {
         for x in 34..=43 {
             assert!(!own[32 * n + x], "x = {x} beyond the ridge");
         }
-        // a plain geodesic split without the ridge would cut at the midpoint
+        // a plain geodesic split without the ridge would cut near the midpoint (on 2×2 blocks)
         let flat: Vec<f32> = vec![0.5; n * n];
         let own = territory(&flat, n, &[32 * n + 18, 32 * n + 38]);
-        assert!(own[32 * n + 27] && !own[32 * n + 29]);
+        assert!(own[32 * n + 27] && !own[32 * n + 31]);
     }
 }
