@@ -1,4 +1,5 @@
-//! Multi-page TIFF (classic and BigTIFF; stripped or tiled; uncompressed, LZW, Deflate, PackBits)
+//! Multi-page TIFF (classic and BigTIFF; stripped or tiled; uncompressed, LZW, Deflate, PackBits,
+//! Zstd; grey or colour, interleaved or planar; thumbnail pages left out)
 //! decoded in parallel into one contiguous buffer of the file's own sample type. Uncompressed
 //! grey pages are read with one positioned read (or memory-mapped), Deflate grey strips are read
 //! and inflated whole by ductline; everything else goes through the tiff crate's decoder.
@@ -119,8 +120,8 @@ pub(crate) fn page_kind(path: &Path, page: usize, dec: &mut Dec) -> Result<(usiz
 /// decoder here handles, each with a message naming what the page uses.
 fn layout_supported(dec: &mut Dec) -> std::result::Result<(), String> {
     let spp = tag(dec, Tag::SamplesPerPixel).unwrap_or(1);
-    if spp > 1 && tag(dec, Tag::PlanarConfiguration) == Some(2) {
-        return Err("colour planes stored separately (PlanarConfiguration 2) are not supported; save the channels interleaved or as grey".into());
+    if spp == 2 || spp > 4 {
+        return Err(format!("{spp} samples a pixel are not supported; ductline reads grey, RGB or RGBA pages"));
     }
     if tag(dec, Tag::FillOrder) == Some(2) {
         return Err("bit-reversed bytes (FillOrder 2) are not supported; save with the usual fill order".into());
@@ -133,23 +134,23 @@ fn layout_supported(dec: &mut Dec) -> std::result::Result<(), String> {
     }
     let c = tag(dec, Tag::Compression).unwrap_or(1);
     let name = match c {
-        1 | 5 | 8 | 32946 | 32773 => return Ok(()),
+        1 | 5 | 8 | 32946 | 32773 | 50000 | 34926 => return Ok(()),
         2 => "CCITT RLE",
         3 | 4 => "CCITT fax",
         6 | 7 => "JPEG",
         34925 => "LZMA",
-        50000 | 34926 => "Zstd",
         50001 | 34927 => "WebP",
         34887 => "LERC",
         33003 | 33005 | 34712 => "JPEG 2000",
         50002 => "JPEG XL",
         _ => "unknown",
     };
-    Err(format!("compression {name} (code {c}) is not supported; save uncompressed, LZW, Deflate or PackBits"))
+    Err(format!("compression {name} (code {c}) is not supported; save uncompressed, LZW, Deflate, PackBits or Zstd"))
 }
 
 /// What walking the page directories tells.
 struct Walk {
+    /// A decoder on the first full-resolution page.
     dec: Dec,
     nx: usize,
     ny: usize,
@@ -157,24 +158,45 @@ struct Walk {
     kind: Kind,
     /// Byte offset of each page's samples when every page is one uncompressed run.
     raw: Option<Vec<u64>>,
+    /// The directory index of each page of the stack (reduced-resolution pages left out).
+    ifds: Vec<usize>,
+    /// How many reduced-resolution pages (thumbnails, previews) were left out.
+    reduced: usize,
 }
 
-/// Walks every page's directory (no pixel data) and checks they agree.
+/// Whether a page directory marks a reduced-resolution copy of another page (NewSubfileType
+/// bit 0, or the old SubfileType 2): a thumbnail or preview, not a slice.
+fn reduced_resolution(dec: &mut Dec) -> bool {
+    tag(dec, Tag::NewSubfileType).is_some_and(|t| t & 1 == 1) || tag(dec, Tag::SubfileType) == Some(2)
+}
+
+/// Walks every page's directory (no pixel data), leaves out reduced-resolution pages and checks
+/// that the others agree. Page numbers in messages count every directory from 0.
 fn walk(path: &Path) -> Result<Walk> {
-    let mut dec = open(path)?;
-    let (nx, ny, kind) = page_kind(path, 0, &mut dec)?;
-    let page_bytes = nx * ny * kind.bytes();
-    let mut raw = raw_run(&mut dec, page_bytes).map(|o| vec![o]);
-    let mut pages = 1;
     let mut walker = open(path)?;
+    let mut ifd = 0;
+    let mut reduced = 0;
+    while reduced_resolution(&mut walker) && walker.more_images() {
+        walker.next_image().map_err(|e| Error::page(path, ifd + 1, format!("unreadable page directory: {e}")))?;
+        (ifd, reduced) = (ifd + 1, reduced + 1);
+    }
+    let (nx, ny, kind) = page_kind(path, ifd, &mut walker)?;
+    let page_bytes = nx * ny * kind.bytes();
+    let mut raw = raw_run(&mut walker, page_bytes).map(|o| vec![o]);
+    let mut ifds = vec![ifd];
     while walker.more_images() {
-        walker.next_image().map_err(|e| Error::page(path, pages, format!("unreadable page directory: {e}")))?;
-        let (w, h, k) = page_kind(path, pages, &mut walker)?;
+        ifd += 1;
+        walker.next_image().map_err(|e| Error::page(path, ifd, format!("unreadable page directory: {e}")))?;
+        if reduced_resolution(&mut walker) {
+            reduced += 1;
+            continue;
+        }
+        let (w, h, k) = page_kind(path, ifd, &mut walker)?;
         if (w, h) != (nx, ny) {
-            return Err(Error::page(path, pages, format!("size {w}×{h} differs from the first page's {nx}×{ny}")));
+            return Err(Error::page(path, ifd, format!("size {w}×{h} differs from the first page's {nx}×{ny}")));
         }
         if k != kind {
-            return Err(Error::page(path, pages, format!("sample type {} differs from the first page's {}", k.name(), kind.name())));
+            return Err(Error::page(path, ifd, format!("sample type {} differs from the first page's {}", k.name(), kind.name())));
         }
         if let Some(r) = &mut raw {
             match raw_run(&mut walker, page_bytes) {
@@ -182,9 +204,11 @@ fn walk(path: &Path) -> Result<Walk> {
                 None => raw = None,
             }
         }
-        pages += 1;
+        ifds.push(ifd);
     }
-    Ok(Walk { dec, nx, ny, pages, kind, raw })
+    let mut dec = open(path)?;
+    dec.seek_to_image(ifds[0]).map_err(|e| Error::page(path, ifds[0], format!("cannot reach page: {e}")))?;
+    Ok(Walk { dec, nx, ny, pages: ifds.len(), kind, raw, ifds, reduced })
 }
 
 pub(super) fn header(path: &Path) -> Result<super::Header> {
@@ -225,6 +249,9 @@ pub(super) fn load(path: &Path, opts: &LoadOptions, progress: &Progress) -> Resu
     if let Some(note) = kind.note() {
         warnings.push(format!("{}: {note}", path.display()));
     }
+    if w.reduced > 0 {
+        warnings.push(format!("{}: {} reduced-resolution page(s) (thumbnails) left out; {} full-resolution pages read", path.display(), w.reduced, w.pages));
+    }
     if let Some(v) = &voxel
         && v.source[2] == VoxelSource::AssumedIsotropic
     {
@@ -244,23 +271,26 @@ pub(super) fn load(path: &Path, opts: &LoadOptions, progress: &Progress) -> Resu
             return Ok(Stack { dims, samples, voxel, origin_vox: [0.0; 3], path: path.to_path_buf(), warnings, world: None });
         }
     }
+    let ifds = std::mem::take(&mut w.ifds);
     drop(w);
     let bytes = (dims.iter().product::<usize>() * kind.bytes()) as u64;
     super::check_memory(path, bytes, opts.max_bytes)?;
     progress.start((crop[2][1] - crop[2][0]) as u64);
     let samples = match kind {
-        Kind::Gray8 | Kind::Rgb { bits: 8, .. } => Samples::U8(decode::<u8>(path, [nx, ny], kind, b, crop, super::to_u8, progress)?.into()),
-        Kind::Gray16 | Kind::Rgb { .. } => Samples::U16(decode::<u16>(path, [nx, ny], kind, b, crop, super::to_u16, progress)?.into()),
-        Kind::GrayF32 | Kind::Wide { .. } => Samples::F32(decode::<f32>(path, [nx, ny], kind, b, crop, super::to_f32, progress)?.into()),
+        Kind::Gray8 | Kind::Rgb { bits: 8, .. } => Samples::U8(decode::<u8>(path, &ifds, [nx, ny], kind, b, crop, super::to_u8, progress)?.into()),
+        Kind::Gray16 | Kind::Rgb { .. } => Samples::U16(decode::<u16>(path, &ifds, [nx, ny], kind, b, crop, super::to_u16, progress)?.into()),
+        Kind::GrayF32 | Kind::Wide { .. } => Samples::F32(decode::<f32>(path, &ifds, [nx, ny], kind, b, crop, super::to_f32, progress)?.into()),
     };
     Ok(Stack { dims, samples, voxel, origin_vox: [0.0; 3], path: path.to_path_buf(), warnings, world: None })
 }
 
 /// Decodes pages into one buffer, page groups in parallel (each group with its own file handle).
-/// Each output slice comes from `bin` pages, cropped to `crop` and averaged b×b×b.
+/// Each output slice comes from `bin` pages, cropped to `crop` and averaged b×b×b. Page k of the
+/// stack is the file's directory `ifds[k]`.
 #[allow(clippy::too_many_arguments)]
 fn decode<T: Sample>(
     path: &Path,
+    ifds: &[usize],
     [nx, ny]: [usize; 2],
     kind: Kind,
     bin: usize,
@@ -280,27 +310,27 @@ fn decode<T: Sample>(
     out.par_chunks_mut(out_slice * per).enumerate().try_for_each(|(g, chunk)| -> Result<()> {
         let mut page = crop[2][0] + g * per * bin;
         let mut dec = open(path)?;
-        dec.seek_to_image(page).map_err(|e| Error::page(path, page, format!("cannot reach page: {e}")))?;
+        dec.seek_to_image(ifds[page]).map_err(|e| Error::page(path, ifds[page], format!("cannot reach page: {e}")))?;
         let mut tmp: Vec<Vec<T>> = if direct { vec![] } else { (0..bin).map(|_| vec![T::zeroed(); nx * ny]).collect() };
         let n_slices = chunk.len() / out_slice;
         for (s, slice) in chunk.chunks_mut(out_slice).enumerate() {
             progress.check()?;
             let n_here = bin.min(crop[2][1] - page);
             if direct {
-                read_page(path, page, &mut dec, kind, slice, conv)?;
+                read_page(path, ifds[page], &mut dec, kind, slice, conv)?;
             } else {
                 for (p, buf) in tmp.iter_mut().enumerate().take(n_here) {
                     if p > 0 {
-                        next(path, page + p, &mut dec)?;
+                        next(path, ifds, page + p, &mut dec)?;
                     }
-                    read_page(path, page + p, &mut dec, kind, buf, conv)?;
+                    read_page(path, ifds[page + p], &mut dec, kind, buf, conv)?;
                 }
                 super::assemble(&tmp[..n_here], nx, xy, bin, slice, conv);
             }
             page += n_here;
             progress.add(n_here as u64);
             if s + 1 < n_slices {
-                next(path, page, &mut dec)?;
+                next(path, ifds, page, &mut dec)?;
             }
         }
         Ok(())
@@ -308,8 +338,10 @@ fn decode<T: Sample>(
     Ok(out)
 }
 
-fn next(path: &Path, page: usize, dec: &mut Dec) -> Result<()> {
-    dec.next_image().map_err(|e| Error::page(path, page, format!("cannot reach page: {e}")))
+/// Moves the decoder from stack page `page − 1` to page `page` (directory `ifds[page]`).
+fn next(path: &Path, ifds: &[usize], page: usize, dec: &mut Dec) -> Result<()> {
+    let r = if page > 0 && ifds[page] == ifds[page - 1] + 1 { dec.next_image() } else { dec.seek_to_image(ifds[page]) };
+    r.map_err(|e| Error::page(path, ifds[page], format!("cannot reach page: {e}")))
 }
 
 /// A tag's value as an unsigned number, if the page has it.
@@ -424,20 +456,27 @@ pub(crate) fn read_page<T: Sample>(path: &Path, page: usize, dec: &mut Dec, kind
     }
     match kind {
         Kind::Rgb { channels, .. } => {
-            let img = dec.read_image().map_err(perr)?;
-            let grey = |px: &[f32]| conv(super::luma(px[0], px[1], px[2]));
-            match img {
-                tiff::decoder::DecodingResult::U8(v) => {
-                    for (o, px) in out.iter_mut().zip(v.chunks_exact(channels)) {
-                        *o = grey(&[px[0] as f32, px[1] as f32, px[2] as f32]);
-                    }
+            // chunky pages interleave the channels (RGBRGB…); planar ones (PlanarConfiguration 2)
+            // hold every red, then every green, then every blue
+            let planar = tag(dec, Tag::PlanarConfiguration) == Some(2);
+            let mut img = tiff::decoder::DecodingResult::U8(vec![]);
+            dec.read_image_to_buffer(&mut img).map_err(perr)?;
+            fn grey<T: Sample, S: Copy + Into<f32>>(out: &mut [T], v: &[S], channels: usize, planar: bool, conv: fn(f32) -> T) -> bool {
+                let n = out.len();
+                if v.len() < n * channels {
+                    return false;
                 }
-                tiff::decoder::DecodingResult::U16(v) => {
-                    for (o, px) in out.iter_mut().zip(v.chunks_exact(channels)) {
-                        *o = grey(&[px[0] as f32, px[1] as f32, px[2] as f32]);
-                    }
-                }
+                let at = |i: usize, c: usize| v[if planar { c * n + i } else { i * channels + c }].into();
+                out.iter_mut().enumerate().for_each(|(i, o)| *o = conv(super::luma(at(i, 0), at(i, 1), at(i, 2))));
+                true
+            }
+            let whole = match &img {
+                tiff::decoder::DecodingResult::U8(v) => grey(out, v, channels, planar, conv),
+                tiff::decoder::DecodingResult::U16(v) => grey(out, v, channels, planar, conv),
                 _ => return Err(Error::page(path, page, "unexpected colour sample type")),
+            };
+            if !whole {
+                return Err(Error::page(path, page, "decoded colour samples do not fill the page (corrupt?)"));
             }
             Ok(())
         }
