@@ -14,9 +14,16 @@
 //!    lumen's, at its half level, nearest the prediction.
 //!
 //! Each proposed point carries a confidence (the partition's and the duct's contrast against the
-//! noise, lowered by a jump from the prediction). Tracing stops where the duct is lost — too
-//! narrow, too little contrast three steps running, or the cut leaves the stack — and says at what angle
-//! and why.
+//! noise, lowered by a jump from the prediction).
+//!
+//! Where the partition does not show — clinical CT, where the bony shelf and the membrane are far
+//! thinner than a voxel, or a stretch where the steps above fail — the lumen is followed instead:
+//! the duct's dark blob in the cut (its centroid and size, [`duct`]), with the lamina and ligament
+//! points kept where they last lay relative to it (offsets in units of the blob's size, taken
+//! wherever the partition was found, the seeds first). Such points carry a confidence under 0.5,
+//! so the review shows them as guesses. Tracing stops where the duct is lost — too small to
+//! follow, too little contrast three steps running, or the cut leaves the stack — and says at what
+//! angle and why.
 
 use crate::frame::{Frame, Handedness, v3::V};
 use crate::landmarks::{Kind, Landmark};
@@ -102,6 +109,99 @@ fn median(v: &mut [f64]) -> f64 {
     v[v.len() / 2]
 }
 
+/// The duct's lumen in one radial cut: centroid (cochlear r, h; mm) and equivalent radius
+/// (√(area/π), mm), with its contrast against the noise.
+#[derive(Clone, Copy, Debug)]
+struct Duct {
+    r: f64,
+    h: f64,
+    rho: f64,
+    snr: f64,
+}
+
+/// The dark blob of the duct in the radial cut at `angle_deg`, near a predicted centroid `c`
+/// (r, h mm) of a duct about `rho` mm in equivalent radius. The cut (2.5 ρ a side from the
+/// prediction, at `pitch`) is smoothed 3×3; the lumen level is its darkest tenth within ρ/2 of
+/// the prediction, the surroundings' level the brightest tenth of the cut. Pixels below 40 % of
+/// the way between them, connected to the darkest pixel within ρ/2 of the prediction, within
+/// 1.4 ρ of it and nearer to it than to the centroids `others` of the turns already traced in
+/// this plane (a neighbouring turn merged by a septum thinner than the blur stays out), form the
+/// blob. None where the duct's neighbourhood leaves the stack or the lumen does not stand out (under six noise
+/// widths).
+fn duct(stack: &Stack, f: &Frame, angle_deg: f64, c: (f64, f64), rho: f64, pitch: f64, others: &[(f64, f64)]) -> Option<Duct> {
+    let half = 2.5 * rho;
+    let cut = Cut::new(stack, f, angle_deg, [(c.0 - half).max(0.0), c.0 + half], [c.1 - half, c.1 + half], pitch);
+    let (nr, nh) = (cut.nr, cut.nh);
+    let sm: Vec<f64> = (0..nr * nh)
+        .map(|k| {
+            let (i, j) = (k % nr, k / nr);
+            let (mut sum, mut n) = (0.0, 0.0);
+            for jj in j.saturating_sub(1)..=(j + 1).min(nh - 1) {
+                for ii in i.saturating_sub(1)..=(i + 1).min(nr - 1) {
+                    let x = cut.at(ii, jj) as f64;
+                    if x.is_finite() {
+                        (sum, n) = (sum + x, n + 1.0);
+                    }
+                }
+            }
+            if n > 0.0 { sum / n } else { f64::NAN }
+        })
+        .collect();
+    let pos = |k: usize| (cut.r0 + (k % nr) as f64 * pitch, cut.h0 + (k / nr) as f64 * pitch);
+    let dist = |k: usize| {
+        let (r, h) = pos(k);
+        let d = (r - c.0).hypot(h - c.1);
+        if others.iter().any(|o| (r - o.0).hypot(h - o.1) < d) { f64::INFINITY } else { d }
+    };
+    // the duct's own neighbourhood must lie in the stack (the rest of the cut may leave it)
+    let (inside_stack, around) = (0..nr * nh).filter(|&k| dist(k) <= 1.4 * rho).fold((0, 0), |(a, b), k| (a + sm[k].is_finite() as usize, b + 1));
+    if inside_stack * 4 < around * 3 {
+        return None;
+    }
+    let mut near: Vec<f64> = (0..nr * nh).filter(|&k| dist(k) <= 0.5 * rho && sm[k].is_finite()).map(|k| sm[k]).collect();
+    let mut all: Vec<f64> = sm.iter().copied().filter(|x| x.is_finite()).collect();
+    if near.len() < 4 || all.len() < 16 {
+        return None;
+    }
+    near.sort_by(f64::total_cmp);
+    all.sort_by(f64::total_cmp);
+    let (lumen, wall) = (near[near.len() / 10], all[all.len() * 9 / 10]);
+    // the noise from neighbour differences of the raw cut (MAD-based σ of a difference / √2)
+    let mut diffs: Vec<f64> =
+        (0..nr * nh).filter(|k| k % nr + 1 < nr).map(|k| (cut.v[k] as f64 - cut.v[k + 1] as f64).abs()).filter(|x| x.is_finite()).collect();
+    let noise = (1.4826 * median(&mut diffs) / std::f64::consts::SQRT_2).max(1e-6);
+    let snr = (wall - lumen) / noise;
+    if snr < 6.0 {
+        return None;
+    }
+    let thr = lumen + 0.4 * (wall - lumen);
+    let seed = (0..nr * nh).filter(|&k| dist(k) <= 0.5 * rho && sm[k].is_finite()).min_by(|&a, &b| sm[a].total_cmp(&sm[b]))?;
+    let mut inside = vec![false; nr * nh];
+    let mut stack_px = vec![seed];
+    inside[seed] = true;
+    let (mut n, mut sr, mut sh) = (0.0, 0.0, 0.0);
+    while let Some(k) = stack_px.pop() {
+        let (r, h) = pos(k);
+        (n, sr, sh) = (n + 1.0, sr + r, sh + h);
+        let (i, j) = (k % nr, k / nr);
+        for q in [(i > 0).then(|| k - 1), (i + 1 < nr).then(|| k + 1), (j > 0).then(|| k - nr), (j + 1 < nh).then(|| k + nr)].into_iter().flatten() {
+            if !inside[q] && sm[q] < thr && dist(q) <= 1.4 * rho {
+                inside[q] = true;
+                stack_px.push(q);
+            }
+        }
+    }
+    Some(Duct { r: sr / n, h: sh / n, rho: (n * pitch * pitch / std::f64::consts::PI).sqrt(), snr })
+}
+
+/// Where the partition's ends lie relative to the duct, in units of its equivalent radius:
+/// (lamina r, lamina h, ligament r, ligament h) minus the centroid, over ρ.
+type Offsets = [f64; 4];
+
+fn offsets(d: &Duct, l: Edge, g: Edge) -> Offsets {
+    [(l.r - d.r) / d.rho, (l.h - d.h) / d.rho, (g.r - d.r) / d.rho, (g.h - d.h) / d.rho]
+}
+
 /// Straight-line prediction at `a` from the last four points (least squares in θ; radius on a log scale).
 fn predict(pts: &[Edge], a: f64) -> Edge {
     let tail = &pts[pts.len().saturating_sub(4)..];
@@ -128,9 +228,10 @@ pub fn trace(stack: &Stack, seeds: &[Landmark], step_deg: f64) -> Result<Trace> 
     }
     let one = |k: Kind| crate::landmarks::single(seeds, k);
     let (b, a, w) = (one(Kind::AxisBase)?, one(Kind::AxisApex)?, one(Kind::Window)?);
-    // handedness: the seeds lie just past the window, at small positive angles
+    // handedness: the seeds lie just past the window, at small positive angles (summed, not
+    // counted by sign: seeds on the window's own line sit at ±0°)
     let right = Frame::new(b, a, w, Handedness::Right)?;
-    let side: f64 = seeds.iter().filter(|l| matches!(l.kind, Kind::Lamina | Kind::Ligament)).map(|l| right.to_cochlear(l.p)[1].signum()).sum();
+    let side: f64 = seeds.iter().filter(|l| matches!(l.kind, Kind::Lamina | Kind::Ligament)).map(|l| crate::frame::wrap180(right.to_cochlear(l.p)[1])).sum();
     let frame = Frame::new(b, a, w, if side >= 0.0 { Handedness::Right } else { Handedness::Left })?;
     let edges = |k: Kind| -> Vec<Edge> {
         let mut v: Vec<Edge> = seeds
@@ -152,6 +253,15 @@ pub fn trace(stack: &Stack, seeds: &[Landmark], step_deg: f64) -> Result<Trace> 
     let pitch = 0.5 * vox.min();
     let mut proposed = vec![];
     let start = lam.last().unwrap().angle.max(lig.last().unwrap().angle);
+    // the duct beside the partition: its blob at the last seeds' angle (found twice, the second
+    // time at the size the first found) sets where the partition's ends lie relative to it
+    let mid = |l: &Edge, g: &Edge| (0.5 * (l.r + g.r), 0.5 * (l.h + g.h));
+    let (l0, g0) = (*lam.last().unwrap(), *lig.last().unwrap());
+    let guess = duct(stack, &frame, start, mid(&l0, &g0), (0.5 * (g0.r - l0.r).abs()).max(3.0 * vmax), pitch, &[]);
+    let first = guess.and_then(|d| duct(stack, &frame, start, (d.r, d.h), d.rho, pitch, &[]));
+    let mut cal: Option<Offsets> = first.map(|d| offsets(&d, l0, g0));
+    let mut ducts: Vec<(Edge, f64)> = first.map(|d| (Edge { angle: start, r: d.r, h: d.h }, d.rho)).into_iter().collect();
+    let mut r_min = ducts.first().map_or(f64::INFINITY, |d| d.0.r);
     let mut angle = start;
     let mut weak = 0;
     // the last angle with accepted points
@@ -163,23 +273,61 @@ pub fn trace(stack: &Stack, seeds: &[Landmark], step_deg: f64) -> Result<Trace> 
         }
         let (pl, pg) = (predict(&lam, angle), predict(&lig, angle));
         let width = pg.r - pl.r;
-        if width < 3.0 * vmax {
-            break (format!("the predicted partition is under three voxels wide ({:.3} mm)", width), last_ok);
-        }
-        let cut = Cut::around(stack, &frame, angle, pl, pg, vmax, pitch);
-        match find(&cut, pl, pg, vmax) {
-            Ok((l, g, conf)) => {
+        // the partition itself, where it shows
+        let fine = if width < 3.0 * vmax {
+            Err(format!("the predicted partition is under three voxels wide ({:.3} mm)", width))
+        } else {
+            let cut = Cut::around(stack, &frame, angle, pl, pg, vmax, pitch);
+            find(&cut, pl, pg, vmax).and_then(|(l, g, conf)| {
                 // a point far from its prediction is less sure; one over a fifth of the width off
                 // is not taken (the spiral changes slowly between steps)
                 let off = (l.r - pl.r).abs().max((g.r - pg.r).abs()).max((l.h - pl.h).abs()) / width;
                 let conf = conf * (-(off / 0.12).powi(2)).exp();
                 if conf < 0.2 || off > 0.2 {
-                    weak += 1;
-                    if weak >= 3 {
-                        break ("the partition is lost (confidence under 0.2, or far from its prediction, three steps running)".to_string(), last_ok);
-                    }
-                    continue;
+                    Err("the partition is lost (confidence under 0.2, or far from its prediction)".to_string())
+                } else {
+                    Ok((l, g, conf))
                 }
+            })
+        };
+        // the duct's blob, near where the last ones predict it and apart from the turns below
+        // (traced one and two turns back in the same plane)
+        // (the size expected: the median of the last nine; the duct narrows slowly toward the
+        // apex, and a blob that jumps or swells is something else)
+        let lumen = (!ducts.is_empty()).then(|| median(&mut ducts.iter().rev().take(9).map(|d| d.1).collect::<Vec<_>>())).and_then(|rho| {
+            let tail: Vec<Edge> = ducts.iter().map(|d| d.0).collect();
+            let c = predict(&tail, angle);
+            let below: Vec<(f64, f64)> =
+                [360.0, 720.0].iter().filter_map(|t| tail.iter().find(|e| (e.angle - (angle - t)).abs() < 0.6 * step_deg)).map(|e| (e.r, e.h)).collect();
+            duct(stack, &frame, angle, (c.r, c.h), rho, pitch, &below)
+                .filter(|d| (d.r - c.r).hypot(d.h - c.h) < 0.5 * rho && d.rho > 0.6 * rho && d.rho < 1.25 * rho)
+        });
+        let found = match (fine, lumen, cal) {
+            (Ok((l, g, conf)), _, _) => {
+                if let Some(d) = &lumen {
+                    let o = offsets(d, l, g);
+                    cal = Some(cal.map_or(o, |c| std::array::from_fn(|k| 0.5 * (c[k] + o[k]))));
+                }
+                Ok((l, g, conf))
+            }
+            // the partition does not show: kept where it lay relative to the lumen, as a guess
+            // past the apex the blob found is something else: the spiral never turns outward
+            (Err(why), Some(d), Some(_)) if d.r > r_min + 0.5 * d.rho => Err(format!("{why}; the lumen turns outward (past the apex?)")),
+            (Err(_), Some(d), Some(o)) if d.rho >= 1.5 * vmax => {
+                let l = Edge { angle, r: d.r + o[0] * d.rho, h: d.h + o[1] * d.rho };
+                let g = Edge { angle, r: d.r + o[2] * d.rho, h: d.h + o[3] * d.rho };
+                Ok((l, g, 0.45 * (d.snr / 12.0).min(1.0)))
+            }
+            (Err(why), Some(d), Some(_)) if d.rho < 1.5 * vmax => Err(format!("{why}; the lumen is under 1.5 voxels across ({:.3} mm) to follow", 2.0 * d.rho)),
+            (Err(why), None, Some(_)) => Err(format!("{why}, and the lumen is lost (no dark duct near its prediction)")),
+            (Err(why), _, _) => Err(why),
+        };
+        if let Some(d) = lumen {
+            ducts.push((Edge { angle, r: d.r, h: d.h }, d.rho));
+            r_min = r_min.min(d.r);
+        }
+        match found {
+            Ok((l, g, conf)) => {
                 weak = 0;
                 for (e, kind) in [(l, Kind::Lamina), (g, Kind::Ligament)] {
                     let p = frame.to_stack(e.r, e.angle, e.h);
