@@ -121,7 +121,7 @@ struct Duct {
 
 /// The dark blob of the duct in the radial cut at `angle_deg`, near a predicted centroid `c`
 /// (r, h mm) of a duct about `rho` mm in equivalent radius. The cut (2.5 ρ a side from the
-/// prediction, at `pitch`) is smoothed 3×3; the lumen level is its darkest tenth within ρ/2 of
+/// prediction, at `pitch` or ρ/15 if coarser) is smoothed 3×3; the lumen level is its darkest tenth within ρ/2 of
 /// the prediction, the surroundings' level the brightest tenth of the cut. Pixels below 40 % of
 /// the way between them, connected to the darkest pixel within ρ/2 of the prediction, within
 /// 1.4 ρ of it and nearer to it than to the centroids `others` of the turns already traced in
@@ -130,6 +130,8 @@ struct Duct {
 /// widths).
 fn duct(stack: &Stack, f: &Frame, angle_deg: f64, c: (f64, f64), rho: f64, pitch: f64, others: &[(f64, f64)]) -> Option<Duct> {
     let half = 2.5 * rho;
+    // about fifteen samples a radius are plenty for a centroid and a size
+    let pitch = pitch.max(rho / 15.0);
     let cut = Cut::new(stack, f, angle_deg, [(c.0 - half).max(0.0), c.0 + half], [c.1 - half, c.1 + half], pitch);
     let (nr, nh) = (cut.nr, cut.nh);
     let sm: Vec<f64> = (0..nr * nh)

@@ -50,7 +50,7 @@ fn run(spec: PhantomSpec) -> (f64, f64, f64) {
 /// tapering toward the apex, limbus, ligament, scanner effects; left and right ears): the
 /// proposals lie within 1 voxel (median) and 2 voxels (p95) of the true edge curves and reach at
 /// least 95 % of the true angular depth. Member 8 (35 × 35 × 50 µm, tilted) is traced and printed
-/// but not held: it reaches its full depth, but its second turn strays up to 3.5 voxels (p95; the
+/// but not held: it reaches its full depth, but its proposals stray up to 2.3 voxels (p95; the
 /// README says so).
 #[test]
 fn proposals_follow_the_true_edges() {
