@@ -919,6 +919,8 @@ impl DuctApp {
             egui::Grid::new("keys").num_columns(2).striped(true).show(ui, |ui| {
                 for (k, what) in [
                     ("click", "place a landmark of the active kind"),
+                    ("click a small dot", "place it where the fit predicts it (dots: the fitted curves in this plane)"),
+                    ("click an open ring", "accept that proposed landmark"),
                     ("drag a mark", "move it"),
                     ("right-click a mark", "delete it"),
                     ("Delete", "delete the selected landmark"),

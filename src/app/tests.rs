@@ -521,6 +521,49 @@ fn proposals_are_reviewed_before_they_count() {
     assert_eq!(count(&h), 0, "the import was one step");
 }
 
+/// The fit's predicted points (the small dots where the fitted curves meet the plane) can be
+/// taken as they are: on the bundled sample (snapping off), a click a few pixels off a predicted
+/// point away from any placed one, with its kind active, places that landmark exactly on the
+/// prediction, not where clicked, and the active kind turns to the partition's other end.
+#[test]
+fn a_click_on_a_predicted_point_places_it() {
+    let mut h = harness(Some(sample_path()));
+    wait(&mut h, "the sample", |a| a.doc.is_some());
+    h.step();
+    h.step();
+    let (vox, n0, items) = {
+        let doc = h.state().doc.as_ref().unwrap();
+        assert!(doc.fitted.is_ok());
+        (doc.stack.voxel.as_ref().unwrap().max(), doc.lms.items.len(), doc.lms.items.clone())
+    };
+    let far = |p: [f64; 3]| items.iter().all(|l| ductline::frame::v3::dist(l.p, p) > 4.0 * vox);
+    let (kind, _, dot) = *h.state().view.as_ref().unwrap().drawn_fit.iter().find(|d| far(d.1)).expect("a predicted point away from the placed ones");
+    let dots: Vec<[f64; 3]> = h.state().view.as_ref().unwrap().drawn_fit.iter().filter(|d| d.0 == kind).map(|d| d.1).collect();
+    {
+        let v = h.state_mut().view.as_mut().unwrap();
+        v.active = kind;
+        v.snap = false;
+    }
+    // a click four pixels off the dot
+    let at = dot + egui::vec2(0.0, 4.0);
+    h.hover_at(at);
+    h.step();
+    let clicked = h.state().view.as_ref().unwrap().hover.as_ref().unwrap().p;
+    for pressed in [true, false] {
+        h.event(egui::Event::PointerButton { pos: at, button: egui::PointerButton::Primary, pressed, modifiers: Default::default() });
+        h.step();
+    }
+    let doc = h.state().doc.as_ref().unwrap();
+    assert_eq!(doc.lms.items.len(), n0 + 1, "{}", h.state().status);
+    let new = doc.lms.items.last().unwrap();
+    assert_eq!(new.kind, kind);
+    let on_dot = dots.iter().map(|q| ductline::frame::v3::dist(new.p, *q)).fold(f64::INFINITY, f64::min);
+    assert!(on_dot < 1e-9, "placed {on_dot:.4} mm from the nearest predicted point");
+    let off_click = ductline::frame::v3::dist(new.p, clicked);
+    assert!(off_click > 0.5 * vox, "placed where clicked ({off_click:.4} mm), not on the prediction");
+    assert_ne!(h.state().view.as_ref().unwrap().active, kind, "the other end next");
+}
+
 /// ctrl+wheel zooms about the cursor: the stack point under it stays under it.
 #[test]
 fn zoom_keeps_the_point_under_the_cursor() {

@@ -67,6 +67,9 @@ pub struct View {
     pub alternate: bool,
     /// Where the last frame drew each pending proposal (index, screen position).
     pub drawn_proposals: Vec<(usize, Pos2)>,
+    /// Where the last frame drew the fit's predicted lamina and ligament points in the plane
+    /// (kind, stack point in the plane, screen position): a click on one places that landmark.
+    pub drawn_fit: Vec<(Kind, V, Pos2)>,
     /// A lamina or ligament click within two voxels of the edge the image shows lands on it.
     pub snap: bool,
 }
@@ -89,6 +92,7 @@ impl View {
             popup_was_open: false,
             alternate: true,
             drawn_proposals: vec![],
+            drawn_fit: vec![],
             snap: true,
         }
     }
@@ -244,6 +248,7 @@ impl View {
         };
         let vmax = doc.stack.voxel.as_ref().map(|v| v.max()).unwrap_or(1.0);
         // fitted curves where they meet the plane
+        self.drawn_fit.clear();
         if let Ok(cl) = &doc.fitted {
             let n = ((cl.t1 - cl.t0).to_degrees() * 4.0) as usize;
             for (kind, color) in [(Some(Kind::Lamina), palette::LAMINA), (Some(Kind::Ligament), palette::LIGAMENT), (None, palette::CENTRE)] {
@@ -256,7 +261,11 @@ impl View {
                     let t = cl.t0 + (cl.t1 - cl.t0) * k as f64 / n as f64;
                     let cur = map.project(pt(t));
                     if cur.2.abs() < 0.5 * vmax || (prev.2 < 0.0) != (cur.2 < 0.0) {
-                        painter.circle_filled(to_screen(cur.0, cur.1), 2.5, color);
+                        let s = to_screen(cur.0, cur.1);
+                        painter.circle_filled(s, 2.5, color);
+                        if let Some(k) = kind {
+                            self.drawn_fit.push((k, map.point(cur.0, cur.1), s));
+                        }
                     }
                     prev = cur;
                 }
@@ -333,11 +342,19 @@ impl View {
             && !self.popup_was_open
             && let Some(pos) = resp.interact_pointer_pos()
         {
+            // the fit's predicted points: the one of the active kind nearest the click, if close
+            let fit_dot = self
+                .drawn_fit
+                .iter()
+                .filter(|d| d.0 == self.active && d.2.distance(pos) <= 6.0)
+                .min_by(|a, b| a.2.distance(pos).total_cmp(&b.2.distance(pos)))
+                .map(|d| d.1);
             match (nearest(pos), nearest_mark(&self.drawn_proposals, pos)) {
                 (Some(i), _) => self.selected = Some(i),
                 (None, Some(k)) => cmds.push(Cmd::AcceptProposal(k)),
                 (None, None) => {
-                    let p = self.snapped(doc, to_stack(pos));
+                    // on a predicted point: where the fit puts it (then snapped, if an edge is near)
+                    let p = self.snapped(doc, fit_dot.unwrap_or_else(|| to_stack(pos)));
                     if doc.stack.contains_mm(p) {
                         cmds.push(Cmd::Edit(Edit::Insert { index: doc.lms.items.len(), lm: Landmark { kind: self.active, p } }));
                         if self.alternate {
