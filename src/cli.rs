@@ -358,6 +358,11 @@ pub struct MeasureArgs {
     /// frame (NIfTI: RAS; DICOM, NRRD, MetaImage: LPS, as the file says).
     #[arg(long, value_name = "stack|world", default_value = "stack")]
     pub landmarks_frame: String,
+    /// The frame of each row's x_mm, y_mm, z_mm in the CSV and JSON tables: the stack's, or the
+    /// file's world frame (RAS or LPS, as for --landmarks-frame). Outlines, the STL/VTK surfaces
+    /// and the cochlear frame stay in the stack frame.
+    #[arg(long, value_name = "stack|world", default_value = "stack")]
+    pub points_frame: String,
 }
 
 /// The command line's `measure`: the files asked for, the summary on stderr.
@@ -373,6 +378,9 @@ fn measure_to_files(a: &MeasureArgs, show: bool) -> Result<pipeline::Outcome> {
     // asked-for outputs that cannot be written fail before the work, not after
     if a.plot.is_some() {
         plot_axis(&a.plot_x)?;
+    }
+    if !matches!(a.points_frame.as_str(), "stack" | "world") {
+        bail!("--points-frame must be stack or world, not {:?}", a.points_frame);
     }
     if let Some(p) = &a.plot
         && !p.extension().is_some_and(|e| e.eq_ignore_ascii_case("svg") || e.eq_ignore_ascii_case("png"))
@@ -472,12 +480,32 @@ fn plot_axis(name: &str) -> Result<ductline::figure::XAxis> {
 
 /// Writes the table and every extra output `a` asks for (each atomically).
 fn write_outputs(a: &MeasureArgs, out: &pipeline::Outcome, prj: &project::Project, st: &stack::Stack, stack_path: &Path) -> Result<()> {
-    project::write_atomic(&a.out, export::table_csv(&out.rows).as_bytes())?;
+    // the rows' points in the file's world frame when asked (by its index-to-world transform)
+    let mut rows = out.rows.clone();
+    if a.points_frame == "world" {
+        let Some(w) = &st.world else {
+            bail!("{}: the file has no index-to-world transform; --points-frame world needs one", stack_path.display());
+        };
+        let mm = st.voxel()?.original_mm;
+        rows.iter_mut().for_each(|r| r.point = w.to_world(r.point, mm));
+    }
+    project::write_atomic(&a.out, export::table_csv(&rows).as_bytes())?;
     if let Some(j) = &a.json {
         let vox = st.voxel()?;
         let bytes = std::fs::metadata(stack_path).map(|m| m.len()).unwrap_or(0);
         let prov = export::Provenance { stack_path, stack_bytes: bytes, voxel: vox, fit: &prj.fit, measure: &prj.measure };
-        let text = serde_json::to_string_pretty(&export::table_json(out, &prov))?;
+        let mut v = export::table_json(&pipeline::Outcome { rows, ..out.clone() }, &prov);
+        let frame = match (&st.world, a.points_frame.as_str()) {
+            (Some(w), "world") => format!("{} mm (the file's world frame); outlines, centroids and the cochlear frame in stack mm", w.frame),
+            _ => "stack mm (i·vx, j·vy, k·vz)".to_string(),
+        };
+        v["metadata"]["points_frame"] = serde_json::json!(frame);
+        if let Some(w) = &st.world {
+            v["metadata"]["index_to_world"] = serde_json::json!({ "frame": w.frame, "source": w.source, "matrix_rows": w.matrix,
+                "file_voxel_mm": st.voxel()?.original_mm,
+                "note": "world = M · (i, j, k, 1) with (i, j, k) = a stack-frame point divided by file_voxel_mm" });
+        }
+        let text = serde_json::to_string_pretty(&v)?;
         project::write_atomic(j, text.as_bytes())?;
     }
     if let Some(dir) = &a.stl {
@@ -534,6 +562,7 @@ fn read_list(list: &Path) -> Result<Vec<Specimen>> {
             landmarks: cell(lm_col),
             bin: 1,
             landmarks_frame: "stack".into(),
+            points_frame: "stack".into(),
             ..Default::default()
         };
         out.push(Specimen { name, args });

@@ -301,6 +301,20 @@ impl World {
         format!("(i, j, k, 1) → {} mm from {}: {}", self.frame, self.source, rows.join(" "))
     }
 
+    /// The world point (mm, in this transform's frame) of a stack-frame point `p` (mm: i·vx,
+    /// j·vy, k·vz) for voxel sizes `voxel_mm`: M · (i, j, k, 1). The inverse of [`World::to_stack`].
+    ///
+    /// ```
+    /// use ductline::stack::World;
+    /// let w = World { matrix: [[0.0, -0.05, 0.0, 10.0], [0.05, 0.0, 0.0, 20.0], [0.0, 0.0, 0.08, 30.0]], frame: "LPS", source: "example".into() };
+    /// let world = w.to_world([0.1, 0.2, 0.4], [0.05, 0.05, 0.08]);
+    /// assert!((world[0] - 9.8).abs() < 1e-12 && (world[1] - 20.1).abs() < 1e-12 && (world[2] - 30.4).abs() < 1e-12);
+    /// ```
+    pub fn to_world(&self, p: [f64; 3], voxel_mm: [f64; 3]) -> [f64; 3] {
+        let idx: [f64; 3] = std::array::from_fn(|k| p[k] / voxel_mm[k]);
+        std::array::from_fn(|r| self.matrix[r][0] * idx[0] + self.matrix[r][1] * idx[1] + self.matrix[r][2] * idx[2] + self.matrix[r][3])
+    }
+
     /// The stack-frame point (mm: i·vx, j·vy, k·vz) of a world point `p` (mm, in this
     /// transform's frame), for voxel sizes `voxel_mm`; None when the matrix is singular.
     ///
