@@ -59,6 +59,9 @@ pub struct Project {
     pub measure: MeasureSettings,
     #[serde(default)]
     pub overrides: Vec<Override>,
+    /// Landmarks proposed by the tracer and not yet reviewed (accepted or discarded in the app).
+    #[serde(default, skip_serializing_if = "Vec::is_empty")]
+    pub proposals: Vec<crate::trace::Proposed>,
 }
 
 impl Project {
@@ -79,6 +82,7 @@ impl Project {
             fit: FitSettings::default(),
             measure: MeasureSettings::default(),
             overrides: vec![],
+            proposals: vec![],
         }
     }
 

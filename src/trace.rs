@@ -31,7 +31,7 @@ use crate::stack::Stack;
 use crate::{Error, Result};
 
 /// A proposed landmark and how sure the tracer is of it (0–1).
-#[derive(Clone, Copy, Debug, PartialEq)]
+#[derive(Clone, Copy, Debug, PartialEq, serde::Serialize, serde::Deserialize)]
 pub struct Proposed {
     pub lm: Landmark,
     pub confidence: f64,

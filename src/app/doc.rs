@@ -92,6 +92,7 @@ impl Doc {
         self.measure = p.measure;
         self.species = p.species;
         self.overrides = p.overrides;
+        self.proposals = p.proposals;
         self.user_voxel = p.voxel_um.is_some();
         self.project_path = path;
         self.refit();
@@ -111,6 +112,8 @@ impl Doc {
         p.fit = self.fit.clone();
         p.measure = self.measure.clone();
         p.overrides = self.overrides.clone();
+        // proposals still awaiting review (accepted ones are landmarks now)
+        p.proposals = self.pending().into_iter().map(|(_, pr)| pr).collect();
         Ok(p)
     }
 

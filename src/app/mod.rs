@@ -298,8 +298,9 @@ impl DuctApp {
             self.tracing = None;
             match (res, &mut self.doc) {
                 (Ok((proposed, summary)), Some(doc)) => {
-                    // held apart for review: nothing counts until accepted
+                    // held apart for review: nothing counts until accepted (kept in the project)
                     doc.proposals = proposed;
+                    doc.dirty = true;
                     self.status = summary;
                 }
                 (Err(e), _) => self.status = format!("error: {e}"),
@@ -597,6 +598,7 @@ impl DuctApp {
             Cmd::DiscardProposals => {
                 let n = doc.pending().len();
                 doc.proposals.clear();
+                doc.dirty = true;
                 Ok(format!("discarded {n} proposed landmarks"))
             }
             Cmd::Undo => Ok(if doc.lms.undo() { "undone".into() } else { "nothing to undo".into() }),

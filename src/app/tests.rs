@@ -448,7 +448,8 @@ fn title_and_quit_prompt() {
 }
 
 /// Edit → Propose landmarks: from seven seeds the trace proposes landmarks in the background,
-/// held apart for review (nothing counts until accepted): "Accept up to" an angle adds those
+/// held apart for review (nothing counts until accepted) and saved with the project (a project
+/// saved then opened again holds them all, still for review): "Accept up to" an angle adds those
 /// as one step, a click on an open ring in the view accepts that one, "Accept all" the rest;
 /// an undo shows accepted ones as proposals again. An import is one step too.
 #[test]
@@ -481,6 +482,17 @@ fn proposals_are_reviewed_before_they_count() {
     assert!(n > 100, "{n} proposed: {}", h.state().status);
     assert_eq!(count(&h), 7, "proposals do not count until accepted");
     assert!(h.state().status.contains("stopped"), "{}", h.state().status);
+    // saved with the project, they come back for review when it is opened
+    let dir = tempfile::tempdir().unwrap();
+    let saved = dir.path().join("traced.ductline.json");
+    assert!(h.state().doc.as_ref().unwrap().dirty, "new proposals are unsaved work");
+    super::save(h.state_mut().doc.as_mut().unwrap(), &saved).unwrap();
+    {
+        let mut back = harness(Some(saved.clone()));
+        wait(&mut back, "the saved project", |a| a.doc.is_some());
+        let d = back.state().doc.as_ref().unwrap();
+        assert_eq!((d.pending().len(), d.lms.items.len()), (n, 7), "proposals and landmarks as saved");
+    }
     // up to 360°: those, as one step
     h.state_mut().side.accept_up_to = Some(360.0);
     h.step();
