@@ -235,13 +235,17 @@ pub fn trace(stack: &Stack, seeds: &[Landmark], step_deg: f64) -> Result<Trace> 
     let right = Frame::new(b, a, w, Handedness::Right)?;
     let side: f64 = seeds.iter().filter(|l| matches!(l.kind, Kind::Lamina | Kind::Ligament)).map(|l| crate::frame::wrap180(right.to_cochlear(l.p)[1])).sum();
     let frame = Frame::new(b, a, w, if side >= 0.0 { Handedness::Right } else { Handedness::Left })?;
+    // angles along the spiral: the seeds near the base as they lie; more seeds than half a turn
+    // (a trace resumed from accepted points) unwrapped by the spiral they fit
+    let spiral = crate::centreline::Centreline::fit(&frame, seeds, &Default::default()).ok().filter(|c| c.frame.handed == frame.handed);
     let edges = |k: Kind| -> Vec<Edge> {
         let mut v: Vec<Edge> = seeds
             .iter()
             .filter(|l| l.kind == k)
             .map(|l| {
                 let c = frame.to_cochlear(l.p);
-                Edge { angle: c[1], r: c[0], h: c[2] }
+                let angle = spiral.as_ref().map_or(c[1], |s| s.unwrap_deg(c[0], c[1], c[2]));
+                Edge { angle, r: c[0], h: c[2] }
             })
             .collect();
         v.sort_by(|x, y| x.angle.total_cmp(&y.angle));

@@ -129,7 +129,9 @@ pub enum Cmd {
 }
 
 /// A trace's proposed landmarks and its one-line summary.
-type Proposals = (Vec<ductline::trace::Proposed>, String);
+/// A trace's proposals, its summary, and the angle (degrees) up to which the proposals already
+/// held stay (a trace resumed beyond a moved point; None: all are replaced).
+type Proposals = (Vec<ductline::trace::Proposed>, String, Option<f64>);
 
 /// A stack (and maybe its project) read in the background.
 pub struct Loaded {
@@ -297,9 +299,13 @@ impl DuctApp {
         if let Some(res) = self.tracing.as_ref().and_then(|j| j.poll()) {
             self.tracing = None;
             match (res, &mut self.doc) {
-                (Ok((proposed, summary)), Some(doc)) => {
+                (Ok((proposed, summary, keep)), Some(doc)) => {
                     // held apart for review: nothing counts until accepted (kept in the project)
-                    doc.proposals = proposed;
+                    match keep {
+                        Some(at) => doc.proposals.retain(|p| p.angle_deg <= at),
+                        None => doc.proposals.clear(),
+                    }
+                    doc.proposals.extend(proposed);
                     doc.dirty = true;
                     self.status = summary;
                 }
@@ -540,8 +546,39 @@ impl DuctApp {
                     let _ = std::fs::remove_file(p);
                 }
             }
+            Cmd::Edit(Edit::Move { index, to }) => {
+                self.apply_doc(Cmd::Edit(Edit::Move { index, to }));
+                // a point moved among the proposals: the trace runs again beyond it
+                if let Some(d) = &mut self.doc {
+                    d.refit();
+                }
+                self.retrace_beyond(index);
+            }
             other => self.apply_doc(other),
         }
+    }
+
+    /// After landmark `i` (a lamina or ligament point) was moved where proposals still wait
+    /// beyond it, the trace runs again from the landmarks up to it (the axis and window with
+    /// them) and its proposals replace those beyond.
+    fn retrace_beyond(&mut self, i: usize) {
+        let Some(doc) = &self.doc else { return };
+        let (Some(lm), Ok(cl)) = (doc.lms.items.get(i).copied(), &doc.fitted) else { return };
+        if !matches!(lm.kind, Kind::Lamina | Kind::Ligament) || self.tracing.is_some() {
+            return;
+        }
+        let angle = |p: [f64; 3]| {
+            let [r, a, h] = cl.frame.to_cochlear(p);
+            cl.unwrap_deg(r, a, h)
+        };
+        let at = angle(lm.p);
+        if !doc.pending().iter().any(|(_, p)| p.angle_deg > at) {
+            return;
+        }
+        let seeds: Vec<Landmark> =
+            doc.lms.items.iter().filter(|l| !matches!(l.kind, Kind::Lamina | Kind::Ligament) || angle(l.p) <= at + 1e-6).copied().collect();
+        self.tracing = Some(trace_job(doc, seeds, Some(at)));
+        self.status = format!("a point moved at {at:.0}°: tracing again beyond it…");
     }
 
     fn apply_doc(&mut self, cmd: Cmd) {
@@ -638,18 +675,8 @@ impl DuctApp {
             }
             Cmd::ExportTable(p) => export_table(doc, &p),
             Cmd::Trace => {
-                let (st, seeds) = (doc.stack.clone(), doc.lms.items.clone());
-                self.tracing = Some(Job::spawn("tracing", move |_| {
-                    let t = ductline::trace::trace(&st, &seeds, 10.0).map_err(|e| e.to_string())?;
-                    let low = t.proposed.iter().filter(|p| p.confidence < 0.5).count();
-                    let summary = format!(
-                        "proposed {} landmarks to {:.0}° (stopped: {}); {low} below confidence 0.5 — review them: accept all, up to an angle, or click one",
-                        t.proposed.len(),
-                        t.stopped_deg,
-                        t.reason
-                    );
-                    Ok((t.proposed, summary))
-                }));
+                let seeds = doc.lms.items.clone();
+                self.tracing = Some(trace_job(doc, seeds, None));
                 Ok("tracing…".into())
             }
             Cmd::SaveFigure(p) => match &doc.outcome {
@@ -1126,6 +1153,24 @@ impl eframe::App for DuctApp {
     fn ui(&mut self, ui: &mut egui::Ui, _frame: &mut eframe::Frame) {
         self.frame_ui(ui);
     }
+}
+
+/// The trace from `seeds` in the background; its proposals replace those held beyond `keep`
+/// (degrees), or all of them.
+fn trace_job(doc: &Doc, seeds: Vec<Landmark>, keep: Option<f64>) -> Job<Result<Proposals, String>> {
+    let st = doc.stack.clone();
+    Job::spawn("tracing", move |_| {
+        let t = ductline::trace::trace(&st, &seeds, 10.0).map_err(|e| e.to_string())?;
+        let low = t.proposed.iter().filter(|p| p.confidence < 0.5).count();
+        let from = keep.map(|a| format!(" beyond {a:.0}°")).unwrap_or_default();
+        let summary = format!(
+            "proposed {} landmarks{from} to {:.0}° (stopped: {}); {low} below confidence 0.5 — review them: accept all, up to an angle, or click one",
+            t.proposed.len(),
+            t.stopped_deg,
+            t.reason
+        );
+        Ok((t.proposed, summary, keep))
+    })
 }
 
 /// Loads a stack, or a project and its stack (background thread).

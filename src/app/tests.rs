@@ -450,8 +450,9 @@ fn title_and_quit_prompt() {
 /// Edit → Propose landmarks: from seven seeds the trace proposes landmarks in the background,
 /// held apart for review (nothing counts until accepted) and saved with the project (a project
 /// saved then opened again holds them all, still for review): "Accept up to" an angle adds those
-/// as one step, a click on an open ring in the view accepts that one, "Accept all" the rest;
-/// an undo shows accepted ones as proposals again. An import is one step too.
+/// as one step; moving an accepted point traces again beyond it (the proposals up to it stay);
+/// a click on an open ring in the view accepts that one, "Accept all" the rest; an undo shows
+/// accepted ones as proposals again. An import is one step too.
 #[test]
 fn proposals_are_reviewed_before_they_count() {
     let (dir, tif) = sample_copy(false);
@@ -501,6 +502,40 @@ fn proposals_are_reviewed_before_they_count() {
     let first_turn = h.state().doc.as_ref().unwrap().proposals.iter().filter(|p| p.angle_deg <= 360.0).count();
     assert!(first_turn > 20 && count(&h) == 7 + first_turn, "{} landmarks, {first_turn} proposed in the first turn", count(&h));
     assert!(h.state().doc.as_ref().unwrap().fitted.is_ok(), "the accepted ones fit");
+    // moving an accepted point re-proposes beyond it: those up to it stay as they were, those
+    // beyond come from a trace resumed from the landmarks up to it
+    let (before_kept, moved_at) = {
+        let doc = h.state().doc.as_ref().unwrap();
+        let cl = doc.fitted.as_ref().unwrap();
+        let angle = |p: [f64; 3]| {
+            let [r, a, hh] = cl.frame.to_cochlear(p);
+            cl.unwrap_deg(r, a, hh)
+        };
+        // the accepted lamina point nearest 300°
+        let (i, at) = doc
+            .lms
+            .items
+            .iter()
+            .enumerate()
+            .filter(|(_, l)| l.kind == Kind::Lamina)
+            .map(|(i, l)| (i, angle(l.p)))
+            .min_by(|a, b| (a.1 - 300.0).abs().total_cmp(&(b.1 - 300.0).abs()))
+            .unwrap();
+        let kept: Vec<_> = doc.proposals.iter().filter(|p| p.angle_deg <= at).copied().collect();
+        let p = doc.lms.items[i].p;
+        h.state_mut().apply(Cmd::Edit(ductline::landmarks::Edit::Move { index: i, to: [p[0] + 0.02, p[1], p[2]] }));
+        (kept, at)
+    };
+    h.step();
+    wait(&mut h, "the trace resumed", |a| !a.busy());
+    h.step();
+    {
+        let doc = h.state().doc.as_ref().unwrap();
+        assert!(h.state().status.contains("beyond"), "{}", h.state().status);
+        let kept: Vec<_> = doc.proposals.iter().filter(|p| p.angle_deg <= moved_at).copied().collect();
+        assert_eq!(kept, before_kept, "proposals up to the moved point stay");
+        assert!(doc.proposals.iter().filter(|p| p.angle_deg > moved_at).count() > 50, "re-proposed beyond {moved_at:.0}°");
+    }
     // one by one: a click on an open ring in the view
     let (k, p) = h.state().doc.as_ref().unwrap().pending().into_iter().next().map(|(k, p)| (k, p.lm.p)).unwrap();
     {
@@ -512,22 +547,25 @@ fn proposals_are_reviewed_before_they_count() {
     let at = h.state().view.as_ref().unwrap().drawn_proposals.iter().find(|d| d.0 == k).expect("the proposal is drawn").1;
     h.hover_at(at);
     h.step();
+    let before_click = count(&h);
     for pressed in [true, false] {
         h.event(egui::Event::PointerButton { pos: at, button: egui::PointerButton::Primary, pressed, modifiers: Default::default() });
         h.step();
     }
-    assert_eq!(count(&h), 7 + first_turn + 1, "{}", h.state().status);
+    assert_eq!(count(&h), before_click + 1, "{}", h.state().status);
     assert!(!h.state().doc.as_ref().unwrap().pending().iter().any(|(j, _)| *j == k));
+    let (before_all, waiting) = (count(&h), pending(&h));
     h.get_by_role_and_label(Role::Button, "Accept all").click();
     h.step();
-    assert_eq!(count(&h), 7 + n);
+    assert_eq!(count(&h), before_all + waiting);
     assert_eq!(pending(&h), 0);
     // undo: the last acceptance comes back as proposals
     h.state_mut().apply(Cmd::Undo);
-    assert_eq!(count(&h), 7 + first_turn + 1);
-    assert_eq!(pending(&h), n - first_turn - 1);
-    h.state_mut().apply(Cmd::Undo);
-    h.state_mut().apply(Cmd::Undo);
+    assert_eq!((count(&h), pending(&h)), (before_all, waiting));
+    h.state_mut().apply(Cmd::Undo); // the click
+    assert_eq!(count(&h), before_click);
+    h.state_mut().apply(Cmd::Undo); // the move
+    h.state_mut().apply(Cmd::Undo); // up to 360°
     assert_eq!(count(&h), 7);
     h.state_mut().apply(Cmd::Undo);
     assert_eq!(count(&h), 0, "the import was one step");
