@@ -548,11 +548,12 @@ impl DuctApp {
             }
             Cmd::Edit(Edit::Move { index, to }) => {
                 self.apply_doc(Cmd::Edit(Edit::Move { index, to }));
-                // a point moved among the proposals: the trace runs again beyond it
-                if let Some(d) = &mut self.doc {
+                // a point moved among the proposals: the trace runs again beyond it (on the
+                // fit with the point moved; without proposals the frame refits as after any edit)
+                if let Some(d) = self.doc.as_mut().filter(|d| !d.pending().is_empty()) {
                     d.refit();
+                    self.retrace_beyond(index);
                 }
-                self.retrace_beyond(index);
             }
             other => self.apply_doc(other),
         }

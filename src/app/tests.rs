@@ -740,3 +740,66 @@ fn status_line_colours() {
     assert_eq!(status_colour("warning: no slice spacing", plain), palette::WARN);
     assert_eq!(status_colour("wrote /tmp/table.csv", plain), plain);
 }
+
+/// Benchmark, not a check (timings on a shared machine are no test): run by hand with
+/// `cargo test --release --bin ductline frame_time -- --ignored --nocapture`. Prints the CPU time
+/// of one app frame (layout and tessellation; rasterising excluded, as kittest does not paint)
+/// with a 2048² slice and 200 landmarks on it, steady and when the slice changes (a new
+/// texture), and on the bundled sample the refit after a landmark drag and the background
+/// measure that updates the profile.
+#[test]
+#[ignore]
+fn frame_time() {
+    use std::time::Instant;
+    let dir = tempfile::tempdir().unwrap();
+    let n = 2048;
+    let data: Vec<u16> = (0..n * n * 3).map(|i| ((i % n) * 7 + (i / n % n) * 13) as u16).collect();
+    let vox = ductline::stack::VoxelSize::from_user_um(&[20.0]).unwrap();
+    let st = ductline::stack::Stack::from_samples([n, n, 3], ductline::stack::Samples::U16(data.into()), Some(vox)).unwrap();
+    let tif = dir.path().join("big.tif");
+    ductline::stack::write::write_tiff(&st, &tif, ductline::stack::write::Packing::None, false).unwrap();
+    // 200 landmarks on the middle slice, on a spiral
+    let mut csv = String::from("kind,x_mm,y_mm,z_mm\n");
+    for k in 0..200 {
+        let t = k as f64 * 0.1;
+        let r = 15.0 - 0.05 * k as f64;
+        csv += &format!("{},{:.4},{:.4},0.02\n", if k % 2 == 0 { "lamina" } else { "ligament" }, 20.48 + r * t.cos(), 20.48 + r * t.sin());
+    }
+    let lm = dir.path().join("lm.csv");
+    std::fs::write(&lm, csv).unwrap();
+    let mut h = harness_with(Some(tif), tempfile::tempdir().unwrap().keep(), egui::vec2(1600.0, 1000.0));
+    wait(&mut h, "the stack", |a| a.doc.is_some());
+    h.state_mut().apply(Cmd::ImportLandmarks(lm, false));
+    for _ in 0..5 {
+        h.step();
+    }
+    let time = |h: &mut Harness<'static, DuctApp>, frames: usize, change: bool| -> f64 {
+        let mut ms = vec![];
+        for f in 0..frames {
+            if change {
+                h.state_mut().view.as_mut().unwrap().index[2] = f % 3;
+            }
+            let t = Instant::now();
+            h.step();
+            ms.push(t.elapsed().as_secs_f64() * 1000.0);
+        }
+        ms.sort_by(f64::total_cmp);
+        ms[ms.len() / 2]
+    };
+    let steady = time(&mut h, 30, false);
+    let change = time(&mut h, 12, true);
+    eprintln!("2048² slice, 200 landmarks: one frame {steady:.1} ms (median of 30), {change:.1} ms when the slice changes (median of 12)");
+    // the bundled sample: a drag's refit, then the background measure behind the profile
+    let mut h = harness(Some(sample_path()));
+    wait(&mut h, "the sample", |a| a.doc.is_some());
+    let (i, p) = h.state().doc.as_ref().unwrap().lms.items.iter().enumerate().find(|(_, l)| l.kind == Kind::Lamina).map(|(i, l)| (i, l.p)).unwrap();
+    h.state_mut().apply(Cmd::Edit(ductline::landmarks::Edit::Move { index: i, to: [p[0] + 0.01, p[1], p[2]] }));
+    let t = Instant::now();
+    h.state_mut().doc.as_mut().unwrap().refit();
+    let refit = t.elapsed().as_secs_f64() * 1000.0;
+    let t = Instant::now();
+    h.state_mut().apply(Cmd::Measure);
+    wait(&mut h, "the measure", |a| !a.busy());
+    let measure = t.elapsed().as_secs_f64() * 1000.0;
+    eprintln!("bundled sample: refit after a drag {refit:.1} ms; measure for the profile {measure:.0} ms (background; includes frames stepped while waiting)");
+}
