@@ -230,14 +230,21 @@ pub fn trace(stack: &Stack, seeds: &[Landmark], step_deg: f64) -> Result<Trace> 
     }
     let one = |k: Kind| crate::landmarks::single(seeds, k);
     let (b, a, w) = (one(Kind::AxisBase)?, one(Kind::AxisApex)?, one(Kind::Window)?);
-    // handedness: the seeds lie just past the window, at small positive angles (summed, not
-    // counted by sign: seeds on the window's own line sit at ±0°)
+    // Seeds spanning enough of the spiral to fit it (a trace resumed from accepted points): the
+    // fit gives the handedness (the way they turn) and unwraps their angles. Seeds near the base
+    // only: they lie just past the window, at small positive angles (summed, not counted by sign:
+    // seeds on the window's own line sit at ±0°), as they lie.
     let right = Frame::new(b, a, w, Handedness::Right)?;
-    let side: f64 = seeds.iter().filter(|l| matches!(l.kind, Kind::Lamina | Kind::Ligament)).map(|l| crate::frame::wrap180(right.to_cochlear(l.p)[1])).sum();
-    let frame = Frame::new(b, a, w, if side >= 0.0 { Handedness::Right } else { Handedness::Left })?;
-    // angles along the spiral: the seeds near the base as they lie; more seeds than half a turn
-    // (a trace resumed from accepted points) unwrapped by the spiral they fit
-    let spiral = crate::centreline::Centreline::fit(&frame, seeds, &Default::default()).ok().filter(|c| c.frame.handed == frame.handed);
+    let spiral = crate::centreline::Centreline::fit(&right, seeds, &Default::default()).ok();
+    let handed = match &spiral {
+        Some(s) => s.frame.handed,
+        None => {
+            let side: f64 =
+                seeds.iter().filter(|l| matches!(l.kind, Kind::Lamina | Kind::Ligament)).map(|l| crate::frame::wrap180(right.to_cochlear(l.p)[1])).sum();
+            if side >= 0.0 { Handedness::Right } else { Handedness::Left }
+        }
+    };
+    let frame = Frame::new(b, a, w, handed)?;
     let edges = |k: Kind| -> Vec<Edge> {
         let mut v: Vec<Edge> = seeds
             .iter()
@@ -303,8 +310,19 @@ pub fn trace(stack: &Stack, seeds: &[Landmark], step_deg: f64) -> Result<Trace> 
         let lumen = (!ducts.is_empty()).then(|| median(&mut ducts.iter().rev().take(9).map(|d| d.1).collect::<Vec<_>>())).and_then(|rho| {
             let tail: Vec<Edge> = ducts.iter().map(|d| d.0).collect();
             let c = predict(&tail, angle);
-            let below: Vec<(f64, f64)> =
-                [360.0, 720.0].iter().filter_map(|t| tail.iter().find(|e| (e.angle - (angle - t)).abs() < 0.6 * step_deg)).map(|e| (e.r, e.h)).collect();
+            // (the blob found there, else the partition's midpoint among the points placed there:
+            // a trace resumed from accepted points has no blobs of its own that far back)
+            let nearest = |v: &[Edge], a: f64| {
+                v.iter().copied().filter(|e| (e.angle - a).abs() < 0.6 * step_deg).min_by(|x, y| (x.angle - a).abs().total_cmp(&(y.angle - a).abs()))
+            };
+            let below: Vec<(f64, f64)> = [360.0, 720.0]
+                .iter()
+                .filter_map(|t| {
+                    let a = angle - t;
+                    let placed = nearest(&lam, a).zip(nearest(&lig, a)).map(|(l, g)| mid(&l, &g));
+                    nearest(&tail, a).map(|e| (e.r, e.h)).or(placed)
+                })
+                .collect();
             duct(stack, &frame, angle, (c.r, c.h), rho, pitch, &below)
                 .filter(|d| (d.r - c.r).hypot(d.h - c.h) < 0.5 * rho && d.rho > 0.6 * rho && d.rho < 1.25 * rho)
         });

@@ -213,3 +213,35 @@ fn axis_proposal_near_the_true_axis() {
         }
     }
 }
+
+/// A trace resumed from many points (the app traces again beyond a moved point from every
+/// landmark up to it): the true landmarks up to about 400° (more than a turn, so their wrapped
+/// angles repeat) as seeds on member 5 at 45 µm and on member 1 (a left ear) at 150 µm. The
+/// proposals start past the last seed, lie within 1 voxel (45 µm) / 1.5 voxels (150 µm) of the
+/// true edges (median) and reach at least 95 % of the depth. Before the seeds' angles were
+/// unwrapped along their spiral, they wrapped at ±180° and such a trace mixed the turns.
+#[test]
+fn a_trace_resumes_from_many_points() {
+    for (n, vox, tol) in [(5, 45.0, 1.0), (1, 150.0, 1.5)] {
+        let spec = PhantomSpec { truth_step_deg: 30.0, ..PhantomSpec::variant(n, [vox; 3]) };
+        let ph = phantom::generate(&spec, &Progress::new()).unwrap();
+        let mut seeds: Vec<Landmark> = ph.landmarks.iter().filter(|l| matches!(l.kind, Kind::AxisBase | Kind::AxisApex | Kind::Window)).copied().collect();
+        for k in [Kind::Lamina, Kind::Ligament] {
+            seeds.extend(ph.landmarks.iter().filter(|l| l.kind == k).take(41));
+        }
+        let t = ductline::trace::trace(&ph.stack, &seeds, 10.0).unwrap();
+        let vmax = ph.stack.voxel.as_ref().unwrap().max();
+        let first = t.proposed.iter().map(|p| p.angle_deg).fold(f64::INFINITY, f64::min);
+        let mut d: Vec<f64> = t.proposed.iter().map(|p| off_curve(&ph, p.lm.kind, p.lm.p, p.angle_deg) / vmax).collect();
+        let med = quantile(&mut d, 0.5);
+        let depth = t.stopped_deg / spec.theta_max().to_degrees();
+        eprintln!(
+            "member {n} at {vox} µm from 41 + 41 seeds: first proposal at {first:.0}°, {} proposals, median {med:.2} voxels off, {:.0} % of the depth",
+            t.proposed.len(),
+            100.0 * depth
+        );
+        assert!(first > 400.0 && first < 420.0, "member {n}: first proposal at {first:.0}°");
+        assert!(med <= tol, "member {n}: median {med:.2} voxels off the true edges");
+        assert!(depth >= 0.95, "member {n}: {:.0} % of the depth", 100.0 * depth);
+    }
+}

@@ -11,8 +11,11 @@
 //!    lines them its values pile up at the soft-tissue level), summed over the same tube; a ring
 //!    that is nearly all bone means two materials. The lumen level is then re-taken from the
 //!    interior of the scalae themselves.
-//! 3. Regions ([`regions`]): the partition line through the lamina and ligament points splits the
-//!    lumen. Each scala is grown (4-connected) from a seed on its side over pixels of a lightly
+//! 3. Regions ([`regions`]): first the section's territory — a seeded watershed of the image
+//!    from its centreline point against points of the spaces around it (the other turns crossing
+//!    the plane, the modiolar axis, points beyond the lateral wall), so a septum or wall thinner
+//!    than the blur still parts them along its ridge. The partition line through the lamina and
+//!    ligament points splits the lumen. Each scala is grown (4-connected) from a seed on its side over pixels of a lightly
 //!    smoothed image below the lumen/soft-tissue midpoint, so it stops at soft tissue as well as at
 //!    bone; then necks narrower than a fraction of the scala's own size (canals, gaps in a septum)
 //!    are cut by a morphological opening by reconstruction, and only the part holding the seed is
@@ -373,8 +376,9 @@ struct Img {
     n: usize,
     pitch: f64,
     start: f64,
-    /// Per pixel: +1 on the apical side of the partition line, −1 on the basal side, 0 in
-    /// another turn's territory ([`Partition::owns`]).
+    /// Per pixel: +1 on the apical side of the partition line, −1 on the basal side, 0 outside
+    /// this turn's territory (another turn, the modiolus or beyond the lateral wall; see
+    /// [`sample_section`]).
     side: Vec<i8>,
     /// Per pixel: on a barrier line drawn by the user (empty when there is none).
     blocked: Vec<bool>,
