@@ -397,7 +397,7 @@ impl View {
         } else {
             self.wheel = 0.0;
         }
-        resp.on_hover_text("Click: place the active landmark kind (snapped to the edge within two voxels when snapping is on; on an open ring: accept that proposal) · drag a mark: move it · right-click a mark: delete · drag elsewhere: pan · wheel: next slice or angle · ctrl+wheel: zoom");
+        resp.on_hover_text("Click: place the active landmark kind (snapped to the edge within two voxels when snapping is on; on a small dot of the fit: where the fit predicts it; on an open ring: accept that proposal) · drag a mark: move it · right-click a mark: delete · drag elsewhere: pan · wheel: next slice or angle · ctrl+wheel: zoom");
         cmds
     }
 
