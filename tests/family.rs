@@ -55,9 +55,9 @@ fn truth_at(t: &[phantom::TruthRow], a: f64, f: &dyn Fn(&phantom::TruthRow) -> f
 /// in the threshold stops a scala from flooding the turn above or below, the modiolus or what lies
 /// outside. The spaces around each section (the other turns crossing its plane, the modiolar axis,
 /// points beyond the lateral wall) part the lumen along the ridges such walls still leave (a
-/// seeded watershed), and seeds are looked for deep in small scalae. Before: sound sections of
-/// members 1, 2 and 5 came out at up to 4.8, 2.9 and 4.2 times their true area, and members 7, 8,
-/// 9 and 10 had areas on 24, 25, 15 and 61 % of their sections (`no_seed`, `open`). Now every
+/// seeded watershed), and seeds are looked for deep in small scalae. Before: sound sections came
+/// out at up to 4.9 times their true area (member 1, a scala flooding the turn above), and members
+/// 6–10 had areas on only 6–61 % of their sections (`no_seed`, `open`). Now every
 /// member has areas on at least 95 % of its sections, none over 2.5 times its truth. (Soft tissue
 /// a voxel thick cannot be told from partial-volume lumen at this resolution, so areas run high:
 /// the SV+ST median error is printed, not held.)
