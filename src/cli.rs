@@ -481,22 +481,25 @@ fn plot_axis(name: &str) -> Result<ductline::figure::XAxis> {
 /// Writes the table and every extra output `a` asks for (each atomically).
 fn write_outputs(a: &MeasureArgs, out: &pipeline::Outcome, prj: &project::Project, st: &stack::Stack, stack_path: &Path) -> Result<()> {
     // the rows' points in the file's world frame when asked (by its index-to-world transform)
-    let mut rows = out.rows.clone();
-    if a.points_frame == "world" {
-        let Some(w) = &st.world else {
-            bail!("{}: the file has no index-to-world transform; --points-frame world needs one", stack_path.display());
-        };
-        let mm = st.voxel()?.original_mm;
-        rows.iter_mut().for_each(|r| r.point = w.to_world(r.point, mm));
-    }
-    project::write_atomic(&a.out, export::table_csv(&rows).as_bytes())?;
+    let in_world = match (a.points_frame.as_str(), &st.world) {
+        ("world", None) => bail!("{}: the file has no index-to-world transform; --points-frame world needs one", stack_path.display()),
+        ("world", Some(w)) => {
+            let (mut o, mm) = (out.clone(), st.voxel()?.original_mm);
+            o.rows.iter_mut().for_each(|r| r.point = w.to_world(r.point, mm));
+            Some(o)
+        }
+        _ => None,
+    };
+    // the tables' rows (surfaces, outlines and figure stay as measured)
+    let table = in_world.as_ref().unwrap_or(out);
+    project::write_atomic(&a.out, export::table_csv(&table.rows).as_bytes())?;
     if let Some(j) = &a.json {
         let vox = st.voxel()?;
         let bytes = std::fs::metadata(stack_path).map(|m| m.len()).unwrap_or(0);
         let prov = export::Provenance { stack_path, stack_bytes: bytes, voxel: vox, fit: &prj.fit, measure: &prj.measure };
-        let mut v = export::table_json(&pipeline::Outcome { rows, ..out.clone() }, &prov);
-        let frame = match (&st.world, a.points_frame.as_str()) {
-            (Some(w), "world") => format!("{} mm (the file's world frame); outlines, centroids and the cochlear frame in stack mm", w.frame),
+        let mut v = export::table_json(table, &prov);
+        let frame = match (&st.world, in_world.is_some()) {
+            (Some(w), true) => format!("{} mm (the file's world frame); outlines, centroids and the cochlear frame in stack mm", w.frame),
             _ => "stack mm (i·vx, j·vy, k·vz)".to_string(),
         };
         v["metadata"]["points_frame"] = serde_json::json!(frame);

@@ -230,13 +230,17 @@ pub fn measure(
     let ov_of = |g: &SectionGeom| {
         overrides.iter().filter(|o| (o.s_mm - g.s).abs() <= 0.5 * s.step_mm).min_by(|a, b| (a.s_mm - g.s).abs().total_cmp(&(b.s_mm - g.s).abs()))
     };
+    // each section's partition and the spaces around it, found once (the other turns' crossings
+    // take a few root searches on the centreline)
+    let parts: Vec<Partition> = geoms.par_iter().map(|g| Partition::of(cl, g)).collect();
     // first pass: each section's first square, and the histograms that give the levels
     let first: Vec<Img> = geoms
         .par_iter()
-        .map(|g| {
+        .zip(parts.par_iter())
+        .map(|(g, part)| {
             progress.check()?;
             let half = (START_HALF * g.width()).max(10.0 * vmax).min(s.capture_mm);
-            let img = sample_section(stack, g, &Partition::of(cl, g), half, pitch, None, ov_of(g).and_then(|o| o.barrier));
+            let img = sample_section(stack, g, part, half, pitch, None, ov_of(g).and_then(|o| o.barrier));
             progress.add(1);
             Ok(img)
         })
@@ -251,9 +255,9 @@ pub fn measure(
         .par_iter()
         .zip(geoms.par_iter())
         .zip(auto.par_iter())
-        .map(|((img, g), lv)| {
+        .zip(parts.par_iter())
+        .map(|(((img, g), lv), part)| {
             let Some(lv) = lv.filter(|l| l.lumen < l.bone) else { return (vec![], 0) };
-            let part = Partition::of(cl, g);
             let erode = (vmax / pitch).ceil() as usize;
             // grown below a cut that stays under any soft tissue (fluid-filled: 20 % or more of
             // the lumen–bone step above the lumen), so the rays start before the tissue does
@@ -303,11 +307,12 @@ pub fn measure(
         .into_par_iter()
         .zip(geoms.par_iter())
         .zip(auto)
-        .map(|((img, g), auto)| {
+        .zip(parts.par_iter())
+        .map(|(((img, g), auto), part)| {
             progress.check()?;
             let ov = ov_of(g);
             let given = ov.and_then(|o| o.levels).or(s.levels).map(|l| Levels { lumen: l[0], tissue: l[1], bone: l[1] });
-            let mut row = section_row(stack, cl, g, s, pitch, vmax, ov, gw, img, given.or(auto), given.is_some());
+            let mut row = section_row(stack, cl, g, part, s, pitch, vmax, ov, gw, img, given.or(auto), given.is_some());
             if cl.extrapolated(g.theta) {
                 row.flags.push(Flag::Extrapolated);
             }
@@ -408,6 +413,7 @@ fn section_row(
     stack: &Stack,
     cl: &Centreline,
     g: &SectionGeom,
+    part: &Partition,
     s: &MeasureSettings,
     pitch: f64,
     vmax: f64,
@@ -418,7 +424,6 @@ fn section_row(
     given: bool,
 ) -> Row {
     let (radius, height) = cl.radius_height(g.theta);
-    let part = Partition::of(cl, g);
     let mut row = Row {
         s_mm: g.s,
         angle_deg: g.theta.to_degrees(),
@@ -462,7 +467,7 @@ fn section_row(
         let can_grow = half < s.capture_mm;
         let regrow = |img: Img, half: &mut f64| -> Img {
             *half = (*half * GROWTH).min(s.capture_mm);
-            sample_section(stack, g, &part, *half, pitch, Some(img), barrier)
+            sample_section(stack, g, part, *half, pitch, Some(img), barrier)
         };
         // the lumen level from the interior of the scalae themselves (levels found, not given)
         if !given {
