@@ -98,8 +98,13 @@ pub(super) fn fraction_area(img: &Img, r: &Region, side: f64, lv: &Levels, band:
         Bone,
         Tissue,
         None,
+        /// Soft tissue with bone's blur: the blurred bone fraction β of the pixel, from its ray's
+        /// fitted layer (`levels::fit_layer`).
+        Mixed(f32),
     }
     let mut by_ray: Vec<Option<Ref>> = vec![None; w * h];
+    // the blur σ of the section image (pixels), where the edges say (`levels::plateaus`)
+    let mut blur: Option<f64> = None;
     let mut lined: Vec<Option<Ref>> = vec![None; w * h];
     if two_tissues {
         let cell = |x: f64, y: f64| -> Option<usize> {
@@ -107,9 +112,11 @@ pub(super) fn fraction_area(img: &Img, r: &Region, side: f64, lv: &Levels, band:
             let inside = x >= reach.a0 as f64 && y >= reach.b0 as f64 && x < reach.a1 as f64 && y < reach.b1 as f64;
             inside.then(|| (y as usize - reach.b0) * w + x as usize - reach.a0)
         };
-        for p in super::levels::plateaus(img, &[mask], r.bounds, lv, erode) {
-            let kind = if p.value < lv.bone_cut() { Ref::Tissue } else { Ref::Bone };
+        let plateaus;
+        (plateaus, blur) = super::levels::plateaus(img, &[mask], r.bounds, lv, erode);
+        for p in plateaus.iter().filter(|p| p.layer.is_none()) {
             let (a, b) = ((p.pixel % n) as f64, (p.pixel / n) as f64);
+            let kind = if p.value < lv.bone_cut() { Ref::Tissue } else { Ref::Bone };
             lined[(p.pixel / n - reach.b0) * w + p.pixel % n - reach.a0] = Some(kind);
             let mut t = 0.0;
             while t <= band as f64 {
@@ -122,6 +129,36 @@ pub(super) fn fraction_area(img: &Img, r: &Region, side: f64, lv: &Levels, band:
                     by_ray[c] = Some(mark);
                 }
                 t += 0.5;
+            }
+        }
+        // Where the nearest edge pixel's ray fitted a soft-tissue layer, a pixel takes bone's
+        // blurred share β at its distance along that ray; past the lumen's blur (three σ beyond
+        // its edge) it holds no lumen.
+        let layered: Vec<(&super::levels::Plateau, super::levels::Layer)> = plateaus.iter().filter_map(|p| Some((p, p.layer?))).collect();
+        if !layered.is_empty() {
+            // the layered ray from each edge pixel that has one (index into `layered`)
+            let mut from: Vec<Option<usize>> = vec![None; w * h];
+            for (j, (p, _)) in layered.iter().enumerate() {
+                let k = (p.pixel / n - reach.b0) * w + p.pixel % n - reach.a0;
+                from[k] = Some(j);
+                lined[k] = Some(Ref::Tissue);
+            }
+            let nearest = nearest_edge(w, h, band + erode, |k| mask[at(k)], |k| from[k]);
+            for (k, e) in nearest.iter().enumerate() {
+                let (Some(Some(j)), false) = (e, interior[at(k)]) else { continue };
+                let (p, layer) = layered[*j];
+                let (x, y) = ((at(k) % n) as f64 - (p.pixel % n) as f64, (at(k) / n) as f64 - (p.pixel / n) as f64);
+                let t = x * p.dir[0] + y * p.dir[1];
+                // pixels the ray passes near take its profile; others beyond the lumen's blur
+                // hold no lumen either
+                if (y * p.dir[0] - x * p.dir[1]).abs() > 1.5 {
+                    if d_lumen[k] as f64 / 3.0 > 3.0 * layer.sigma + 1.0 {
+                        by_ray[k] = Some(Ref::None);
+                    }
+                    continue;
+                }
+                let beta = super::levels::phi((t - layer.bone) / layer.sigma) as f32;
+                by_ray[k] = Some(if t > layer.lumen + 3.0 * layer.sigma { Ref::None } else { Ref::Mixed(beta) });
             }
         }
     }
@@ -152,7 +189,13 @@ pub(super) fn fraction_area(img: &Img, r: &Region, side: f64, lv: &Levels, band:
                     dr <= dother
                 }
             });
-        if inside {
+        // the mask's edge lies within about 1.2 σ inside a blurred lumen edge (at the lumen/soft
+        // tissue midpoint), and the lumen's blur reaches 2.5 σ past it: no lumen beyond 4 σ
+        let beyond = |i: usize| {
+            let k = (i / n - reach.b0) * w + i % n - reach.a0;
+            blur.is_some_and(|s| d_lumen[k] as f64 / 3.0 > 4.0 * s + 0.5)
+        };
+        if inside && !beyond(i) {
             field[i] = if interior[i] {
                 1.0
             } else {
@@ -162,6 +205,7 @@ pub(super) fn fraction_area(img: &Img, r: &Region, side: f64, lv: &Levels, band:
                     Ref::Tissue if !mask[i] => ((lv.tissue - x) / (lv.tissue - lv.lumen)).max(0.0),
                     Ref::Tissue => (lv.tissue - x) / (lv.tissue - lv.lumen),
                     Ref::None => 0.0,
+                    Ref::Mixed(beta) => (lv.tissue + (lv.bone - lv.tissue) * beta - x) / (lv.tissue - lv.lumen),
                 }
             };
         }
@@ -179,6 +223,42 @@ pub(super) fn fraction_area(img: &Img, r: &Region, side: f64, lv: &Levels, band:
     }
     let c = if sum > 0.0 { [cu / sum, cv / sum] } else { [0.0, 0.0] };
     (sum * p2, field, c)
+}
+
+/// For each pixel of a w×h window within `reach` steps (8-connected) of an edge pixel of the
+/// set `inside` (a set pixel with a 4-neighbour outside it): what `label` says of the nearest
+/// edge pixel (breadth-first from all edge pixels at once), or None beyond reach.
+fn nearest_edge<T: Copy>(w: usize, h: usize, reach: usize, inside: impl Fn(usize) -> bool, label: impl Fn(usize) -> T) -> Vec<Option<T>> {
+    let mut out: Vec<Option<T>> = vec![None; w * h];
+    let mut front = vec![];
+    for k in 0..w * h {
+        let (x, y) = (k % w, k / w);
+        let outside = |xx: usize, yy: usize| !inside(yy * w + xx);
+        let edge =
+            inside(k) && ((x > 0 && outside(x - 1, y)) || (x + 1 < w && outside(x + 1, y)) || (y > 0 && outside(x, y - 1)) || (y + 1 < h && outside(x, y + 1)));
+        if edge {
+            out[k] = Some(label(k));
+            front.push(k);
+        }
+    }
+    for _ in 0..reach {
+        let mut next = vec![];
+        for &k in &front {
+            let (x, y) = ((k % w) as isize, (k / w) as isize);
+            for (dx, dy) in [(-1, 0), (1, 0), (0, -1), (0, 1), (-1, -1), (1, -1), (-1, 1), (1, 1)] {
+                let (xx, yy) = (x + dx, y + dy);
+                if xx >= 0 && yy >= 0 && (xx as usize) < w && (yy as usize) < h {
+                    let j = yy as usize * w + xx as usize;
+                    if out[j].is_none() {
+                        out[j] = out[k];
+                        next.push(j);
+                    }
+                }
+            }
+        }
+        front = next;
+    }
+    out
 }
 
 /// Star outline of a fraction field at the half level, [`OUTLINE_POINTS`] rays from `c`.

@@ -183,6 +183,18 @@ pub(super) struct Plateau {
     pub dir: [f64; 2],
     /// Distance from the edge pixel to the plateau (pixels).
     pub at: f64,
+    /// Where the ray shows soft tissue between lumen and bone: the fitted lumen and bone edges
+    /// along it and the blur of the unsmoothed section image (pixels; see [`fit_layer`]).
+    pub layer: Option<Layer>,
+}
+
+/// A soft-tissue layer across one ray: the lumen edge at `lumen`, the bone edge at `bone`
+/// (pixels from the edge pixel along the ray) and the blur σ (pixels) of the section image.
+#[derive(Clone, Copy, Debug)]
+pub(super) struct Layer {
+    pub lumen: f64,
+    pub bone: f64,
+    pub sigma: f64,
 }
 
 /// The level of the first material beyond the lumen, seen from each edge pixel of the regions
@@ -202,7 +214,7 @@ pub(super) struct Plateau {
 /// tissue between two lumens) or that reaches a region again says nothing about any material and
 /// is dropped. The value says which material (the area step compares it with the
 /// soft-tissue–bone midpoint); the soft-tissue level itself comes from [`wall_level`].
-pub(super) fn plateaus(img: &Img, masks: &[&[bool]], bounds: super::regions::Rect, lv: &Levels, vox: usize) -> Vec<Plateau> {
+pub(super) fn plateaus(img: &Img, masks: &[&[bool]], bounds: super::regions::Rect, lv: &Levels, vox: usize) -> (Vec<Plateau>, Option<f64>) {
     let step = lv.bone - lv.lumen;
     let reach = 8 * vox; // half-pixel steps: four voxels
     let rays = edge_rays(img, masks, bounds, reach + 1, vox, |_, _| true);
@@ -230,20 +242,41 @@ pub(super) fn plateaus(img: &Img, masks: &[&[bool]], bounds: super::regions::Rec
     let mut runs: Vec<f64> = gaps.iter().flatten().filter(|g| !g.2).map(|(xt, xb, _)| xb - xt).collect();
     runs.sort_by(f64::total_cmp);
     let bare_run = (runs.len() >= 8).then(|| runs[runs.len() / 4]);
+    // The blur of the smoothed image along the rays (half pixels), from the median run of the
+    // bare edges: a blurred lumen | bone step crosses the two midpoints Φ⁻¹(q/2) and
+    // Φ⁻¹((1 + q)/2) blur widths from its edge, q = (tissue − lumen)/(bone − lumen).
+    let q = ((lv.tissue - lv.lumen) / step) as f64;
+    let sigma_sm = bare_run.and_then(|bare| {
+        let bare_runs: Vec<f64> = runs.iter().copied().filter(|&r| r <= 1.25 * bare + 1.0).collect();
+        let median = bare_runs[bare_runs.len() / 2];
+        let s = median / (inv_phi(0.5 * (1.0 + q)) - inv_phi(0.5 * q));
+        (s.is_finite() && s > 0.0).then_some(s)
+    });
+    // σ of the unsmoothed image (pixels): the smoothing adds one pixel in quadrature
+    let sigma = sigma_sm.map(|s| ((0.5 * s).powi(2) - 1.0).max(0.09).sqrt());
     let mut out = vec![];
     for ((k, [dx, dy], f), gap) in rays.into_iter().zip(gaps) {
+        // a climb slower than a bare edge's: fit where the lumen ends and the bone begins
+        if let (Some(bare), Some(s), Some(sigma), Some((xt, xb, false))) = (bare_run, sigma_sm, sigma, gap)
+            && xb - xt > 1.15 * bare + 0.5
+            && let Some((a, c)) = fit_layer(&f, lv, s, xt, xb)
+        {
+            let layer = Layer { lumen: 0.5 * a, bone: 0.5 * c, sigma };
+            out.push(Plateau { pixel: k, value: lv.tissue, dir: [dx, dy], at: 0.5 * c, layer: Some(layer) });
+            continue;
+        }
         // a thin crest's bare climb to half its height is shorter: 0.9 blur widths, not 1.4
         if let (Some(bare), Some((xt, xb, crest))) = (bare_run, gap)
             && xb - xt > 1.25 * bare * if crest { 0.7 } else { 1.0 } + 1.0
         {
             // lined (a layer over about 1.5 blur widths): soft tissue from the lumen edge on;
             // the lumen's blur reaches about half the bare run (one blur width) past it
-            out.push(Plateau { pixel: k, value: lv.tissue, dir: [dx, dy], at: 0.5 * (xt + 0.7 * bare) });
+            out.push(Plateau { pixel: k, value: lv.tissue, dir: [dx, dy], at: 0.5 * (xt + 0.7 * bare), layer: None });
             continue;
         }
         if let Some((_, xb, true)) = gap {
             // a bare thin crest (a bony shelf or septum under the blur): bone, whatever its height
-            out.push(Plateau { pixel: k, value: lv.bone, dir: [dx, dy], at: 0.5 * xb });
+            out.push(Plateau { pixel: k, value: lv.bone, dir: [dx, dy], at: 0.5 * xb, layer: None });
             continue;
         }
         let slope: Vec<f32> = f.windows(2).map(|w| w[1] - w[0]).collect();
@@ -270,9 +303,64 @@ pub(super) fn plateaus(img: &Img, masks: &[&[bool]], bounds: super::regions::Rec
         if f[(j + 2 * vox).min(reach)] < f[j] - 0.1 * step {
             continue;
         }
-        out.push(Plateau { pixel: k, value: f[j], dir: [dx, dy], at: 0.5 * j as f64 });
+        out.push(Plateau { pixel: k, value: f[j], dir: [dx, dy], at: 0.5 * j as f64, layer: None });
     }
-    out
+    (out, sigma)
+}
+
+/// The lumen edge a and bone edge c ≥ a (half pixels along the ray) of the blurred
+/// lumen | soft tissue | bone model m(x) = L + (T − L)·Φ((x − a)/σ) + (B − T)·Φ((x − c)/σ) that
+/// fits the ray's smoothed values `f` (every half pixel) best in least squares, up to two
+/// samples past its highest; σ in half pixels, L, T, B the section's levels. A grid of half
+/// steps within three of the crossings `xt` (lumen/soft-tissue midpoint) and `xb`
+/// (soft-tissue/bone midpoint), then eighths within one step of the best. None where the ray
+/// is too short to say.
+fn fit_layer(f: &[f32], lv: &Levels, sigma: f64, xt: f64, xb: f64) -> Option<(f64, f64)> {
+    let top = (0..f.len()).max_by(|&a, &b| f[a].total_cmp(&f[b]))?;
+    let f = &f[..(top + 3).min(f.len())];
+    if f.len() < 6 {
+        return None;
+    }
+    let (l, t, b) = (lv.lumen as f64, lv.tissue as f64, lv.bone as f64);
+    let sse = |a: f64, c: f64| -> f64 {
+        f.iter().enumerate().map(|(i, &y)| (y as f64 - l - (t - l) * phi((i as f64 - a) / sigma) - (b - t) * phi((i as f64 - c) / sigma)).powi(2)).sum()
+    };
+    let mut best = (f64::INFINITY, xt, xb);
+    for i in -6..=6 {
+        let a = xt + 0.5 * i as f64;
+        for j in -6..=6 {
+            let c = xb + 0.5 * j as f64;
+            if c >= a {
+                let e = sse(a, c);
+                if e < best.0 {
+                    best = (e, a, c);
+                }
+            }
+        }
+    }
+    let (a0, c0) = (best.1, best.2);
+    for i in -4..=4 {
+        for j in -4..=4 {
+            let (a, c) = (a0 + 0.125 * i as f64, c0 + 0.125 * j as f64);
+            if c >= a {
+                let e = sse(a, c);
+                if e < best.0 {
+                    best = (e, a, c);
+                }
+            }
+        }
+    }
+    Some((best.1, best.2))
+}
+
+/// The inverse of [`phi`] on (0, 1), by bisection (to 1e-9).
+fn inv_phi(p: f64) -> f64 {
+    let (mut lo, mut hi) = (-10.0, 10.0);
+    while hi - lo > 1e-9 {
+        let m = 0.5 * (lo + hi);
+        if phi(m) < p { lo = m } else { hi = m }
+    }
+    0.5 * (lo + hi)
 }
 
 /// Length of a lateral-wall profile (mm): the thickest spiral ligament and the bone behind it.
@@ -435,7 +523,7 @@ pub(super) enum Wall {
 
 /// The standard normal distribution function (Abramowitz & Stegun 7.1.26 for erf, error
 /// under 1.5e-7).
-fn phi(z: f64) -> f64 {
+pub(super) fn phi(z: f64) -> f64 {
     let x = z.abs() / std::f64::consts::SQRT_2;
     let t = 1.0 / (1.0 + 0.327_591_1 * x);
     let y = 1.0 - (((((1.061_405_429 * t - 1.453_152_027) * t) + 1.421_413_741) * t - 0.284_496_736) * t + 0.254_829_592) * t * (-x * x).exp();
