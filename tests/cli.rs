@@ -383,7 +383,8 @@ fn world_frame_landmarks_in_and_points_out() {
 }
 
 /// One phantom, every format, one table: the phantom's stack written as an OME-TIFF (the
-/// phantom's own), an NRRD, a MetaImage (.mha) and a folder of single-page TIFF slices, each
+/// phantom's own), an NRRD, a MetaImage (.mha), a NIfTI-1 file and a folder of single-page TIFF
+/// slices, each
 /// measured from the same stack-frame landmarks at the same voxel size, gives the same table
 /// (every number to 1e-9 relative, the same flags): the readers agree on the sample order and
 /// the stack frame (i·vx, j·vy, k·vz) whatever the file's own world transform.
@@ -418,6 +419,31 @@ fn one_phantom_every_format_one_table() {
     .into_bytes();
     b.extend(&raw);
     std::fs::write(&mha, b).unwrap();
+    // NIfTI-1 (.nii), its sform flipping x (RAS, the first index axis toward the left); header
+    // fields at the offsets of the NIfTI-1 standard (nifti1.h)
+    let nii = d.path().join("p.nii");
+    let mut h = vec![0u8; 352];
+    let put = |h: &mut Vec<u8>, at: usize, b: &[u8]| h[at..at + b.len()].copy_from_slice(b);
+    put(&mut h, 0, &348i32.to_le_bytes());
+    for (k, dim) in [3i16, nx as i16, ny as i16, nz as i16, 1, 1, 1, 1].iter().enumerate() {
+        put(&mut h, 40 + 2 * k, &dim.to_le_bytes());
+    }
+    put(&mut h, 70, &512i16.to_le_bytes()); // datatype: uint16
+    put(&mut h, 72, &16i16.to_le_bytes()); // bitpix
+    for (k, p) in [1f32, vx as f32, vx as f32, vx as f32].iter().enumerate() {
+        put(&mut h, 76 + 4 * k, &p.to_le_bytes());
+    }
+    put(&mut h, 108, &352f32.to_le_bytes()); // vox_offset
+    h[123] = 2; // xyzt_units: mm
+    put(&mut h, 254, &1i16.to_le_bytes()); // sform_code: scanner
+    for (row, at) in [([-vx as f32, 0.0, 0.0, 10.0], 280), ([0.0, vx as f32, 0.0, -2.0], 296), ([0.0, 0.0, vx as f32, 1.0], 312)] {
+        for (k, x) in row.iter().enumerate() {
+            put(&mut h, at + 4 * k, &x.to_le_bytes());
+        }
+    }
+    put(&mut h, 344, b"n+1\0");
+    h.extend(&raw);
+    std::fs::write(&nii, h).unwrap();
     // a folder of single-page slices
     let folder = d.path().join("slices");
     std::fs::create_dir(&folder).unwrap();
@@ -428,7 +454,7 @@ fn one_phantom_every_format_one_table() {
     }
     let lm = ph.join("landmarks.csv");
     let mut tables = vec![];
-    for (name, stack) in [("tiff", ph.join("phantom.tif")), ("nrrd", nrrd), ("mha", mha), ("slices", folder)] {
+    for (name, stack) in [("tiff", ph.join("phantom.tif")), ("nrrd", nrrd), ("mha", mha), ("nifti", nii), ("slices", folder)] {
         let out = d.path().join(format!("{name}.csv"));
         let o = ductline(&["measure", "--stack", s(&stack), "--landmarks", s(&lm), "--voxel-um", "90", "--out", s(&out), "--step-mm", "0.5"]);
         assert!(o.status.success(), "{name}: {}", stderr(&o));

@@ -41,8 +41,12 @@ pub(super) fn near(n: usize, rect: Rect, k: usize, set: impl Fn(usize) -> bool) 
 /// pixels of it and no nearer to another dark pixel there), count (ref − v)/(ref − lumen), with
 /// ref the level of the material beyond the lumen there: what the ray from the nearest edge pixel
 /// met first (soft tissue or bone; `levels::plateaus`), else bone where bone lies within 1.75
-/// voxels of the edge. Past a soft-tissue plateau a pixel holds no lumen. The fractions are not
-/// clipped, so noise averages out instead of biasing the sum.
+/// voxels of the edge. Past a soft-tissue plateau a pixel holds no lumen. Where the nearest edge
+/// pixel's ray fitted a soft-tissue layer (`levels::Layer`), the pixels that ray passes count
+/// (tissue + (bone − tissue)·β − v)/(tissue − lumen), β = Φ((t − bone edge)/σ) the blurred bone
+/// share at their distance t along it: exact for the blurred three-material model whatever the
+/// layer's thickness. No pixel over four blur widths from the region holds lumen. The fractions
+/// are not clipped, so noise averages out instead of biasing the sum.
 pub(super) fn fraction_area(img: &Img, r: &Region, side: f64, lv: &Levels, band: usize, erode: usize) -> (f64, Vec<f32>, [f64; 2]) {
     let (n, mask) = (img.n, &r.mask);
     let thr = lv.lumen_cut();

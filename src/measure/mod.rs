@@ -10,7 +10,9 @@
 //!    tissue from the ring 1.5–2.5 voxels outside the scalae (where a spiral ligament or limbus
 //!    lines them its values pile up at the soft-tissue level), summed over the same tube; a ring
 //!    that is nearly all bone means two materials. The lumen level is then re-taken from the
-//!    interior of the scalae themselves.
+//!    interior of the scalae themselves — unless that lies well above the darkest tenth of the
+//!    duct's levels: scalae too small for the blur (apical turns at clinical resolution) keep
+//!    the duct's lumen level.
 //! 3. Regions ([`regions`]): first the section's territory — a seeded watershed of the image
 //!    from its centreline point against points of the spaces around it (the other turns crossing
 //!    the plane, the modiolar axis, points beyond the lateral wall), so a septum or wall thinner
@@ -27,8 +29,11 @@
 //!    lumen — soft tissue beyond the lumen's blur holds no lumen, and a thin layer on bone is not
 //!    half fluid. A stretch of edge is lined with soft tissue where its rays climb from the
 //!    lumen/soft-tissue midpoint to bone much more slowly than the section's bare edges do, even
-//!    where the layer is too thin to show a plateau. Pixels nearer to another lumen region are
-//!    left to it.
+//!    where the layer is too thin to show a plateau. There a blurred lumen | soft tissue | bone
+//!    model is fitted to the ray (its lumen and bone edges; the blur from the section's bare
+//!    edges), and the pixels it passes count (soft tissue + bone's blurred share there − v)/(soft
+//!    tissue − lumen), which holds however thin the layer: a ligament tapering to nothing is
+//!    neither half fluid nor cut off. Pixels nearer to another lumen region are left to it.
 //! 5. Wall ([`wall`]): along the partition direction outward, from where bone starts to where it
 //!    ends. Width and wall under one voxel are flagged `below_resolution` and left blank.
 
@@ -303,6 +308,26 @@ pub fn measure(
             };
         }
     }
+    // The lumen is one material along the whole duct (perilymph or air). Where a section's
+    // lumen level lies well above the darkest the duct shows, its scalae are too small for the
+    // blur to leave any pure lumen (the apical turns at clinical resolution: their blurred
+    // interior would pass for lumen and every edge pixel would count too much), and the duct's
+    // level stands in: the darkest tenth of the sections' levels. The margin, a tenth of the
+    // lumen–bone step, leaves a scanner's slow drift alone. (Bone is left as each tube finds it:
+    // raising it where the walls are thinner than the blur counted thin soft tissue as lumen.)
+    let duct = {
+        let mut lumen: Vec<(f32, f32)> = auto.iter().flatten().filter(|l| l.lumen < l.bone).map(|l| (l.lumen, l.bone - l.lumen)).collect();
+        lumen.sort_by(|a, b| a.0.total_cmp(&b.0));
+        (lumen.len() >= 5).then(|| {
+            let (level, step) = lumen[lumen.len() / 10];
+            (level, level + 0.1 * step)
+        })
+    };
+    if let Some((level, limit)) = duct {
+        for lv in auto.iter_mut().flatten().filter(|l| l.lumen > limit) {
+            lv.lumen = level;
+        }
+    }
     let rows = first
         .into_par_iter()
         .zip(geoms.par_iter())
@@ -312,7 +337,10 @@ pub fn measure(
             progress.check()?;
             let ov = ov_of(g);
             let given = ov.and_then(|o| o.levels).or(s.levels).map(|l| Levels { lumen: l[0], tissue: l[1], bone: l[1] });
-            let mut row = section_row(stack, cl, g, part, s, pitch, vmax, ov, gw, img, given.or(auto), given.is_some());
+            // the lumen level is re-taken from the section's own scalae (levels found, not given)
+            // where it lies within the duct's range
+            let limit = given.is_none().then(|| duct.map_or(f32::INFINITY, |d| d.1));
+            let mut row = section_row(stack, cl, g, part, s, pitch, vmax, ov, gw, img, given.or(auto), limit);
             if cl.extrapolated(g.theta) {
                 row.flags.push(Flag::Extrapolated);
             }
@@ -421,7 +449,7 @@ fn section_row(
     gw: &Greenwood,
     mut img: Img,
     levels: Option<Levels>,
-    given: bool,
+    lumen_limit: Option<f32>,
 ) -> Row {
     let (radius, height) = cl.radius_height(g.theta);
     let mut row = Row {
@@ -469,15 +497,16 @@ fn section_row(
             *half = (*half * GROWTH).min(s.capture_mm);
             sample_section(stack, g, part, *half, pitch, Some(img), barrier)
         };
-        // the lumen level from the interior of the scalae themselves (levels found, not given)
-        if !given {
+        // the lumen level from the interior of the scalae themselves (levels found, not given),
+        // unless it lies above `lumen_limit` (scalae too small for the blur: the duct's stands)
+        if let Some(limit) = lumen_limit {
             match levels::lumen_level(&img, line, mid, lv.lumen_cut(), vmax, g.width(), erode, band) {
                 // a scala already overflows the square: grow it before refining anything
                 levels::Lumen::Overflows if can_grow => {
                     img = regrow(img, &mut half);
                     continue;
                 }
-                levels::Lumen::Level(f) if f < lv.tissue => row.levels.lumen = f,
+                levels::Lumen::Level(f) if f < lv.tissue && f <= limit => row.levels.lumen = f,
                 _ => {}
             }
         }
