@@ -235,13 +235,13 @@ pub(super) fn fraction_area(img: &Img, r: &Region, side: f64, lv: &Levels, band:
 fn nearest_edge<T: Copy>(w: usize, h: usize, reach: usize, inside: impl Fn(usize) -> bool, label: impl Fn(usize) -> T) -> Vec<Option<T>> {
     let mut out: Vec<Option<T>> = vec![None; w * h];
     let mut front = vec![];
-    for k in 0..w * h {
+    for (k, o) in out.iter_mut().enumerate() {
         let (x, y) = (k % w, k / w);
         let outside = |xx: usize, yy: usize| !inside(yy * w + xx);
         let edge =
             inside(k) && ((x > 0 && outside(x - 1, y)) || (x + 1 < w && outside(x + 1, y)) || (y > 0 && outside(x, y - 1)) || (y + 1 < h && outside(x, y + 1)));
         if edge {
-            out[k] = Some(label(k));
+            *o = Some(label(k));
             front.push(k);
         }
     }

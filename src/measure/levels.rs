@@ -615,4 +615,28 @@ mod tests {
         let step: Vec<f64> = (0..61).map(|i| phi((0.01 * i as f64 - 0.1) / 0.03)).collect();
         assert_eq!(wall_level(&step, pitch), Some(Wall::Bare));
     }
+
+    /// A ray across lumen | soft tissue | bone built from the closed form of Gaussian-blurred
+    /// steps (handbook result), with a little deterministic noise: whether the layer is three
+    /// blur widths thick, one, or half of one (where the profile shows no plateau at all), the
+    /// fit finds the bone edge (whose blur the area step takes from it) within 0.15 of a sample
+    /// and the lumen edge (which only bounds where lumen may lie) within 0.3.
+    #[test]
+    fn fit_layer_finds_both_edges_of_thin_layers() {
+        let lv = Levels { lumen: 100.0, tissue: 250.0, bone: 800.0 };
+        let sigma = 3.0; // samples (half pixels)
+        for w in [9.0, 3.0, 1.5] {
+            let (a, c) = (5.0, 5.0 + w);
+            let f: Vec<f32> = (0..24)
+                .map(|i| {
+                    let x = i as f64;
+                    let m = 100.0 + 150.0 * phi((x - a) / sigma) + 550.0 * phi((x - c) / sigma);
+                    (m + 4.0 * (((i * 7919) % 13) as f64 / 13.0 - 0.5)) as f32
+                })
+                .collect();
+            let cross = |level: f32| (1..f.len()).find(|&i| f[i] >= level).map(|i| (i - 1) as f64 + ((level - f[i - 1]) / (f[i] - f[i - 1])) as f64).unwrap();
+            let (fa, fc) = fit_layer(&f, &lv, sigma, cross(lv.lumen_cut()), cross(lv.bone_cut())).unwrap();
+            assert!((fc - c).abs() < 0.15 && (fa - a).abs() < 0.3, "layer {w}: edges {fa:.2}, {fc:.2} for {a}, {c}");
+        }
+    }
 }
