@@ -102,9 +102,9 @@ pub(super) fn fraction_area(img: &Img, r: &Region, side: f64, lv: &Levels, band:
         Bone,
         Tissue,
         None,
-        /// Soft tissue with bone's blur: the blurred bone fraction β of the pixel, from its ray's
-        /// fitted layer (`levels::fit_layer`).
-        Mixed(f32),
+        /// Soft tissue with bone's blur: the blurred bone fraction β of the pixel and the level of
+        /// the bone behind, from its ray's fitted layer (`levels::fit_layer`).
+        Mixed(f32, f32),
     }
     let mut by_ray: Vec<Option<Ref>> = vec![None; w * h];
     // the blur σ of the section image (pixels), where the edges say (`levels::plateaus`)
@@ -162,7 +162,7 @@ pub(super) fn fraction_area(img: &Img, r: &Region, side: f64, lv: &Levels, band:
                     continue;
                 }
                 let beta = super::levels::phi((t - layer.bone) / layer.sigma) as f32;
-                by_ray[k] = Some(if t > layer.lumen + 3.0 * layer.sigma { Ref::None } else { Ref::Mixed(beta) });
+                by_ray[k] = Some(if t > layer.lumen + 3.0 * layer.sigma { Ref::None } else { Ref::Mixed(beta, layer.bone_level) });
             }
         }
     }
@@ -209,7 +209,7 @@ pub(super) fn fraction_area(img: &Img, r: &Region, side: f64, lv: &Levels, band:
                     Ref::Tissue if !mask[i] => ((lv.tissue - x) / (lv.tissue - lv.lumen)).max(0.0),
                     Ref::Tissue => (lv.tissue - x) / (lv.tissue - lv.lumen),
                     Ref::None => 0.0,
-                    Ref::Mixed(beta) => (lv.tissue + (lv.bone - lv.tissue) * beta - x) / (lv.tissue - lv.lumen),
+                    Ref::Mixed(beta, bone) => (lv.tissue + (bone - lv.tissue) * beta - x) / (lv.tissue - lv.lumen),
                 }
             };
         }

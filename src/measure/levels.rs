@@ -189,12 +189,14 @@ pub(super) struct Plateau {
 }
 
 /// A soft-tissue layer across one ray: the lumen edge at `lumen`, the bone edge at `bone`
-/// (pixels from the edge pixel along the ray) and the blur σ (pixels) of the section image.
+/// (pixels from the edge pixel along the ray), the blur σ (pixels) of the section image and the
+/// level of the bone behind.
 #[derive(Clone, Copy, Debug)]
 pub(super) struct Layer {
     pub lumen: f64,
     pub bone: f64,
     pub sigma: f64,
+    pub bone_level: f32,
 }
 
 /// The level of the first material beyond the lumen, seen from each edge pixel of the regions
@@ -259,9 +261,12 @@ pub(super) fn plateaus(img: &Img, masks: &[&[bool]], bounds: super::regions::Rec
         // a climb slower than a bare edge's: fit where the lumen ends and the bone begins
         if let (Some(bare), Some(s), Some(sigma), Some((xt, xb, false))) = (bare_run, sigma_sm, sigma, gap)
             && xb - xt > 1.15 * bare + 0.5
-            && let Some((a, c)) = fit_layer(&f, lv, s, xt, xb)
+            // the bone behind: the section's level, or the ray's own crest where it reads higher
+            // (the pooled level reads low where the walls are thin for the blur)
+            && let level = f.iter().fold(lv.bone, |m, &x| m.max(x))
+            && let Some((a, c)) = fit_layer(&f, &Levels { bone: level, ..*lv }, s, xt, xb)
         {
-            let layer = Layer { lumen: 0.5 * a, bone: 0.5 * c, sigma };
+            let layer = Layer { lumen: 0.5 * a, bone: 0.5 * c, sigma, bone_level: level };
             out.push(Plateau { pixel: k, value: lv.tissue, dir: [dx, dy], at: 0.5 * c, layer: Some(layer) });
             continue;
         }
