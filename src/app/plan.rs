@@ -1,8 +1,9 @@
-//! The plan map: landmarks and fitted curves seen along the modiolar axis (apex toward the
-//! viewer), with angle ticks and the current radial cut; a click picks the angle.
+//! The plan map: landmarks and fitted curves seen along the modiolar axis, turned as the stack's
+//! slice view shows them, with angle ticks and the current radial cut; a click picks the angle.
 
 use super::doc::Doc;
 use super::{Cmd, palette};
+use ductline::frame::v3;
 use ductline::landmarks::Kind;
 use egui::{Align2, Color32, FontId, Pos2, Sense, Stroke, pos2, vec2};
 
@@ -28,16 +29,20 @@ pub fn plan_ui(ui: &mut egui::Ui, doc: &Doc, angle_deg: f64) -> Vec<Cmd> {
         return cmds;
     };
     // scale: the largest radius of any partition landmark
-    let polar: Vec<(Kind, [f64; 3])> =
-        doc.lms.items.iter().filter(|l| matches!(l.kind, Kind::Lamina | Kind::Ligament | Kind::Window)).map(|l| (l.kind, frame.to_cochlear(l.p))).collect();
-    let rmax = polar.iter().map(|p| p.1[0]).fold(1.0, f64::max) * 1.12;
+    let marks: Vec<(Kind, [f64; 3])> =
+        doc.lms.items.iter().filter(|l| matches!(l.kind, Kind::Lamina | Kind::Ligament | Kind::Window)).map(|l| (l.kind, l.p)).collect();
+    let rmax = marks.iter().map(|p| frame.to_cochlear(p.1)[0]).fold(1.0, f64::max) * 1.12;
     let c = rect.center();
     let k = (0.5 * rect.width().min(rect.height()) - 14.0) as f64 / rmax;
-    // angle grows counter-clockwise on screen: x right, y up
-    let at = |r: f64, a_deg: f64| -> Pos2 {
-        let t = a_deg.to_radians();
-        pos2(c.x + (r * t.cos() * k) as f32, c.y - (r * t.sin() * k) as f32)
+    // Drawn as the stack's slice view shows the cochlea (x right, y down), projected along the
+    // modiolar axis: screen right and down are the two stack axes least along the axis, made
+    // square to it, so a left and a right ear look here as they do on the slices.
+    let (u, v) = screen_axes(frame.ez);
+    let screen = |p: [f64; 3]| -> Pos2 {
+        let d = v3::sub(p, frame.origin);
+        pos2(c.x + (v3::dot(d, u) * k) as f32, c.y + (v3::dot(d, v) * k) as f32)
     };
+    let at = |r: f64, a_deg: f64| -> Pos2 { screen(frame.to_stack(r, a_deg, 0.0)) };
     for tick in (0..360).step_by(30) {
         let major = tick % 90 == 0;
         let stroke = Stroke::new(if major { 1.0 } else { 0.5 }, Color32::from_gray(if major { 110 } else { 70 }));
@@ -59,24 +64,24 @@ pub fn plan_ui(ui: &mut egui::Ui, doc: &Doc, angle_deg: f64) -> Vec<Cmd> {
                         Some(k) => cl.edge_point(k, t),
                         None => cl.point(t),
                     };
-                    let q = frame.to_cochlear(p);
-                    at(q[0], q[1])
+                    screen(p)
                 })
                 .collect();
             painter.add(egui::Shape::line(pts, Stroke::new(1.5, col)));
         }
     }
-    for (kind, q) in &polar {
-        super::tracing::mark(&painter, at(q[0], q[1]), *kind, 1.0, false, false);
+    for (kind, p) in &marks {
+        super::tracing::mark(&painter, screen(*p), *kind, 1.0, false, false);
     }
     painter.line_segment([at(0.0, angle_deg), at(rmax, angle_deg)], Stroke::new(2.0, palette::CUT));
     if resp.clicked()
         && let Some(p) = resp.interact_pointer_pos()
     {
-        let a = (-(p.y - c.y) as f64).atan2((p.x - c.x) as f64).to_degrees();
+        let (x, y) = ((p.x - c.x) as f64 / k, (p.y - c.y) as f64 / k);
+        let a = frame.to_cochlear(v3::axpy(v3::axpy(frame.origin, x, u), y, v))[1];
         cmds.push(Cmd::GoToAngle(a));
     }
-    resp.on_hover_text("Seen along the modiolar axis from the apex. Click an angle to show the radial cut there.");
+    resp.on_hover_text("Seen along the modiolar axis, turned as the slices show it (x right, y down). Click an angle to show the radial cut there.");
     // the legend, below the map
     ui.horizontal_wrapped(|ui| {
         for (text, col) in [
@@ -90,4 +95,22 @@ pub fn plan_ui(ui: &mut egui::Ui, doc: &Doc, angle_deg: f64) -> Vec<Cmd> {
         ui.label(egui::RichText::new("dots and squares: landmarks · angles from the window, toward the apex").small());
     });
     cmds
+}
+
+/// Unit screen axes (right, down) for a view along `axis`: the stack's x and y axes made square
+/// to it (Gram–Schmidt), or y and z, or x and z where the axis lies near x or y.
+pub fn screen_axes(axis: [f64; 3]) -> ([f64; 3], [f64; 3]) {
+    let e = v3::unit(axis);
+    let basis = [[1.0, 0.0, 0.0], [0.0, 1.0, 0.0], [0.0, 0.0, 1.0]];
+    // the two stack axes least along the axis, in x, y, z order
+    let mut order: Vec<usize> = (0..3).collect();
+    order.sort_by(|&a, &b| v3::dot(basis[a], e).abs().total_cmp(&v3::dot(basis[b], e).abs()));
+    let (mut i, mut j) = (order[0], order[1]);
+    if i > j {
+        std::mem::swap(&mut i, &mut j);
+    }
+    let u = v3::unit(v3::axpy(basis[i], -v3::dot(basis[i], e), e));
+    let w = v3::axpy(basis[j], -v3::dot(basis[j], e), e);
+    let v = v3::unit(v3::axpy(w, -v3::dot(w, u), u));
+    (u, v)
 }

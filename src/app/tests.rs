@@ -803,3 +803,39 @@ fn frame_time() {
     let measure = t.elapsed().as_secs_f64() * 1000.0;
     eprintln!("bundled sample: refit after a drag {refit:.1} ms; measure for the profile {measure:.0} ms (background; includes frames stepped while waiting)");
 }
+
+/// The plan map shows the cochlea turned as the slice view does (x right, y down), not mirrored:
+/// a click on the map in the direction a lamina point lies from the modiolar axis on the slices
+/// (stack x and y; the sample's axis runs near z) shows the radial cut through that point.
+#[test]
+fn the_plan_map_is_turned_as_the_slices() {
+    let mut h = harness(Some(sample_path()));
+    wait(&mut h, "the sample", |a| a.doc.is_some());
+    let doc = h.state().doc.as_ref().unwrap();
+    let frame = doc.fitted.as_ref().unwrap().frame.clone();
+    assert!(frame.ez[2].abs() > 0.9, "the sample's axis runs near z: {:?}", frame.ez);
+    // a lamina point well off the window's line, where a mirror image would be far off
+    let p = doc
+        .lms
+        .items
+        .iter()
+        .filter(|l| l.kind == Kind::Lamina)
+        .map(|l| l.p)
+        .find(|p| (60.0..120.0).contains(&frame.to_cochlear(*p)[1].abs()))
+        .expect("a lamina point between 60° and 120° from the window");
+    let want = frame.to_cochlear(p)[1];
+    let d = ductline::frame::v3::sub(p, frame.origin);
+    let n = d[0].hypot(d[1]);
+    let map = h.get_by_role_and_label(Role::Image, "Plan map").rect();
+    let r = 0.25 * map.width().min(map.height());
+    let pos = map.center() + egui::vec2((r as f64 * d[0] / n) as f32, (r as f64 * d[1] / n) as f32);
+    h.hover_at(pos);
+    h.step();
+    for pressed in [true, false] {
+        h.event(egui::Event::PointerButton { pos, button: egui::PointerButton::Primary, pressed, modifiers: Default::default() });
+        h.step();
+    }
+    h.step();
+    let got = h.state().view.as_ref().unwrap().angle_deg;
+    assert!(ductline::frame::wrap180(got - want).abs() < 15.0, "clicked toward the point at {want:.0}°, the cut went to {got:.0}°");
+}
