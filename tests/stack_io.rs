@@ -56,6 +56,25 @@ fn decodes_like_tifffile() {
     }
 }
 
+/// Colour pages JPEG-compressed as YCbCr with 2×2 chroma subsampling (fixture by tifffile with
+/// imagecodecs): read as grey, the Y channel, within 1.5 grey levels (mean under 0.3) of the BT.601
+/// luma of the RGB that tifffile decodes (the two JPEG decoders round their transforms
+/// differently, and libjpeg upsamples the chroma before its colour conversion), with a note that
+/// says so.
+#[test]
+fn jpeg_ycbcr_reads_as_luma_like_tifffile() {
+    let st = load(&fixture("tiff/ycbcr_jpeg.tif")).unwrap();
+    assert_eq!(st.dims, [40, 32, 3]);
+    let Samples::U8(v) = &st.samples else { panic!("8-bit colour reads as uint8 grey, got {}", st.samples.type_name()) };
+    let want: Vec<f32> =
+        std::fs::read(fixture("tiff/ycbcr_jpeg.luma.f32")).unwrap().chunks_exact(4).map(|c| f32::from_le_bytes(c.try_into().unwrap())).collect();
+    assert_eq!(want.len(), v.len());
+    let diffs: Vec<f32> = v.iter().zip(&want).map(|(&a, &b)| (a as f32 - b).abs()).collect();
+    let (max, mean) = (diffs.iter().fold(0f32, |m, &d| m.max(d)), diffs.iter().sum::<f32>() / diffs.len() as f32);
+    assert!(max <= 1.5 && mean < 0.3, "grey vs tifffile's luma: largest difference {max}, mean {mean}");
+    assert!(st.warnings.iter().any(|w| w.contains("YCbCr") && w.contains("Y channel")), "{:?}", st.warnings);
+}
+
 #[test]
 fn voxel_sources_are_kept() {
     let ome = load(&fixture("tiff/u16_ome.tif")).unwrap();

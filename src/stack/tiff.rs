@@ -28,6 +28,8 @@ pub(crate) enum Kind {
         channels: usize,
         bits: u8,
     },
+    /// 8-bit YCbCr (JPEG-compressed colour pages): the Y channel is the grey (BT.601 luma).
+    Ycc,
     /// Signed 8/16/32-bit, unsigned 32-bit or 64-bit float grey: held as float32 (see
     /// [`Kind::note`]).
     Wide {
@@ -44,7 +46,7 @@ impl Kind {
             Kind::Gray8 => "uint8",
             Kind::Gray16 => "uint16",
             Kind::GrayF32 | Kind::Wide { .. } => "float32",
-            Kind::Rgb { bits: 8, .. } => "uint8",
+            Kind::Rgb { bits: 8, .. } | Kind::Ycc => "uint8",
             Kind::Rgb { .. } => "uint16",
         }
     }
@@ -70,6 +72,7 @@ impl Kind {
             Kind::Gray16 => 2,
             Kind::GrayF32 | Kind::Wide { .. } => 4,
             Kind::Rgb { bits, .. } => bits as usize / 8,
+            Kind::Ycc => 1,
         }
     }
 }
@@ -93,6 +96,7 @@ pub(crate) fn page_kind(path: &Path, page: usize, dec: &mut Dec) -> Result<(usiz
         (ColorType::Gray(32), 3) => Kind::GrayF32,
         (ColorType::RGB(b @ (8 | 16)), 1) => Kind::Rgb { channels: 3, bits: b },
         (ColorType::RGBA(b @ (8 | 16)), 1) => Kind::Rgb { channels: 4, bits: b },
+        (ColorType::YCbCr(8), 1) => Kind::Ycc,
         (ColorType::Gray(b @ (8 | 16 | 32)), 2) => Kind::Wide { signed: true, float: false, bits: b },
         (ColorType::Gray(32), 1) => Kind::Wide { signed: false, float: false, bits: 32 },
         (ColorType::Gray(64), 3) => Kind::Wide { signed: true, float: true, bits: 64 },
@@ -106,7 +110,7 @@ pub(crate) fn page_kind(path: &Path, page: usize, dec: &mut Dec) -> Result<(usiz
             return Err(Error::page(
                 path,
                 page,
-                format!("unsupported sample format {ct:?} ({f}); ductline reads 8/16/32-bit unsigned or signed, 32/64-bit float grey, or RGB(A)"),
+                format!("unsupported sample format {ct:?} ({f}); ductline reads 8/16/32-bit unsigned or signed, 32/64-bit float grey, RGB(A) or JPEG YCbCr"),
             ));
         }
     };
@@ -134,10 +138,10 @@ fn layout_supported(dec: &mut Dec) -> std::result::Result<(), String> {
     }
     let c = tag(dec, Tag::Compression).unwrap_or(1);
     let name = match c {
-        1 | 5 | 8 | 32946 | 32773 | 50000 | 34926 => return Ok(()),
+        1 | 5 | 7 | 8 | 32946 | 32773 | 50000 | 34926 => return Ok(()),
         2 => "CCITT RLE",
         3 | 4 => "CCITT fax",
-        6 | 7 => "JPEG",
+        6 => "old-style JPEG",
         34925 => "LZMA",
         50001 | 34927 => "WebP",
         34887 => "LERC",
@@ -246,6 +250,9 @@ pub(super) fn load(path: &Path, opts: &LoadOptions, progress: &Progress) -> Resu
     if let Kind::Rgb { .. } = kind {
         warnings.push(format!("{}: colour pages turned into grey (BT.601 luma)", path.display()));
     }
+    if kind == Kind::Ycc {
+        warnings.push(format!("{}: JPEG colour (YCbCr) pages read as grey: their Y channel (BT.601 luma)", path.display()));
+    }
     if let Some(note) = kind.note() {
         warnings.push(format!("{}: {note}", path.display()));
     }
@@ -263,7 +270,7 @@ pub(super) fn load(path: &Path, opts: &LoadOptions, progress: &Progress) -> Resu
             Kind::Gray8 => try_map::<u8>(path, &w).map(Samples::U8),
             Kind::Gray16 => try_map::<u16>(path, &w).map(Samples::U16),
             Kind::GrayF32 => try_map::<f32>(path, &w).map(Samples::F32),
-            Kind::Rgb { .. } | Kind::Wide { .. } => None,
+            Kind::Rgb { .. } | Kind::Ycc | Kind::Wide { .. } => None,
         };
         if let Some(samples) = mapped {
             progress.start(1);
@@ -277,7 +284,7 @@ pub(super) fn load(path: &Path, opts: &LoadOptions, progress: &Progress) -> Resu
     super::check_memory(path, bytes, opts.max_bytes)?;
     progress.start((crop[2][1] - crop[2][0]) as u64);
     let samples = match kind {
-        Kind::Gray8 | Kind::Rgb { bits: 8, .. } => Samples::U8(decode::<u8>(path, &ifds, [nx, ny], kind, b, crop, super::to_u8, progress)?.into()),
+        Kind::Gray8 | Kind::Rgb { bits: 8, .. } | Kind::Ycc => Samples::U8(decode::<u8>(path, &ifds, [nx, ny], kind, b, crop, super::to_u8, progress)?.into()),
         Kind::Gray16 | Kind::Rgb { .. } => Samples::U16(decode::<u16>(path, &ifds, [nx, ny], kind, b, crop, super::to_u16, progress)?.into()),
         Kind::GrayF32 | Kind::Wide { .. } => Samples::F32(decode::<f32>(path, &ifds, [nx, ny], kind, b, crop, super::to_f32, progress)?.into()),
     };
@@ -455,6 +462,17 @@ pub(crate) fn read_page<T: Sample>(path: &Path, page: usize, dec: &mut Dec, kind
         }
     }
     match kind {
+        Kind::Ycc => {
+            // the JPEG decoder hands back Y, Cb, Cr interleaved (upsampled): Y is the grey
+            let mut img = tiff::decoder::DecodingResult::U8(vec![]);
+            dec.read_image_to_buffer(&mut img).map_err(perr)?;
+            let tiff::decoder::DecodingResult::U8(v) = &img else { return Err(Error::page(path, page, "unexpected YCbCr sample type")) };
+            if v.len() < 3 * out.len() {
+                return Err(Error::page(path, page, "decoded YCbCr samples do not fill the page (corrupt?)"));
+            }
+            out.iter_mut().zip(v.chunks_exact(3)).for_each(|(o, c)| *o = conv(c[0] as f32));
+            Ok(())
+        }
         Kind::Rgb { channels, .. } => {
             // chunky pages interleave the channels (RGBRGB…); planar ones (PlanarConfiguration 2)
             // hold every red, then every green, then every blue
