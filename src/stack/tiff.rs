@@ -28,6 +28,8 @@ pub(crate) enum Kind {
         channels: usize,
         bits: u8,
     },
+    /// 12-bit grey packed two samples in three bytes (uncompressed strips): held as uint16.
+    Packed12,
     /// 8-bit YCbCr (JPEG-compressed colour pages): the Y channel is the grey (BT.601 luma).
     Ycc,
     /// Signed 8/16/32-bit, unsigned 32-bit or 64-bit float grey: held as float32 (see
@@ -44,7 +46,7 @@ impl Kind {
     pub(crate) fn name(self) -> &'static str {
         match self {
             Kind::Gray8 => "uint8",
-            Kind::Gray16 => "uint16",
+            Kind::Gray16 | Kind::Packed12 => "uint16",
             Kind::GrayF32 | Kind::Wide { .. } => "float32",
             Kind::Rgb { bits: 8, .. } | Kind::Ycc => "uint8",
             Kind::Rgb { .. } => "uint16",
@@ -53,6 +55,9 @@ impl Kind {
     /// The file's own sample type where it differs from the one held, and whether every value
     /// survives the change: a note for `inspect` and the load warnings.
     pub(crate) fn note(self) -> Option<String> {
+        if self == Kind::Packed12 {
+            return Some("12-bit packed samples held as uint16 (every value exact)".into());
+        }
         let Kind::Wide { signed, float, bits } = self else { return None };
         let name = match (signed, float) {
             (_, true) => format!("float{bits}"),
@@ -73,6 +78,7 @@ impl Kind {
             Kind::GrayF32 | Kind::Wide { .. } => 4,
             Kind::Rgb { bits, .. } => bits as usize / 8,
             Kind::Ycc => 1,
+            Kind::Packed12 => 2,
         }
     }
 }
@@ -97,6 +103,13 @@ pub(crate) fn page_kind(path: &Path, page: usize, dec: &mut Dec) -> Result<(usiz
         (ColorType::RGB(b @ (8 | 16)), 1) => Kind::Rgb { channels: 3, bits: b },
         (ColorType::RGBA(b @ (8 | 16)), 1) => Kind::Rgb { channels: 4, bits: b },
         (ColorType::YCbCr(8), 1) => Kind::Ycc,
+        (ColorType::Gray(12), 1) => {
+            let plain = tag(dec, Tag::Compression).unwrap_or(1) == 1 && dec.get_chunk_type() == tiff::decoder::ChunkType::Strip;
+            if !plain {
+                return Err(Error::page(path, page, "12-bit pages are read uncompressed and in strips only; save them uncompressed or as 16-bit"));
+            }
+            Kind::Packed12
+        }
         (ColorType::Gray(b @ (8 | 16 | 32)), 2) => Kind::Wide { signed: true, float: false, bits: b },
         (ColorType::Gray(32), 1) => Kind::Wide { signed: false, float: false, bits: 32 },
         (ColorType::Gray(64), 3) => Kind::Wide { signed: true, float: true, bits: 64 },
@@ -270,7 +283,7 @@ pub(super) fn load(path: &Path, opts: &LoadOptions, progress: &Progress) -> Resu
             Kind::Gray8 => try_map::<u8>(path, &w).map(Samples::U8),
             Kind::Gray16 => try_map::<u16>(path, &w).map(Samples::U16),
             Kind::GrayF32 => try_map::<f32>(path, &w).map(Samples::F32),
-            Kind::Rgb { .. } | Kind::Ycc | Kind::Wide { .. } => None,
+            Kind::Rgb { .. } | Kind::Ycc | Kind::Packed12 | Kind::Wide { .. } => None,
         };
         if let Some(samples) = mapped {
             progress.start(1);
@@ -285,7 +298,7 @@ pub(super) fn load(path: &Path, opts: &LoadOptions, progress: &Progress) -> Resu
     progress.start((crop[2][1] - crop[2][0]) as u64);
     let samples = match kind {
         Kind::Gray8 | Kind::Rgb { bits: 8, .. } | Kind::Ycc => Samples::U8(decode::<u8>(path, &ifds, [nx, ny], kind, b, crop, super::to_u8, progress)?.into()),
-        Kind::Gray16 | Kind::Rgb { .. } => Samples::U16(decode::<u16>(path, &ifds, [nx, ny], kind, b, crop, super::to_u16, progress)?.into()),
+        Kind::Gray16 | Kind::Packed12 | Kind::Rgb { .. } => Samples::U16(decode::<u16>(path, &ifds, [nx, ny], kind, b, crop, super::to_u16, progress)?.into()),
         Kind::GrayF32 | Kind::Wide { .. } => Samples::F32(decode::<f32>(path, &ifds, [nx, ny], kind, b, crop, super::to_f32, progress)?.into()),
     };
     Ok(Stack { dims, samples, voxel, origin_vox: [0.0; 3], path: path.to_path_buf(), warnings, world: None })
@@ -462,6 +475,36 @@ pub(crate) fn read_page<T: Sample>(path: &Path, page: usize, dec: &mut Dec, kind
         }
     }
     match kind {
+        Kind::Packed12 => {
+            // rows of 12-bit samples, most significant bits first, each row starting on a byte
+            let (w, h) = dec.dimensions().map_err(perr)?;
+            let (w, h) = (w as usize, h as usize);
+            let row = (12 * w).div_ceil(8);
+            let offs = dec.get_tag_u64_vec(Tag::StripOffsets).map_err(perr)?;
+            let counts = dec.get_tag_u64_vec(Tag::StripByteCounts).map_err(perr)?;
+            let mut bytes = Vec::with_capacity(row * h);
+            let mut f = File::open(path).map_err(|e| Error::io(path, e))?;
+            for (&o, &c) in offs.iter().zip(&counts) {
+                use std::io::{Read, Seek, SeekFrom};
+                let c = (c as usize).min(row * h - bytes.len());
+                let start = bytes.len();
+                bytes.resize(start + c, 0);
+                f.seek(SeekFrom::Start(o))
+                    .and_then(|_| f.read_exact(&mut bytes[start..]))
+                    .map_err(|e| Error::page(path, page, format!("cannot read (truncated?): {e}")))?;
+            }
+            if bytes.len() < row * h || out.len() != w * h {
+                return Err(Error::page(path, page, "12-bit strips hold fewer bytes than the page needs (corrupt?)"));
+            }
+            for (y, line) in bytes.chunks_exact(row).take(h).enumerate() {
+                for x in 0..w {
+                    let b = 3 * x / 2;
+                    let v = if x % 2 == 0 { (line[b] as u16) << 4 | (line[b + 1] as u16) >> 4 } else { ((line[b] & 0x0F) as u16) << 8 | line[b + 1] as u16 };
+                    out[y * w + x] = conv(v as f32);
+                }
+            }
+            Ok(())
+        }
         Kind::Ycc => {
             // the JPEG decoder hands back Y, Cb, Cr interleaved (upsampled): Y is the grey
             let mut img = tiff::decoder::DecodingResult::U8(vec![]);
