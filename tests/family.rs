@@ -7,9 +7,9 @@
 //!
 //! What is held here is what the method reaches today, as a guard against regressions; the
 //! targets of the measures issue (median ≤ 1.5 %, p95 ≤ 4 %) are not met on every member yet —
-//! soft tissue thinner than about 1.5 blur widths (the tapering ends of the ligament) still
-//! counts partly as fluid, and anisotropic voxels blur unevenly by direction (README, limits).
-//! The printed table is the record.
+//! the lumen fractions next to soft tissue are only as good as the soft-tissue level read from
+//! the lateral wall, and the limbus on the thin bony shelf is read by a coarser rule (README,
+//! limits). The printed table is the record.
 
 use ductline::centreline::FitSettings;
 use ductline::cochlea::Greenwood;
