@@ -37,7 +37,7 @@ fn main() {
             let idx = (st.dims[axis] / 9) * (r + 1);
             let t = Instant::now();
             let p = ductline::display::plane(&st, axis, idx);
-            ductline::display::window_level(&p, window, &mut rgba);
+            window_level(&p, window, &mut rgba);
             times.push(ms(t));
         }
         times.sort_by(f64::total_cmp);
@@ -56,7 +56,7 @@ fn main() {
         let g = Grid { origin: v3::axpy(v3::axpy(centre, -reach, er), reach, [0.0, 0.0, 1.0]), du: v3::scale(er, pitch), dv: [0.0, 0.0, -pitch], nu: n, nv: n };
         let t = Instant::now();
         let vals = section::resample(&st, &g);
-        ductline::display::window_level(&vals, window, &mut rgba);
+        window_level(&vals, window, &mut rgba);
         times.push(ms(t));
     }
     times.sort_by(f64::total_cmp);
@@ -70,7 +70,7 @@ fn main() {
         let t = Instant::now();
         for r in 0..8 {
             let p = ductline::display::plane(&ov, axis, (ov.dims[axis] / 9) * (r + 1));
-            ductline::display::window_level(&p, window, &mut rgba);
+            window_level(&p, window, &mut rgba);
         }
         println!("zoomed out, {name} plane from the overview: {:.2} ms", ms(t) / 8.0);
     }
@@ -82,7 +82,7 @@ fn main() {
         let er = [t0.cos(), t0.sin(), 0.0];
         let g =
             Grid { origin: v3::axpy(v3::axpy(centre, -reach, er), reach, [0.0, 0.0, 1.0]), du: v3::scale(er, opitch), dv: [0.0, 0.0, -opitch], nu: on, nv: on };
-        ductline::display::window_level(&section::resample(&ov, &g), window, &mut rgba);
+        window_level(&section::resample(&ov, &g), window, &mut rgba);
     }
     println!("zoomed out, radial cut {on}×{on} from the overview: {:.2} ms", ms(t) / 8.0);
     for zoom in [2usize, 4] {
@@ -94,7 +94,7 @@ fn main() {
                 let t1 = Instant::now();
                 let (u0, v0) = ((nu - wu) * r / 8, (nv - wv) * r / 8);
                 let p = ductline::display::plane_window(&st, axis, (st.dims[axis] / 9) * (r + 1), [u0, u0 + wu], [v0, v0 + wv]);
-                ductline::display::window_level(&p, window, &mut rgba);
+                window_level(&p, window, &mut rgba);
                 worst = worst.max(ms(t1));
             }
             println!("zoom {zoom}, {name} plane window {wu}×{wv} at full resolution: mean {:.1} ms, worst {worst:.1} ms", ms(t) / 8.0);
@@ -110,4 +110,10 @@ fn main() {
         let sound = rows.iter().filter(|r| r.sound()).count();
         println!("measure: {} sections ({sound} sound) in {:.2} s; peak RSS {:.2} GB", rows.len(), t.elapsed().as_secs_f64(), rss("VmHWM:") / 1e9);
     }
+}
+
+/// Window/level into a reused byte buffer (grown to four bytes a value).
+fn window_level(values: &[f32], window: [f32; 2], out: &mut Vec<u8>) {
+    out.resize(4 * values.len(), 0);
+    ductline::display::window_level(values, window, out);
 }

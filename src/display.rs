@@ -79,9 +79,10 @@ pub fn overview(stack: &Stack, b: usize) -> Stack {
 }
 
 /// Window/level: grey values `window[0]` → black and `window[1]` → white, linear between,
-/// as RGBA bytes (4 per value). NaN becomes [`OUTSIDE_RGBA`].
-pub fn window_level(values: &[f32], window: [f32; 2], out: &mut Vec<u8>) {
-    out.resize(values.len() * 4, 0);
+/// as RGBA bytes (4 per value) into `out` (4 × as many bytes as values; a caller's texture
+/// buffer). NaN becomes [`OUTSIDE_RGBA`].
+pub fn window_level(values: &[f32], window: [f32; 2], out: &mut [u8]) {
+    assert_eq!(out.len(), 4 * values.len(), "window_level: four bytes a value");
     let lo = window[0];
     let s = 255.0 / (window[1] - window[0]).max(f32::EPSILON);
     out.par_chunks_mut(4 * 4096).zip(values.par_chunks(4096)).for_each(|(o, v)| {

@@ -490,9 +490,11 @@ impl View {
 
 /// A texture image of plane values through the window (see [`ductline::display::window_level`]).
 pub fn to_image(size: [usize; 2], values: &[f32], window: [f32; 2]) -> egui::ColorImage {
-    let mut rgba = vec![];
-    ductline::display::window_level(values, window, &mut rgba);
-    egui::ColorImage::from_rgba_unmultiplied(size, &rgba)
+    // the window writes opaque grey (or the opaque outside colour) straight into the texture's
+    // pixels (Color32 is four bytes, premultiplied: the same for opaque colours)
+    let mut pixels = vec![egui::Color32::TRANSPARENT; values.len()];
+    ductline::display::window_level(values, window, bytemuck::cast_slice_mut(&mut pixels));
+    egui::ColorImage::new(size, pixels)
 }
 
 /// The mark (index, screen position) nearest `pos` within 9 points, if any.
