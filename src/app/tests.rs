@@ -34,6 +34,14 @@ fn wait(h: &mut Harness<'static, DuctApp>, what: &str, cond: impl Fn(&DuctApp) -
     panic!("timed out waiting for {what}; status: {}", h.state().status);
 }
 
+/// A primary-button press and release at `pos` (the pointer already there), a frame each.
+fn click_at(h: &mut Harness<'static, DuctApp>, pos: egui::Pos2) {
+    for pressed in [true, false] {
+        h.event(egui::Event::PointerButton { pos, button: egui::PointerButton::Primary, pressed, modifiers: Default::default() });
+        h.step();
+    }
+}
+
 fn count(h: &Harness<'static, DuctApp>) -> usize {
     h.state().doc.as_ref().map(|d| d.lms.items.len()).unwrap_or(0)
 }
@@ -95,10 +103,7 @@ fn measure_then_profile_and_inspector() {
     let pos = egui::pos2(row.left() + 500.0, row.bottom() + 70.0);
     h.hover_at(pos);
     h.step();
-    for pressed in [true, false] {
-        h.event(egui::Event::PointerButton { pos, button: egui::PointerButton::Primary, pressed, modifiers: Default::default() });
-        h.step();
-    }
+    click_at(&mut h, pos);
     h.step();
     let sel = h.state().selected_row.unwrap();
     assert!(sel > 10, "the click selected a section along the profile, got {sel}");
@@ -548,10 +553,7 @@ fn proposals_are_reviewed_before_they_count() {
     h.hover_at(at);
     h.step();
     let before_click = count(&h);
-    for pressed in [true, false] {
-        h.event(egui::Event::PointerButton { pos: at, button: egui::PointerButton::Primary, pressed, modifiers: Default::default() });
-        h.step();
-    }
+    click_at(&mut h, at);
     assert_eq!(count(&h), before_click + 1, "{}", h.state().status);
     assert!(!h.state().doc.as_ref().unwrap().pending().iter().any(|(j, _)| *j == k));
     let (before_all, waiting) = (count(&h), pending(&h));
@@ -599,10 +601,7 @@ fn a_click_on_a_predicted_point_places_it() {
     h.hover_at(at);
     h.step();
     let clicked = h.state().view.as_ref().unwrap().hover.as_ref().unwrap().p;
-    for pressed in [true, false] {
-        h.event(egui::Event::PointerButton { pos: at, button: egui::PointerButton::Primary, pressed, modifiers: Default::default() });
-        h.step();
-    }
+    click_at(&mut h, at);
     let doc = h.state().doc.as_ref().unwrap();
     assert_eq!(doc.lms.items.len(), n0 + 1, "{}", h.state().status);
     let new = doc.lms.items.last().unwrap();
@@ -831,10 +830,7 @@ fn the_plan_map_is_turned_as_the_slices() {
     let pos = map.center() + egui::vec2((r as f64 * d[0] / n) as f32, (r as f64 * d[1] / n) as f32);
     h.hover_at(pos);
     h.step();
-    for pressed in [true, false] {
-        h.event(egui::Event::PointerButton { pos, button: egui::PointerButton::Primary, pressed, modifiers: Default::default() });
-        h.step();
-    }
+    click_at(&mut h, pos);
     h.step();
     let got = h.state().view.as_ref().unwrap().angle_deg;
     assert!(ductline::frame::wrap180(got - want).abs() < 15.0, "clicked toward the point at {want:.0}°, the cut went to {got:.0}°");
