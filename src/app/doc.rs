@@ -40,6 +40,8 @@ pub struct Doc {
     pub autosave_dir: PathBuf,
     /// Landmarks the last trace proposed, for review: drawn apart until accepted (see [`Doc::pending`]).
     pub proposals: Vec<ductline::trace::Proposed>,
+    /// Counts refit requests: a background refit's answer is taken only if no later one was made.
+    pub fit_gen: u64,
 }
 
 impl Doc {
@@ -80,6 +82,7 @@ impl Doc {
             autosave_dir: default_autosave_dir(),
             fingerprint: None,
             proposals: vec![],
+            fit_gen: 0,
         };
         d.refit();
         d
@@ -117,11 +120,18 @@ impl Doc {
         Ok(p)
     }
 
-    /// Refits the centreline after any landmark or fit-setting change (fast: milliseconds).
+    /// Refits the centreline now, on this thread (tens of milliseconds on a full specimen; after
+    /// an edit in the app the refit runs in the background instead). A refit still running in
+    /// the background for an earlier state is then dropped when it answers.
     pub fn refit(&mut self) {
-        let voxel = self.stack.voxel.as_ref().map(|v| v.max()).unwrap_or(0.0);
-        self.fitted = pipeline::fit(&self.lms.items, &self.fit, voxel).map_err(|e| e.to_string());
+        self.fit_gen += 1;
+        self.fitted = pipeline::fit(&self.lms.items, &self.fit, self.voxel_mm()).map_err(|e| e.to_string());
         self.stale = true;
+    }
+
+    /// The largest voxel side (mm), 0 when unknown.
+    pub fn voxel_mm(&self) -> f64 {
+        self.stack.voxel.as_ref().map(|v| v.max()).unwrap_or(0.0)
     }
 
     pub fn set_voxel(&mut self, v: VoxelSize) {

@@ -168,6 +168,9 @@ pub struct DuctApp {
     /// Proposed landmarks and the trace's summary, computed in the background.
     tracing: Option<Job<Result<Proposals, String>>>,
     overview: Option<Job<Stack>>,
+    /// The centreline refitted after an edit, off the UI thread, with the document's fit
+    /// generation it answers (an answer to an older request is dropped).
+    refit: Option<(u64, Job<Result<ductline::centreline::Centreline, String>>)>,
     /// The system file dialog, running on its own thread, and when it was opened.
     dialog: Option<(Pending, Receiver<Option<PathBuf>>, Instant)>,
     /// ductline's own file dialog: used when the system one is unavailable or fails.
@@ -238,6 +241,7 @@ impl DuctApp {
             run: None,
             tracing: None,
             overview: None,
+            refit: None,
             dialog: None,
             in_app: None,
             // the system dialog talks to the desktop portal over the session bus
@@ -268,8 +272,30 @@ impl DuctApp {
         self.load.is_some() || self.run.is_some() || self.tracing.is_some()
     }
 
+    /// Whether a refit after an edit is still running.
+    pub fn fitting(&self) -> bool {
+        self.refit.is_some()
+    }
+
+    /// Refits the document's centreline off the UI thread (a drag's refit takes tens of
+    /// milliseconds on a full specimen); until it answers the views keep the previous fit.
+    fn request_refit(&mut self) {
+        let Some(d) = &mut self.doc else { return };
+        d.fit_gen += 1;
+        d.stale = true;
+        let (items, fit, voxel) = (d.lms.items.clone(), d.fit.clone(), d.voxel_mm());
+        self.refit = Some((d.fit_gen, Job::spawn("fitting", move |_| ductline::pipeline::fit(&items, &fit, voxel).map_err(|e| e.to_string()))));
+    }
+
     /// Finishes background work whose result has arrived.
     pub fn poll(&mut self) {
+        if let Some((generation, res)) = self.refit.as_ref().and_then(|(g, j)| j.poll().map(|r| (*g, r))) {
+            self.refit = None;
+            if let Some(d) = self.doc.as_mut().filter(|d| d.fit_gen == generation) {
+                d.fitted = res;
+                d.stale = true;
+            }
+        }
         if let Some(res) = self.load.as_ref().and_then(|j| j.poll()) {
             self.load = None;
             match res {
@@ -1117,8 +1143,8 @@ impl DuctApp {
             );
             self.apply(c);
             if edits && let Some(d) = &mut self.doc {
-                d.refit();
                 d.dirty = true;
+                self.request_refit();
             }
         }
         if ctx.input(|i| i.viewport().close_requested()) {
@@ -1144,7 +1170,10 @@ impl DuctApp {
             ctx.send_viewport_cmd(egui::ViewportCommand::Title(title.clone()));
             self.title = title;
         }
-        if self.busy() || self.dialog.is_some() || self.in_app.is_some() {
+        if self.fitting() {
+            // a refit answers within tens of milliseconds: look again soon
+            ctx.request_repaint_after(Duration::from_millis(15));
+        } else if self.busy() || self.dialog.is_some() || self.in_app.is_some() {
             ctx.request_repaint_after(Duration::from_millis(100));
         }
     }

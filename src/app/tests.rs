@@ -506,6 +506,8 @@ fn proposals_are_reviewed_before_they_count() {
     h.step();
     let first_turn = h.state().doc.as_ref().unwrap().proposals.iter().filter(|p| p.angle_deg <= 360.0).count();
     assert!(first_turn > 20 && count(&h) == 7 + first_turn, "{} landmarks, {first_turn} proposed in the first turn", count(&h));
+    // the refit after an edit runs in the background
+    wait(&mut h, "the refit", |a| !a.fitting());
     assert!(h.state().doc.as_ref().unwrap().fitted.is_ok(), "the accepted ones fit");
     // moving an accepted point re-proposes beyond it: those up to it stay as they were, those
     // beyond come from a trace resumed from the landmarks up to it
@@ -703,6 +705,7 @@ fn propose_the_axis_from_the_window_and_lamina() {
     let dir = ductline::frame::v3::unit(ductline::frame::v3::sub(items[a].p, items[b].p));
     let angle = ductline::frame::v3::dot(dir, truth).clamp(-1.0, 1.0).acos().to_degrees();
     assert!(angle < 8.0, "proposed axis {angle:.1}° off the sample's: {}", h.state().status);
+    wait(&mut h, "the refit", |a| !a.fitting());
     assert!(h.state().doc.as_ref().unwrap().fitted.is_ok(), "the proposed axis fits");
     h.state_mut().apply(Cmd::Undo);
     assert_eq!(axis(&h), (None, None), "one undo takes the proposal back");
@@ -796,6 +799,14 @@ fn frame_time() {
     let t = Instant::now();
     h.state_mut().doc.as_mut().unwrap().refit();
     let refit = t.elapsed().as_secs_f64() * 1000.0;
+    // what the UI thread spends on it after an edit (the fit runs in the background), and when
+    // the answer is in
+    let t = Instant::now();
+    h.state_mut().request_refit();
+    let ui = t.elapsed().as_secs_f64() * 1000.0;
+    wait(&mut h, "the refit", |a| !a.fitting());
+    let answered = t.elapsed().as_secs_f64() * 1000.0;
+    eprintln!("bundled sample: after a drag the UI thread spends {ui:.2} ms starting the refit; the fit is in after {answered:.0} ms");
     let t = Instant::now();
     h.state_mut().apply(Cmd::Measure);
     wait(&mut h, "the measure", |a| !a.busy());
@@ -834,4 +845,32 @@ fn the_plan_map_is_turned_as_the_slices() {
     h.step();
     let got = h.state().view.as_ref().unwrap().angle_deg;
     assert!(ductline::frame::wrap180(got - want).abs() < 15.0, "clicked toward the point at {want:.0}°, the cut went to {got:.0}°");
+}
+
+/// After an edit the centreline is refitted off the UI thread: the request returns with the old
+/// fit still in place, the answer arrives a few frames later and equals a fit made on the spot;
+/// an answer to a request overtaken by a later one is dropped.
+#[test]
+fn the_refit_runs_in_the_background() {
+    let mut h = harness(Some(sample_path()));
+    wait(&mut h, "the sample", |a| a.doc.is_some());
+    let len = |h: &Harness<'static, DuctApp>| h.state().doc.as_ref().unwrap().fitted.as_ref().unwrap().length;
+    let before = len(&h);
+    let (i, p) = h.state().doc.as_ref().unwrap().lms.items.iter().enumerate().find(|(_, l)| l.kind == Kind::Lamina).map(|(i, l)| (i, l.p)).unwrap();
+    h.state_mut().apply(Cmd::Edit(ductline::landmarks::Edit::Move { index: i, to: [p[0] + 0.2, p[1] + 0.2, p[2]] }));
+    h.state_mut().request_refit();
+    assert!(h.state().fitting());
+    assert_eq!(len(&h), before, "the request leaves the fit in place until the answer");
+    wait(&mut h, "the refit", |a| !a.fitting());
+    let doc = h.state().doc.as_ref().unwrap();
+    let here = ductline::pipeline::fit(&doc.lms.items, &doc.fit, doc.voxel_mm()).unwrap();
+    assert!(len(&h) != before && (len(&h) - here.length).abs() < 1e-12, "{} vs {} (before {before})", len(&h), here.length);
+    // an overtaken request: its answer is not taken
+    h.state_mut().request_refit();
+    let stale = h.state().doc.as_ref().unwrap().fit_gen;
+    h.state_mut().apply(Cmd::Undo);
+    h.state_mut().doc.as_mut().unwrap().refit();
+    assert!(h.state().doc.as_ref().unwrap().fit_gen > stale);
+    wait(&mut h, "the overtaken refit", |a| !a.fitting());
+    assert!((len(&h) - before).abs() < 1e-12, "the fit of the undone state stands: {} vs {before}", len(&h));
 }
