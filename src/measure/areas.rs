@@ -182,6 +182,12 @@ pub(super) fn fraction_area(img: &Img, r: &Region, side: f64, lv: &Levels, band:
             Ref::None
         }
     };
+    // the mask's edge lies within about 1.2 σ inside a blurred lumen edge (at the lumen/soft
+    // tissue midpoint), and the lumen's blur reaches 2.5 σ past it: no lumen beyond 4 σ
+    let beyond = |i: usize| {
+        let k = (i / n - reach.b0) * w + i % n - reach.a0;
+        blur.is_some_and(|s| d_lumen[k] as f64 / 3.0 > 4.0 * s + 0.5)
+    };
     let mut field = vec![0f32; mask.len()];
     for i in reach.pixels(n) {
         let x = img.v[i];
@@ -193,12 +199,6 @@ pub(super) fn fraction_area(img: &Img, r: &Region, side: f64, lv: &Levels, band:
                     dr <= dother
                 }
             });
-        // the mask's edge lies within about 1.2 σ inside a blurred lumen edge (at the lumen/soft
-        // tissue midpoint), and the lumen's blur reaches 2.5 σ past it: no lumen beyond 4 σ
-        let beyond = |i: usize| {
-            let k = (i / n - reach.b0) * w + i % n - reach.a0;
-            blur.is_some_and(|s| d_lumen[k] as f64 / 3.0 > 4.0 * s + 0.5)
-        };
         if inside && !beyond(i) {
             field[i] = if interior[i] {
                 1.0

@@ -200,7 +200,9 @@ pub(super) struct Layer {
 }
 
 /// The level of the first material beyond the lumen, seen from each edge pixel of the regions
-/// `masks` (whose pixels lie in `bounds`).
+/// `masks` (whose pixels lie in `bounds`), and the blur σ of the section image (pixels) where the
+/// bare edges say. Rays that climb more slowly than the bare edges carry a fitted soft-tissue
+/// layer (`Plateau::layer`, see [`fit_layer`]).
 ///
 /// From an edge pixel a ray runs outward along the gradient of the smoothed image (steps of
 /// half a pixel, at most four voxels of `vox` pixels each). A ray that climbs from the
