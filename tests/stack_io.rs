@@ -170,15 +170,16 @@ fn bad_inputs_give_one_line_errors() {
         let e = err_of(&fixture(&format!("tiff/{f}.tif")));
         assert!(e.contains(words) && e.contains(f) && e.contains("page 0") && !e.contains('\n'), "{e}");
     }
-    // bit-reversed bytes (FillOrder 2) are refused by name (tifffile will not write the tag; the
-    // tiff crate's encoder does)
+    // bit-reversed bytes (FillOrder 2) are read for grey strips (fixtures above, checked against
+    // tifffile + imagecodecs); other FillOrder 2 layouts are refused by name (tifffile will not
+    // write the tag; the tiff crate's encoder does)
     let fill = dir.path().join("fill2.tif");
     {
         use tiff::encoder::{TiffEncoder, colortype};
         let mut enc = TiffEncoder::new(std::fs::File::create(&fill).unwrap()).unwrap();
-        let mut img = enc.new_image::<colortype::Gray8>(3, 2).unwrap();
+        let mut img = enc.new_image::<colortype::RGB8>(3, 2).unwrap();
         img.encoder().write_tag(tiff::tags::Tag::FillOrder, 2u16).unwrap();
-        img.write_data(&[1u8; 6]).unwrap();
+        img.write_data(&[1u8; 18]).unwrap();
     }
     let e = err_of(&fill);
     assert!(e.contains("FillOrder 2") && e.contains("fill2.tif") && !e.contains('\n'), "{e}");

@@ -1,8 +1,9 @@
 //! Multi-page TIFF (classic and BigTIFF; stripped or tiled; uncompressed, LZW, Deflate, PackBits,
 //! Zstd; grey or colour, interleaved or planar; thumbnail pages left out)
 //! decoded in parallel into one contiguous buffer of the file's own sample type. Uncompressed
-//! grey pages are read with one positioned read (or memory-mapped), Deflate grey strips are read
-//! and inflated whole by ductline; everything else goes through the tiff crate's decoder.
+//! grey pages are read with one positioned read (or memory-mapped); Deflate grey strips, and grey
+//! strips whose bits are stored reversed (FillOrder 2), are read and unpacked whole by ductline;
+//! everything else goes through the tiff crate's decoder.
 
 use super::{LoadOptions, Sample, Samples, Stack, VoxelSize, VoxelSource};
 use crate::progress::Progress;
@@ -130,6 +131,13 @@ pub(crate) fn page_kind(path: &Path, page: usize, dec: &mut Dec) -> Result<(usiz
     if w == 0 || h == 0 {
         return Err(Error::page(path, page, "page has zero width or height"));
     }
+    if bits_reversed(dec) && !(cfg!(unix) && matches!(kind, Kind::Gray8 | Kind::Gray16 | Kind::GrayF32)) {
+        return Err(Error::page(
+            path,
+            page,
+            "bit-reversed bytes (FillOrder 2) are read only for unsigned 8/16-bit and float32 grey pages; save with the usual fill order",
+        ));
+    }
     Ok((w as usize, h as usize, kind))
 }
 
@@ -140,8 +148,11 @@ fn layout_supported(dec: &mut Dec) -> std::result::Result<(), String> {
     if spp == 2 || spp > 4 {
         return Err(format!("{spp} samples a pixel are not supported; ductline reads grey, RGB or RGBA pages"));
     }
-    if tag(dec, Tag::FillOrder) == Some(2) {
-        return Err("bit-reversed bytes (FillOrder 2) are not supported; save with the usual fill order".into());
+    if bits_reversed(dec) && own_strips(dec).is_none() {
+        return Err(
+            "bit-reversed bytes (FillOrder 2) are read only for grey pages in strips (uncompressed, LZW, Deflate or PackBits); save with the usual fill order"
+                .into(),
+        );
     }
     if tag(dec, Tag::PhotometricInterpretation) == Some(0) {
         return Err(
@@ -392,15 +403,31 @@ fn grey_strips(dec: &mut Dec) -> Option<(u32, Vec<(u64, u64)>)> {
 /// Where an uncompressed grey page keeps its samples as one contiguous run of `len` bytes in
 /// native byte order (offset in the file); None when any of that does not hold.
 fn raw_run(dec: &mut Dec, len: usize) -> Option<u64> {
+    if bits_reversed(dec) {
+        return None;
+    }
     let (1, strips) = grey_strips(dec)? else { return None };
     let contiguous = strips.windows(2).all(|w| w[1].0 == w[0].0 + w[0].1);
     (contiguous && strips.iter().map(|s| s.1).sum::<u64>() == len as u64).then_some(strips[0].0)
 }
 
-/// Where a page's Deflate strips lie and how to unpack them.
+/// How a strip ductline reads itself is packed.
+#[derive(Clone, Copy, Debug, PartialEq)]
+enum Codec {
+    Plain,
+    Deflate,
+    Lzw,
+    PackBits,
+}
+
+/// Where a page's strips lie and how to unpack them.
 struct Strips {
-    /// (file offset, compressed bytes) of each strip, top to bottom.
+    /// (file offset, stored bytes) of each strip, top to bottom.
     at: Vec<(u64, u64)>,
+    codec: Codec,
+    /// FillOrder 2: the bits of every stored byte run least significant first, so each byte is
+    /// bit-reversed before it is unpacked (what the TIFF 6.0 specification, section 8, defines).
+    reversed: bool,
     /// Rows a strip (the last may hold fewer).
     rows: usize,
     /// Samples a row.
@@ -409,14 +436,29 @@ struct Strips {
     differenced: bool,
 }
 
-/// The strips of a Deflate-compressed grey page whose samples are in native byte order, one a
-/// pixel, without a predictor or with horizontal differencing of 8/16-bit samples; None when any
-/// of that does not hold (the tiff crate then decodes the page).
-fn deflate_strips(dec: &mut Dec) -> Option<Strips> {
-    let (8 | 32946, at) = grey_strips(dec)? else { return None };
+/// True when the page's bytes are stored with their bits reversed (FillOrder 2).
+fn bits_reversed(dec: &mut Dec) -> bool {
+    tag(dec, Tag::FillOrder) == Some(2)
+}
+
+/// The strips of a grey page that ductline unpacks itself: Deflate pages (whole-strip inflate
+/// is faster than the tiff crate's streaming), and FillOrder 2 pages (which the tiff crate reads
+/// as if their bits ran the usual way) uncompressed or in LZW, Deflate or PackBits. Samples in
+/// native byte order, one a pixel, without a predictor or with horizontal differencing of
+/// 8/16-bit samples; None when any of that does not hold.
+fn own_strips(dec: &mut Dec) -> Option<Strips> {
+    let (code, at) = grey_strips(dec)?;
+    let reversed = bits_reversed(dec);
+    let codec = match (code, reversed) {
+        (8 | 32946, _) => Codec::Deflate,
+        (1, true) => Codec::Plain,
+        (5, true) => Codec::Lzw,
+        (32773, true) => Codec::PackBits,
+        _ => return None,
+    };
     let predictor = tag(dec, Tag::Predictor).unwrap_or(1);
     let bits = tag(dec, Tag::BitsPerSample).unwrap_or(1);
-    if !(predictor == 1 || (predictor == 2 && bits <= 16)) {
+    if !(predictor == 1 || (predictor == 2 && bits <= 16)) || !matches!(bits, 8 | 16 | 32) {
         return None;
     }
     let (w, h) = dec.dimensions().ok()?;
@@ -424,32 +466,81 @@ fn deflate_strips(dec: &mut Dec) -> Option<Strips> {
     if rows == 0 || at.len() != (h as usize).div_ceil(rows) {
         return None;
     }
-    Some(Strips { at, rows, width: w as usize, differenced: predictor == 2 })
+    Some(Strips { at, codec, reversed, rows, width: w as usize, differenced: predictor == 2 })
 }
 
-/// Inflates a page's Deflate strips straight into `out` (libdeflate, whole strips), then undoes
-/// horizontal differencing if the page uses it.
+/// Unpacks PackBits data (TIFF 6.0 section 9) into `out`; the bytes written.
+fn unpack_bits(packed: &[u8], out: &mut [u8]) -> usize {
+    let (mut i, mut n) = (0, 0);
+    while i < packed.len() && n < out.len() {
+        let h = packed[i] as i8;
+        i += 1;
+        if h >= 0 {
+            let k = (h as usize + 1).min(packed.len() - i).min(out.len() - n);
+            out[n..n + k].copy_from_slice(&packed[i..i + k]);
+            (i, n) = (i + k, n + k);
+        } else if h != -128 && i < packed.len() {
+            let k = (1 - h as isize) as usize;
+            let k = k.min(out.len() - n);
+            out[n..n + k].fill(packed[i]);
+            (i, n) = (i + 1, n + k);
+        }
+    }
+    n
+}
+
+/// Reads a page's strips straight into `out` (whole strips: bits reversed where the page says
+/// so, then inflated, LZW-decoded, run-length unpacked or copied), then undoes horizontal
+/// differencing if the page uses it.
 #[cfg(unix)]
-fn inflate_page<T: Sample>(path: &Path, page: usize, dec: &mut Dec, strips: Strips, out: &mut [T]) -> Result<()> {
+fn strips_page<T: Sample>(path: &Path, page: usize, dec: &mut Dec, strips: Strips, out: &mut [T]) -> Result<()> {
     use std::os::unix::fs::FileExt;
     let row_bytes = strips.width * std::mem::size_of::<T>();
     let bytes: &mut [u8] = bytemuck::cast_slice_mut(out);
     let mut z = libdeflater::Decompressor::new();
     let mut packed = vec![];
     let file_len = dec.inner().get_ref().metadata().map_err(|e| Error::io(path, e))?.len();
+    let short = |n: usize, want: usize| Error::page(path, page, format!("a strip holds {n} bytes, {want} expected (truncated or corrupt?)"));
     for ((off, len), dst) in strips.at.iter().zip(bytes.chunks_mut(strips.rows * row_bytes)) {
         if off.checked_add(*len).is_none_or(|end| end > file_len) {
             return Err(Error::page(path, page, "a strip runs past the end of the file (truncated?)"));
         }
         packed.resize(*len as usize, 0);
         dec.inner().get_ref().read_exact_at(&mut packed, *off).map_err(|e| Error::page(path, page, format!("cannot read (truncated?): {e}")))?;
-        match z.zlib_decompress(&packed, dst) {
-            Ok(n) if n == dst.len() => {}
-            Ok(n) => return Err(Error::page(path, page, format!("a strip holds {n} bytes, {} expected (truncated or corrupt?)", dst.len()))),
-            Err(libdeflater::DecompressionError::InsufficientSpace) => {
-                return Err(Error::page(path, page, format!("a strip holds more than the {} bytes of its rows (corrupt?)", dst.len())));
+        if strips.reversed {
+            packed.iter_mut().for_each(|b| *b = b.reverse_bits());
+        }
+        let n = match strips.codec {
+            Codec::Plain => {
+                let n = packed.len().min(dst.len());
+                dst[..n].copy_from_slice(&packed[..n]);
+                n
             }
-            Err(_) => return Err(Error::page(path, page, "a compressed strip is corrupt (bad Deflate data or checksum)")),
+            Codec::PackBits => unpack_bits(&packed, dst),
+            Codec::Lzw => {
+                let mut lzw = weezl::decode::Decoder::with_tiff_size_switch(weezl::BitOrder::Msb, 8);
+                let (mut i, mut n) = (0, 0);
+                while n < dst.len() {
+                    let r = lzw.decode_bytes(&packed[i..], &mut dst[n..]);
+                    (i, n) = (i + r.consumed_in, n + r.consumed_out);
+                    match r.status {
+                        Ok(weezl::LzwStatus::Ok) if r.consumed_in + r.consumed_out > 0 => {}
+                        Ok(_) => break,
+                        Err(_) => return Err(Error::page(path, page, "a compressed strip is corrupt (bad LZW data)")),
+                    }
+                }
+                n
+            }
+            Codec::Deflate => match z.zlib_decompress(&packed, dst) {
+                Ok(n) => n,
+                Err(libdeflater::DecompressionError::InsufficientSpace) => {
+                    return Err(Error::page(path, page, format!("a strip holds more than the {} bytes of its rows (corrupt?)", dst.len())));
+                }
+                Err(_) => return Err(Error::page(path, page, "a compressed strip is corrupt (bad Deflate data or checksum)")),
+            },
+        };
+        if n != dst.len() {
+            return Err(short(n, dst.len()));
         }
     }
     if strips.differenced {
@@ -470,8 +561,8 @@ pub(crate) fn read_page<T: Sample>(path: &Path, page: usize, dec: &mut Dec, kind
             use std::os::unix::fs::FileExt;
             return dec.inner().get_ref().read_exact_at(bytes, off).map_err(|e| Error::page(path, page, format!("cannot read (truncated?): {e}")));
         }
-        if let Some(strips) = deflate_strips(dec) {
-            return inflate_page(path, page, dec, strips, out);
+        if let Some(strips) = own_strips(dec) {
+            return strips_page(path, page, dec, strips, out);
         }
     }
     match kind {
