@@ -400,15 +400,18 @@ fn reads_nrrd_like_pynrrd_and_metaimage_like_simpleitk() {
 
 /// DICOM written by pydicom: a series of single-frame CT files (signed 16-bit, rescale slope and
 /// intercept, oblique orientation, file names and instance numbers out of slice order) beside a
-/// smaller second series, and one enhanced multi-frame file with its frames stored in reverse:
-/// the values pydicom reads back rescaled, sorted by position along the slice normal; the
-/// spacing; the index-to-world transform (LPS) from the image plane attributes. Fixtures:
+/// smaller second series, and one enhanced multi-frame file with its frames stored in reverse;
+/// the series and the enhanced file again RLE Lossless (pydicom's encoder), and a series JPEG
+/// Lossless (imagecodecs' ljpeg encoder, unsigned 12-bit): the values pydicom (imagecodecs for
+/// JPEG) reads back rescaled, sorted by position along the slice normal; the spacing; the
+/// index-to-world transform (LPS) from the image plane attributes. Fixtures:
 /// tests/fixtures/make_fixtures.py.
 #[test]
 fn reads_dicom_like_pydicom() {
     let manifest: serde_json::Value = serde_json::from_str(&std::fs::read_to_string(fixture("manifest.json")).unwrap()).unwrap();
     let files = manifest["dicom"].as_array().unwrap();
-    assert_eq!(files.len(), 2);
+    let names: Vec<&str> = files.iter().map(|f| f["name"].as_str().unwrap()).collect();
+    assert_eq!(names, ["series", "enhanced.dcm", "series_rle", "series_jpeg_lossless", "enhanced_rle.dcm"]);
     for f in files {
         matches_reference("dicom", f, "spacing", "LPS", 1e-9);
     }
@@ -419,8 +422,8 @@ fn reads_dicom_like_pydicom() {
     let h = ductline::stack::header(&fixture("dicom/series")).unwrap();
     assert_eq!((h.dims, h.sample), ([10, 9, 7], "float32"));
     // bad input: one line naming the file and what is wrong
-    let e = load(&fixture("dicom/refuse_rle.dcm")).unwrap_err().to_string();
-    assert!(e.contains("refuse_rle.dcm") && e.contains("1.2.840.10008.1.2.5") && e.contains("not supported") && !e.contains('\n'), "{e}");
+    let e = load(&fixture("dicom/refuse_j2k.dcm")).unwrap_err().to_string();
+    assert!(e.contains("refuse_j2k.dcm") && e.contains("1.2.840.10008.1.2.4.90") && e.contains("not supported") && !e.contains('\n'), "{e}");
     let dir = tempfile::tempdir().unwrap();
     let one = std::fs::read(fixture("dicom/series/IMG003.dcm")).unwrap();
     std::fs::write(dir.path().join("a.dcm"), &one).unwrap();
@@ -432,6 +435,30 @@ fn reads_dicom_like_pydicom() {
     std::fs::write(cut.join("x.dcm"), &one[..one.len() - 40]).unwrap();
     let e = load(&cut).unwrap_err().to_string();
     assert!(e.contains("x.dcm") && !e.contains('\n'), "{e}");
+}
+
+/// Real scans: the small CT (uncompressed) and the RLE-compressed MR that pydicom ships among its
+/// test files (NEMA sample images, downsized), copied by the fixture script when the installed
+/// package carries them: every value as pydicom reads it, rescaled, and the pixel spacing.
+#[test]
+fn reads_pydicoms_real_scans_like_pydicom() {
+    let manifest: serde_json::Value = serde_json::from_str(&std::fs::read_to_string(fixture("manifest.json")).unwrap()).unwrap();
+    let files = manifest["dicom_real"].as_array().unwrap();
+    assert!(!files.is_empty(), "the fixture script found no real DICOM scan in the pydicom package");
+    for f in files {
+        let name = f["name"].as_str().unwrap();
+        let st = load(&fixture(&format!("dicom/{name}"))).unwrap_or_else(|e| panic!("{name}: {e}"));
+        let shape: Vec<usize> = f["shape"].as_array().unwrap().iter().map(|x| x.as_u64().unwrap() as usize).collect();
+        assert_eq!(st.dims.to_vec(), shape, "{name}");
+        let raw = std::fs::read(fixture(&format!("dicom/{name}.expected.raw"))).unwrap();
+        let want: Vec<f64> = raw.chunks_exact(8).map(|c| f64::from_le_bytes(c.try_into().unwrap())).collect();
+        assert_eq!(want.len(), st.samples.len(), "{name}");
+        let wrong = want.iter().enumerate().filter(|(i, w)| (st.samples.get(*i) as f64 - **w).abs() > 1e-6 * w.abs().max(1.0)).count();
+        assert_eq!(wrong, 0, "{name}: {wrong} samples differ from pydicom's");
+        let ps: Vec<f64> = f["pixel_spacing"].as_array().unwrap().iter().map(|x| x.as_f64().unwrap()).collect();
+        let vox = st.voxel.unwrap();
+        assert!((vox.mm[0] - ps[1]).abs() < 1e-9 && (vox.mm[1] - ps[0]).abs() < 1e-9, "{name}: {:?} vs {ps:?}", vox.mm);
+    }
 }
 
 /// `--landmarks-frame world`: a point the reference library's affine puts at index (i, j, k)

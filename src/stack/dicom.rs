@@ -9,8 +9,10 @@
 //! - The index-to-world transform is kept in LPS millimetres: column i runs along the row
 //!   direction cosines times the column spacing, row j along the column cosines times the row
 //!   spacing (Pixel Spacing gives row spacing first), slice k by the mean step between positions.
-//! - Only uncompressed pixel data (implicit or explicit VR little endian) is read; compressed
-//!   transfer syntaxes are refused by name.
+//! - Pixel data uncompressed (implicit or explicit VR little endian, deflated explicit VR), RLE
+//!   Lossless or JPEG (lossless, baseline, extended; the dicom-rs decoders) is read; a note says
+//!   when the compression was lossy. Other transfer syntaxes (JPEG 2000, JPEG-LS, big endian …)
+//!   are refused by name.
 
 use super::raw::{self, Kind};
 use super::{LoadOptions, Samples, Stack, VoxelSize, VoxelSource, World};
@@ -65,9 +67,26 @@ struct Image {
     inter: f64,
     /// The position of each frame's first pixel (one for single-frame images).
     positions: Vec<[f64; 3]>,
+    /// The pixel data went through lossy compression (JPEG baseline or extended).
+    lossy: bool,
 }
 
-const NATIVE: [(&str, &str); 2] = [("1.2.840.10008.1.2", "implicit VR little endian"), ("1.2.840.10008.1.2.1", "explicit VR little endian")];
+/// Transfer syntaxes whose pixel data is stored as it is (the data set may be deflated).
+const NATIVE: [&str; 3] = ["1.2.840.10008.1.2", "1.2.840.10008.1.2.1", "1.2.840.10008.1.2.1.99"];
+
+/// Compressed transfer syntaxes read through the dicom-rs decoders: (UID, name, lossy).
+const COMPRESSED: [(&str, &str, bool); 5] = [
+    ("1.2.840.10008.1.2.5", "RLE Lossless", false),
+    ("1.2.840.10008.1.2.4.57", "JPEG Lossless", false),
+    ("1.2.840.10008.1.2.4.70", "JPEG Lossless (first-order prediction)", false),
+    ("1.2.840.10008.1.2.4.50", "JPEG Baseline", true),
+    ("1.2.840.10008.1.2.4.51", "JPEG Extended", true),
+];
+
+/// The transfer syntax of a file, without padding.
+fn syntax_of(obj: &DefaultDicomObject) -> String {
+    obj.meta().transfer_syntax().trim_end_matches(['\0', ' ']).to_string()
+}
 
 fn open(path: &Path, pixels: bool) -> Result<DefaultDicomObject> {
     let opts = OpenFileOptions::new();
@@ -90,10 +109,10 @@ fn get(o: &InMemDicomObject, tag: dicom_core::Tag) -> Option<&Element> {
 fn image(path: &Path) -> Result<Image> {
     let obj = open(path, false)?;
     let bad = |m: String| Error::format(path, m);
-    let ts = obj.meta().transfer_syntax().trim_end_matches(['\0', ' ']).to_string();
-    if !NATIVE.iter().any(|(uid, _)| *uid == ts) {
+    let ts = syntax_of(&obj);
+    if !NATIVE.contains(&ts.as_str()) && !COMPRESSED.iter().any(|c| c.0 == ts) {
         return Err(bad(format!(
-            "pixel data in transfer syntax {ts} (compressed or big-endian) is not supported; convert the series to uncompressed little endian first"
+            "pixel data in transfer syntax {ts} is not supported (read: uncompressed little endian, RLE Lossless, JPEG lossless, baseline or extended); convert the series first"
         )));
     }
     let int = |tag, name: &str| -> Result<i64> { get(&obj, tag).and_then(|e| e.to_int::<i64>().ok()).ok_or_else(|| bad(format!("no {name}"))) };
@@ -174,6 +193,7 @@ fn image(path: &Path) -> Result<Image> {
         slope,
         inter,
         positions,
+        lossy: COMPRESSED.iter().any(|c| c.0 == ts && c.2),
     })
 }
 
@@ -255,6 +275,9 @@ fn series(path: &Path) -> Result<Series> {
     {
         notes.push(format!("{}: slice spacing varies from {lo:.4} to {hi:.4} mm; the mean, {mean:.4} mm, is used", path.display()));
     }
+    if images.iter().any(|im| im.lossy) {
+        notes.push(format!("{}: pixel data stored with lossy JPEG compression: values near, not equal to, the scanner's", path.display()));
+    }
     if n == 1 {
         notes.push(format!("{}: a single slice gives no slice spacing; give it with --voxel-um X,Y,Z", path.display()));
     }
@@ -282,7 +305,25 @@ pub(super) fn header(path: &Path) -> Result<super::Header> {
 fn frames_of(im: &Image) -> Result<Vec<u8>> {
     let obj = open(&im.path, true)?;
     let el = obj.element(tags::PIXEL_DATA).map_err(|_| Error::format(&im.path, "no pixel data"))?;
-    let mut data = el.to_bytes().map_err(|_| Error::format(&im.path, "pixel data is encapsulated (compressed), which is not read"))?.into_owned();
+    let ts = syntax_of(&obj);
+    let mut data = match COMPRESSED.iter().find(|c| c.0 == ts) {
+        None => {
+            el.to_bytes().map_err(|_| Error::format(&im.path, format!("pixel data is encapsulated though transfer syntax {ts} says it is not")))?.into_owned()
+        }
+        Some((_, name, _)) => {
+            use dicom_transfer_syntax_registry::TransferSyntaxRegistry;
+            let reader = dicom_encoding::TransferSyntaxIndex::get(&TransferSyntaxRegistry, &ts)
+                .and_then(|t| t.pixel_data_reader())
+                .ok_or_else(|| Error::format(&im.path, format!("no decoder for {name} pixel data")))?;
+            let mut out = Vec::with_capacity(im.rows * im.cols * im.positions.len() * im.kind.bytes());
+            for f in 0..im.positions.len() {
+                reader
+                    .decode_frame(&obj, f as u32, &mut out)
+                    .map_err(|e| Error::format(&im.path, format!("frame {f}: {name} pixel data cannot be decoded: {}", one_line(&e.to_string()))))?;
+            }
+            out
+        }
+    };
     let need = im.rows * im.cols * im.positions.len() * im.kind.bytes();
     if data.len() < need {
         return Err(Error::format(
