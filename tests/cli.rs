@@ -383,8 +383,8 @@ fn world_frame_landmarks_in_and_points_out() {
 }
 
 /// One phantom, every format, one table: the phantom's stack written as an OME-TIFF (the
-/// phantom's own), an NRRD, a MetaImage (.mha), a NIfTI-1 file and a folder of single-page TIFF
-/// slices, each
+/// phantom's own), an NRRD, a MetaImage (.mha), a NIfTI-1 file, a DICOM series and a folder of
+/// single-page TIFF slices, each
 /// measured from the same stack-frame landmarks at the same voxel size, gives the same table
 /// (every number to 1e-9 relative, the same flags): the readers agree on the sample order and
 /// the stack frame (i·vx, j·vy, k·vz) whatever the file's own world transform.
@@ -452,9 +452,43 @@ fn one_phantom_every_format_one_table() {
             ductline::stack::Stack::from_samples([nx, ny, 1], ductline::stack::Samples::U16(v[k * nx * ny..(k + 1) * nx * ny].to_vec().into()), None).unwrap();
         ductline::stack::write::write_tiff(&page, &folder.join(format!("slice_{k}.tif")), ductline::stack::write::Packing::Deflate, false).unwrap();
     }
+    // a DICOM series (written by the dicom-rs crates): one uncompressed file a slice, its world
+    // frame shifted and its slice axis running toward the feet (the normal of the row and
+    // column cosines points down, positions step up: DICOM PS3.3 C.7.6.2), file names in an
+    // order unrelated to position, so only sorting by position along the normal gives the stack
+    let dcm = d.path().join("dicom");
+    std::fs::create_dir(&dcm).unwrap();
+    for k in 0..nz {
+        use dicom_core::{DataElement, PrimitiveValue, VR};
+        use dicom_dictionary_std::{tags, uids};
+        let mut o = dicom_object::InMemDicomObject::new_empty();
+        let uid = format!("2.25.{}", 1000 + k);
+        let text = |o: &mut dicom_object::InMemDicomObject, t, vr, v: &str| o.put(DataElement::new(t, vr, PrimitiveValue::from(v)));
+        text(&mut o, tags::SOP_CLASS_UID, VR::UI, uids::CT_IMAGE_STORAGE);
+        text(&mut o, tags::SOP_INSTANCE_UID, VR::UI, &uid);
+        text(&mut o, tags::SERIES_INSTANCE_UID, VR::UI, "2.25.77");
+        text(&mut o, tags::MODALITY, VR::CS, "CT");
+        text(&mut o, tags::PHOTOMETRIC_INTERPRETATION, VR::CS, "MONOCHROME2");
+        // row direction +x, column direction −y: the normal is −z, so positions run +z·(−k)
+        text(&mut o, tags::IMAGE_ORIENTATION_PATIENT, VR::DS, "1\\0\\0\\0\\-1\\0");
+        text(&mut o, tags::IMAGE_POSITION_PATIENT, VR::DS, &format!("-7.5\\20\\{}", 3.0 - vx * k as f64));
+        text(&mut o, tags::PIXEL_SPACING, VR::DS, &format!("{vx}\\{vx}"));
+        for (t, v) in [(tags::SAMPLES_PER_PIXEL, 1u16), (tags::ROWS, ny as u16), (tags::COLUMNS, nx as u16), (tags::BITS_ALLOCATED, 16), (tags::BITS_STORED, 16)] {
+            o.put(DataElement::new(t, VR::US, PrimitiveValue::from(v)));
+        }
+        o.put(DataElement::new(tags::HIGH_BIT, VR::US, PrimitiveValue::from(15u16)));
+        o.put(DataElement::new(tags::PIXEL_REPRESENTATION, VR::US, PrimitiveValue::from(0u16)));
+        o.put(DataElement::new(tags::PIXEL_DATA, VR::OW, PrimitiveValue::U16(v[k * nx * ny..(k + 1) * nx * ny].iter().copied().collect())));
+        let meta = dicom_object::FileMetaTableBuilder::new()
+            .transfer_syntax(uids::EXPLICIT_VR_LITTLE_ENDIAN)
+            .media_storage_sop_class_uid(uids::CT_IMAGE_STORAGE)
+            .media_storage_sop_instance_uid(uid.as_str());
+        let file = o.with_meta(meta).unwrap();
+        file.write_to_file(dcm.join(format!("{:08x}.dcm", (k as u32).wrapping_mul(2_654_435_761)))).unwrap();
+    }
     let lm = ph.join("landmarks.csv");
     let mut tables = vec![];
-    for (name, stack) in [("tiff", ph.join("phantom.tif")), ("nrrd", nrrd), ("mha", mha), ("nifti", nii), ("slices", folder)] {
+    for (name, stack) in [("tiff", ph.join("phantom.tif")), ("nrrd", nrrd), ("mha", mha), ("nifti", nii), ("slices", folder), ("dicom", dcm)] {
         let out = d.path().join(format!("{name}.csv"));
         let o = ductline(&["measure", "--stack", s(&stack), "--landmarks", s(&lm), "--voxel-um", "90", "--out", s(&out), "--step-mm", "0.5"]);
         assert!(o.status.success(), "{name}: {}", stderr(&o));
