@@ -473,7 +473,9 @@ fn one_phantom_every_format_one_table() {
         text(&mut o, tags::IMAGE_ORIENTATION_PATIENT, VR::DS, "1\\0\\0\\0\\-1\\0");
         text(&mut o, tags::IMAGE_POSITION_PATIENT, VR::DS, &format!("-7.5\\20\\{}", 3.0 - vx * k as f64));
         text(&mut o, tags::PIXEL_SPACING, VR::DS, &format!("{vx}\\{vx}"));
-        for (t, v) in [(tags::SAMPLES_PER_PIXEL, 1u16), (tags::ROWS, ny as u16), (tags::COLUMNS, nx as u16), (tags::BITS_ALLOCATED, 16), (tags::BITS_STORED, 16)] {
+        for (t, v) in
+            [(tags::SAMPLES_PER_PIXEL, 1u16), (tags::ROWS, ny as u16), (tags::COLUMNS, nx as u16), (tags::BITS_ALLOCATED, 16), (tags::BITS_STORED, 16)]
+        {
             o.put(DataElement::new(t, VR::US, PrimitiveValue::from(v)));
         }
         o.put(DataElement::new(tags::HIGH_BIT, VR::US, PrimitiveValue::from(15u16)));

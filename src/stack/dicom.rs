@@ -69,6 +69,9 @@ struct Image {
     positions: Vec<[f64; 3]>,
     /// The pixel data went through lossy compression (JPEG baseline or extended).
     lossy: bool,
+    /// Byte offset of the first sample when the pixel data is stored as it is and is the file's
+    /// last element (as most writers leave it): then each slice is one positioned read.
+    at: Option<u64>,
 }
 
 /// Transfer syntaxes whose pixel data is stored as it is (the data set may be deflated).
@@ -194,7 +197,42 @@ fn image(path: &Path) -> Result<Image> {
         inter,
         positions,
         lossy: COMPRESSED.iter().any(|c| c.0 == ts && c.2),
+        at: if NATIVE[..2].contains(&ts.as_str()) { pixel_offset(path, (rows * cols) as u64 * frames as u64 * kind.bytes() as u64) } else { None },
     })
+}
+
+/// Where a file stored uncompressed (not deflated) keeps its `need` bytes of pixel data when
+/// Pixel Data (7FE0,0010) is its last element: the offset of the first sample. The element's
+/// header is looked for just before the file's last `need` bytes (padded to even length), in
+/// explicit VR (tag, OW/OB, 2 reserved bytes, 32-bit length) or implicit VR (tag, 32-bit length)
+/// little endian (DICOM PS3.5 section 7.1). None otherwise: the data set parser reads the file.
+#[cfg(unix)]
+fn pixel_offset(path: &Path, need: u64) -> Option<u64> {
+    use std::os::unix::fs::FileExt;
+    let f = std::fs::File::open(path).ok()?;
+    let len = f.metadata().ok()?.len();
+    let declared = need + need % 2;
+    for (hdr, explicit) in [(12u64, true), (8, false)] {
+        let Some(p) = len.checked_sub(declared + hdr) else { continue };
+        let mut h = [0u8; 12];
+        if f.read_exact_at(&mut h[..hdr as usize], p).is_err() || h[..4] != [0xE0, 0x7F, 0x10, 0x00] {
+            continue;
+        }
+        let l = match explicit {
+            true if matches!(&h[4..8], b"OW\0\0" | b"OB\0\0") => u32::from_le_bytes([h[8], h[9], h[10], h[11]]),
+            true => continue,
+            false => u32::from_le_bytes([h[4], h[5], h[6], h[7]]),
+        };
+        if l as u64 == declared {
+            return Some(p + hdr);
+        }
+    }
+    None
+}
+
+#[cfg(not(unix))]
+fn pixel_offset(_: &Path, _: u64) -> Option<u64> {
+    None
 }
 
 /// The slices in order: (image, frame within it) sorted by position along the normal, the
@@ -288,6 +326,21 @@ fn series(path: &Path) -> Result<Series> {
     Ok(Series { slices, images, voxel_mm: [col_sp, row_sp, z], world: World { matrix, frame: "LPS", source }, notes })
 }
 
+/// Reads `buf.len()` bytes at `offset` of `path`.
+fn read_at(path: &Path, buf: &mut [u8], offset: u64) -> Result<()> {
+    #[cfg(unix)]
+    {
+        use std::os::unix::fs::FileExt;
+        let f = std::fs::File::open(path).map_err(|e| Error::io(path, e))?;
+        f.read_exact_at(buf, offset).map_err(|e| Error::format(path, format!("pixel data cannot be read (truncated?): {e}")))
+    }
+    #[cfg(not(unix))]
+    {
+        let _ = (buf, offset);
+        Err(Error::format(path, "positioned reads need a Unix system"))
+    }
+}
+
 fn scaled(im: &Image) -> bool {
     im.slope != 1.0 || im.inter != 0.0
 }
@@ -332,8 +385,13 @@ fn frames_of(im: &Image) -> Result<Vec<u8>> {
         ));
     }
     data.truncate(need);
-    let bits = 8 * im.kind.bytes() as u32;
-    if im.bits_stored < bits && im.kind.bytes() == 2 {
+    mask_bits(im, &mut data);
+    Ok(data)
+}
+
+/// Masks off the bits beyond Bits Stored of 16-bit samples (sign-extending signed ones).
+fn mask_bits(im: &Image, data: &mut [u8]) {
+    if im.bits_stored < 16 && im.kind.bytes() == 2 {
         let shift = 16 - im.bits_stored;
         for c in data.chunks_exact_mut(2) {
             let v = u16::from_le_bytes([c[0], c[1]]) << shift;
@@ -341,7 +399,6 @@ fn frames_of(im: &Image) -> Result<Vec<u8>> {
             c.copy_from_slice(&v.to_le_bytes());
         }
     }
-    Ok(data)
 }
 
 pub(super) fn load(path: &Path, opts: &LoadOptions, progress: &Progress) -> Result<Stack> {
@@ -351,37 +408,69 @@ pub(super) fn load(path: &Path, opts: &LoadOptions, progress: &Progress) -> Resu
     let n = plane * s.slices.len();
     let any_scaled = s.images.iter().any(scaled);
     let same_scale = s.images.iter().all(|im| im.slope == im0.slope && im.inter == im0.inter);
-    super::check_memory(path, (n as u64).saturating_mul((2 * im0.kind.bytes() + im0.kind.held(any_scaled).1) as u64), opts.max_bytes)?;
-    progress.start(s.images.len() as u64);
-    let raw: Vec<Vec<u8>> = s
-        .images
-        .par_iter()
-        .map(|im| {
-            progress.check()?;
-            let d = frames_of(im);
-            progress.add(1);
-            d
-        })
-        .collect::<Result<_>>()?;
+    let (held, held_bytes) = im0.kind.held(any_scaled);
     let fb = plane * im0.kind.bytes();
-    let frame = |&(i, f): &(usize, usize)| &raw[i][f * fb..(f + 1) * fb];
-    let mut notes = s.notes;
-    let samples = if same_scale {
-        let data: Vec<u8> = s.slices.iter().flat_map(frame).copied().collect();
-        let (samples, more) = raw::decode(path, &data, im0.kind, false, n, any_scaled.then_some((im0.slope, im0.inter, "Rescale Slope, Rescale Intercept")))?;
-        notes.extend(more);
-        samples
+    // files whose pixel data is found by offset are read slice by slice straight into the
+    // stack; the others (compressed, deflated, trailing elements) are decoded whole first
+    let direct = s.images.iter().all(|im| im.at.is_some());
+    let staged = if direct { 0 } else { n * im0.kind.bytes() };
+    super::check_memory(path, (n * held_bytes + staged) as u64, opts.max_bytes)?;
+    progress.start(if direct { s.slices.len() } else { s.images.len() } as u64);
+    let raw: Vec<Vec<u8>> = if direct {
+        vec![]
     } else {
-        // slopes or intercepts differ between slices: each slice scaled on its own
-        let mut v = Vec::with_capacity(n);
-        for sl in &s.slices {
-            let im = &s.images[sl.0];
-            let (part, _) = raw::decode(path, frame(sl), im.kind, false, plane, Some((im.slope, im.inter, "Rescale Slope, Rescale Intercept")))?;
-            v.extend((0..plane).map(|i| part.get(i)));
-        }
-        notes.push(format!("{}: rescale slope and intercept differ between slices; each applied to its own, held as float32", path.display()));
-        Samples::F32(v.into())
+        s.images
+            .par_iter()
+            .map(|im| {
+                progress.check()?;
+                let d = frames_of(im);
+                progress.add(1);
+                d
+            })
+            .collect::<Result<_>>()?
     };
+    // one slice of the stack (stack slice k) converted into `out`
+    let fill = |k: usize, out: raw::Out| -> Result<()> {
+        let (i, f) = s.slices[k];
+        let im = &s.images[i];
+        let scale = (im.slope, im.inter);
+        match im.at {
+            Some(at) if direct => {
+                progress.check()?;
+                let mut buf = vec![0u8; fb];
+                read_at(&im.path, &mut buf, at + (f * fb) as u64)?;
+                mask_bits(im, &mut buf);
+                raw::convert(&buf, im.kind, false, scale, out);
+                progress.add(1);
+            }
+            _ => raw::convert(&raw[i][f * fb..(f + 1) * fb], im.kind, false, scale, out),
+        }
+        Ok(())
+    };
+    let samples = match held {
+        "uint8" => {
+            let mut v = vec![0u8; n];
+            v.par_chunks_mut(plane).enumerate().try_for_each(|(k, o)| fill(k, raw::Out::U8(o)))?;
+            Samples::U8(v.into())
+        }
+        "uint16" => {
+            let mut v = vec![0u16; n];
+            v.par_chunks_mut(plane).enumerate().try_for_each(|(k, o)| fill(k, raw::Out::U16(o)))?;
+            Samples::U16(v.into())
+        }
+        _ => {
+            let mut v = vec![0f32; n];
+            v.par_chunks_mut(plane).enumerate().try_for_each(|(k, o)| fill(k, raw::Out::F32(o)))?;
+            Samples::F32(v.into())
+        }
+    };
+    drop(raw);
+    let mut notes = s.notes;
+    if same_scale {
+        notes.extend(raw::notes(path, im0.kind, any_scaled.then_some((im0.slope, im0.inter, "Rescale Slope, Rescale Intercept"))));
+    } else {
+        notes.push(format!("{}: rescale slope and intercept differ between slices; each applied to its own, held as float32", path.display()));
+    }
     let voxel = Some(VoxelSize::new(s.voxel_mm, std::array::from_fn(|_| VoxelSource::FileHeader)));
     let stack = Stack {
         dims: [im0.cols, im0.rows, s.slices.len()],

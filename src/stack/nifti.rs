@@ -5,7 +5,7 @@
 //! [`super::World`] in RAS millimetres. The stack frame itself stays (i·vx, j·vy, k·vz).
 
 use super::raw::{self, Kind};
-use super::{LoadOptions, Stack, VoxelSize, VoxelSource, World};
+use super::{LoadOptions, Samples, Stack, VoxelSize, VoxelSource, World};
 use crate::progress::Progress;
 use crate::{Error, Result};
 use std::io::Read;
@@ -35,20 +35,28 @@ struct Head {
 /// The file's first `limit` bytes (all of it with `u64::MAX`), inflated when gzip-compressed
 /// (gzip magic 1f 8b, whatever the name): the header alone needs no more than 540.
 fn read_start(path: &Path, limit: u64) -> Result<Vec<u8>> {
+    let mut out = vec![];
+    reader(path)?.take(limit).read_to_end(&mut out).map_err(|e| read_error(path, e))?;
+    Ok(out)
+}
+
+/// The file's bytes from the start, inflated when gzip-compressed (gzip magic 1f 8b, whatever
+/// the name).
+fn reader(path: &Path) -> Result<Box<dyn Read>> {
     let mut f = std::fs::File::open(path).map_err(|e| Error::io(path, e))?;
     let mut magic = [0u8; 2];
     let gz = f.read_exact(&mut magic).is_ok() && magic == [0x1f, 0x8b];
     std::io::Seek::rewind(&mut f).map_err(|e| Error::io(path, e))?;
-    let mut out = vec![];
-    if gz {
-        flate2::read::MultiGzDecoder::new(std::io::BufReader::new(f))
-            .take(limit)
-            .read_to_end(&mut out)
-            .map_err(|e| Error::format(path, format!("cannot inflate the gzip stream (truncated or corrupt?): {e}")))?;
-    } else {
-        f.take(limit).read_to_end(&mut out).map_err(|e| Error::io(path, e))?;
+    Ok(if gz { Box::new(flate2::read::MultiGzDecoder::new(std::io::BufReader::with_capacity(1 << 20, f))) } else { Box::new(f) })
+}
+
+fn read_error(path: &Path, e: std::io::Error) -> Error {
+    match e.kind() {
+        std::io::ErrorKind::InvalidInput | std::io::ErrorKind::InvalidData => {
+            Error::format(path, format!("cannot inflate the gzip stream (truncated or corrupt?): {e}"))
+        }
+        _ => Error::io(path, e),
     }
-    Ok(out)
 }
 
 // the two header layouts are read into one tuple, field by field beside its offset
@@ -225,12 +233,7 @@ pub(super) fn load(path: &Path, opts: &LoadOptions, progress: &Progress) -> Resu
     let h = parse(path, &read_start(path, 540)?)?;
     let kind = datatype(path, h.datatype)?;
     let n = h.dims.iter().product::<usize>();
-    super::check_memory(path, (n as u64).saturating_mul((kind.bytes() + kind.held(scaled(&h)).1) as u64), opts.max_bytes)?;
-    let end = h.offset.saturating_add(n * kind.bytes());
-    let b = read_start(path, end as u64)?;
-    let data = b.get(h.offset..end).ok_or_else(|| {
-        Error::format(path, format!("the file holds fewer samples than its header's {} × {} × {} (truncated?)", h.dims[0], h.dims[1], h.dims[2]))
-    })?;
+    super::check_memory(path, (n as u64).saturating_mul(kind.held(scaled(&h)).1 as u64), opts.max_bytes)?;
     let mut warnings = vec![];
     if h.extra_volumes > 0 {
         warnings.push(format!("{}: a 4-D file; only the first of {} volumes is read", path.display(), h.extra_volumes + 1));
@@ -238,10 +241,35 @@ pub(super) fn load(path: &Path, opts: &LoadOptions, progress: &Progress) -> Resu
     if !h.units_known {
         warnings.push(format!("{}: the header gives no spatial unit; millimetres assumed", path.display()));
     }
-    progress.start(1);
-    let (samples, notes) = raw::decode(path, data, kind, h.big_endian, n, scaled(&h).then_some((h.slope, h.inter, "scl_slope, scl_inter")))?;
-    warnings.extend(notes);
-    progress.add(1);
+    // the samples stream through a block buffer into the stack: no second copy of the volume
+    let scale = scaled(&h).then_some((h.slope, h.inter, "scl_slope, scl_inter"));
+    let (m, c) = scale.map(|(m, c, _)| (m, c)).unwrap_or((1.0, 0.0));
+    let mut r = reader(path)?;
+    std::io::copy(&mut (&mut r).take(h.offset as u64), &mut std::io::sink()).map_err(|e| read_error(path, e))?;
+    const BLOCK: usize = 1 << 22;
+    let bps = kind.bytes();
+    let mut buf = vec![0u8; BLOCK * bps];
+    progress.start(n.div_ceil(BLOCK) as u64);
+    let short = || Error::format(path, format!("the file holds fewer samples than its header's {} × {} × {} (truncated?)", h.dims[0], h.dims[1], h.dims[2]));
+    macro_rules! stream {
+        ($t:ty, $out:path, $samples:path) => {{
+            let mut v: Vec<$t> = vec![Default::default(); n];
+            for o in v.chunks_mut(BLOCK) {
+                progress.check()?;
+                let b = &mut buf[..o.len() * bps];
+                r.read_exact(b).map_err(|e| if e.kind() == std::io::ErrorKind::UnexpectedEof { short() } else { read_error(path, e) })?;
+                raw::convert(b, kind, h.big_endian, (m, c), $out(o));
+                progress.add(1);
+            }
+            $samples(v.into())
+        }};
+    }
+    let samples = match kind.held(scale.is_some()).0 {
+        "uint8" => stream!(u8, raw::Out::U8, Samples::U8),
+        "uint16" => stream!(u16, raw::Out::U16, Samples::U16),
+        _ => stream!(f32, raw::Out::F32, Samples::F32),
+    };
+    warnings.extend(raw::notes(path, kind, scale));
     let voxel = Some(VoxelSize::new(h.voxel_mm, std::array::from_fn(|_| VoxelSource::FileHeader)));
     let stack = Stack { dims: h.dims, samples, voxel, origin_vox: [0.0; 3], path: path.to_path_buf(), warnings, world: Some(h.world) };
     super::crop_and_bin(stack, opts)

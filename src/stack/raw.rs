@@ -54,6 +54,52 @@ impl Kind {
     }
 }
 
+/// Where converted samples go: the in-memory type [`Kind::held`] chose.
+pub(super) enum Out<'a> {
+    U8(&'a mut [u8]),
+    U16(&'a mut [u16]),
+    F32(&'a mut [f32]),
+}
+
+/// Converts `data` (samples of `kind`, little or big endian, at least as many as `out` holds)
+/// into `out`, in parallel blocks: x·slope + intercept for float32 output (`scale`), the value
+/// itself for uint8 / uint16 output.
+pub(super) fn convert(data: &[u8], kind: Kind, big_endian: bool, (m, c): (f64, f64), out: Out) {
+    use rayon::prelude::*;
+    const BLOCK: usize = 1 << 16;
+    let bps = kind.bytes();
+    macro_rules! each {
+        ($out:expr, $conv:expr) => {
+            $out.par_chunks_mut(BLOCK).zip(data.par_chunks(BLOCK * bps)).for_each(|(o, d)| {
+                macro_rules! run {
+                    ($t:ty, $n:expr) => {
+                        for (x, b) in o.iter_mut().zip(d.chunks_exact($n)) {
+                            let a: [u8; $n] = b.try_into().unwrap();
+                            let v = if big_endian { <$t>::from_be_bytes(a) } else { <$t>::from_le_bytes(a) };
+                            *x = $conv(v as f64);
+                        }
+                    };
+                }
+                match kind {
+                    Kind::U8 => run!(u8, 1),
+                    Kind::I8 => run!(i8, 1),
+                    Kind::U16 => run!(u16, 2),
+                    Kind::I16 => run!(i16, 2),
+                    Kind::U32 => run!(u32, 4),
+                    Kind::I32 => run!(i32, 4),
+                    Kind::F32 => run!(f32, 4),
+                    Kind::F64 => run!(f64, 8),
+                }
+            })
+        };
+    }
+    match out {
+        Out::U8(o) => each!(o, |v: f64| v as u8),
+        Out::U16(o) => each!(o, |v: f64| v as u16),
+        Out::F32(o) => each!(o, |v: f64| (v * m + c) as f32),
+    }
+}
+
 /// Decodes `n` samples from `data` (at least n·bytes long), scaling each by `scale` = (slope,
 /// intercept) when given; returns the samples and the notes to show (type converted, scaled).
 /// `what` names the scaling's source in the note.
@@ -65,41 +111,33 @@ pub(super) fn decode(path: &Path, data: &[u8], kind: Kind, big_endian: bool, n: 
             format!("the file holds {} bytes of samples where {n} {} samples need {} (truncated?)", data.len(), kind.name(), n * bps),
         ));
     }
-    let word = |o: usize| -> [u8; 8] {
-        let mut a = [0u8; 8];
-        a[..bps].copy_from_slice(&data[o * bps..(o + 1) * bps]);
-        if big_endian {
-            a[..bps].reverse();
-        }
-        a
-    };
-    let value = |i: usize| -> f64 {
-        let w = word(i);
-        match kind {
-            Kind::U8 => w[0] as f64,
-            Kind::I8 => w[0] as i8 as f64,
-            Kind::I16 => i16::from_le_bytes([w[0], w[1]]) as f64,
-            Kind::U16 => u16::from_le_bytes([w[0], w[1]]) as f64,
-            Kind::I32 => i32::from_le_bytes(w[..4].try_into().unwrap()) as f64,
-            Kind::U32 => u32::from_le_bytes(w[..4].try_into().unwrap()) as f64,
-            Kind::F32 => f32::from_le_bytes(w[..4].try_into().unwrap()) as f64,
-            Kind::F64 => f64::from_le_bytes(w),
-        }
-    };
-    let mut notes = vec![];
+    let (m, c) = scale.map(|(m, c, _)| (m, c)).unwrap_or((1.0, 0.0));
     let samples = match kind.held(scale.is_some()).0 {
-        "uint8" => Samples::U8((0..n).map(|i| value(i) as u8).collect::<Vec<_>>().into()),
-        "uint16" => Samples::U16((0..n).map(|i| value(i) as u16).collect::<Vec<_>>().into()),
+        "uint8" => {
+            let mut v = vec![0u8; n];
+            convert(data, kind, big_endian, (m, c), Out::U8(&mut v));
+            Samples::U8(v.into())
+        }
+        "uint16" => {
+            let mut v = vec![0u16; n];
+            convert(data, kind, big_endian, (m, c), Out::U16(&mut v));
+            Samples::U16(v.into())
+        }
         _ => {
-            let (m, c) = scale.map(|(m, c, _)| (m, c)).unwrap_or((1.0, 0.0));
-            let name = kind.name();
-            if let Some((m, c, what)) = scale {
-                notes.push(format!("{}: {name} samples scaled by {m} and offset by {c} ({what}), held as float32", path.display()));
-            } else if kind != Kind::F32 {
-                notes.push(format!("{}: {name} samples held as float32", path.display()));
-            }
-            Samples::F32((0..n).map(|i| (value(i) * m + c) as f32).collect::<Vec<_>>().into())
+            let mut v = vec![0f32; n];
+            convert(data, kind, big_endian, (m, c), Out::F32(&mut v));
+            Samples::F32(v.into())
         }
     };
-    Ok((samples, notes))
+    Ok((samples, notes(path, kind, scale)))
+}
+
+/// The notes for samples of `kind` decoded with `scale`: the type they are held as, the scaling.
+pub(super) fn notes(path: &Path, kind: Kind, scale: Option<(f64, f64, &str)>) -> Vec<String> {
+    let name = kind.name();
+    match (kind.held(scale.is_some()).0, scale) {
+        ("float32", Some((m, c, what))) => vec![format!("{}: {name} samples scaled by {m} and offset by {c} ({what}), held as float32", path.display())],
+        ("float32", None) if kind != Kind::F32 => vec![format!("{}: {name} samples held as float32", path.display())],
+        _ => vec![],
+    }
 }
