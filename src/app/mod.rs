@@ -965,7 +965,9 @@ impl DuctApp {
                 ui.monospace(format!("│ value {}", if h.value.is_nan() { "—".to_string() } else { format!("{:.1}", h.value) }));
                 ui.separator();
             }
-            ui.label(egui::RichText::new(&self.status).color(status_colour(&self.status, ui.visuals().text_color())));
+            // one line, cut at the window's edge with an ellipsis; the whole message on hover
+            ui.add(egui::Label::new(egui::RichText::new(&self.status).color(status_colour(&self.status, ui.visuals().text_color()))).truncate())
+                .on_hover_text(&self.status);
         });
     }
 
@@ -1089,7 +1091,11 @@ impl DuctApp {
             // the window's
             let width = ctx.content_rect().width();
             egui::Panel::left("specimen").default_size((0.2 * width).clamp(240.0, 300.0)).resizable(true).show(ui, |ui| {
-                egui::ScrollArea::vertical().id_salt("specimen-scroll").show(ui, |ui| cmds.extend(self.side.side_ui(ui, doc, view, running.clone())));
+                egui::Panel::bottom("run").show(ui, |ui| {
+                    ui.add_space(4.0);
+                    cmds.extend(self.side.run_ui(ui, doc, running.clone()));
+                });
+                egui::ScrollArea::vertical().id_salt("specimen-scroll").show(ui, |ui| cmds.extend(self.side.side_ui(ui, doc, view)));
             });
             egui::Panel::right("plan-and-section").default_size((0.24 * width).clamp(260.0, 340.0)).resizable(true).show(ui, |ui| {
                 egui::ScrollArea::vertical().id_salt("section-scroll").show(ui, |ui| {

@@ -22,7 +22,7 @@ impl Default for Side {
 }
 
 impl Side {
-    pub fn side_ui(&mut self, ui: &mut egui::Ui, doc: &mut Doc, view: &mut View, running: Option<(String, f32)>) -> Vec<Cmd> {
+    pub fn side_ui(&mut self, ui: &mut egui::Ui, doc: &mut Doc, view: &mut View) -> Vec<Cmd> {
         let mut cmds = vec![];
         // (the panel itself scrolls: the app wraps it in a scroll area)
         ui.heading("Specimen");
@@ -179,6 +179,16 @@ impl Side {
                 }
             }
         });
+        ui.separator();
+        ui.small(ductline::CAUTION);
+        cmds
+    }
+
+    /// The run controls, pinned under the specimen panel so that they show at any window
+    /// height: Fit & measure, or the running work's progress and Cancel; a note when the
+    /// results are older than the landmarks or settings.
+    pub(super) fn run_ui(&mut self, ui: &mut egui::Ui, doc: &Doc, running: Option<(String, f32)>) -> Vec<Cmd> {
+        let mut cmds = vec![];
         match running {
             Some((label, f)) => {
                 ui.add(egui::ProgressBar::new(f).text(format!("{label} {:.0}%", f * 100.0)));
@@ -200,8 +210,6 @@ impl Side {
                 }
             }
         }
-        ui.separator();
-        ui.small(ductline::CAUTION);
         cmds
     }
 

@@ -874,3 +874,50 @@ fn the_refit_runs_in_the_background() {
     wait(&mut h, "the overtaken refit", |a| !a.fitting());
     assert!((len(&h) - before).abs() < 1e-12, "the fit of the undone state stands: {} vs {before}", len(&h));
 }
+
+/// The layout from the smallest supported window up: at 1100×700 and 1600×1000, with a
+/// measured sample and a section selected, the main controls (Fit & measure, the view's plane
+/// switches, the profile's axis switch, the inspector's section stepper, the plan map) lie
+/// inside the window and none overlaps another; the frame, rendered by wgpu on a software
+/// adapter (no GPU), matches the reviewed snapshot in tests/snapshots/ (egui_kittest's default
+/// per-pixel colour threshold, a few pixels of slack). After a deliberate layout change, look at
+/// the new images and accept them with `UPDATE_SNAPSHOTS=1 cargo test`.
+#[test]
+fn the_layout_holds_at_both_window_sizes() {
+    for (w, hgt) in [(1100.0, 700.0), (1600.0, 1000.0)] {
+        let mut app = DuctApp::new(Some(sample_path()), None);
+        app.autosave_dir = tempfile::tempdir().unwrap().keep();
+        app.native_dialogs = false;
+        let mut h = Harness::builder().with_size(egui::vec2(w, hgt)).wgpu().build_ui_state(|ui, app: &mut DuctApp| app.frame_ui(ui), app);
+        wait(&mut h, "the sample", |a| a.doc.is_some());
+        h.get_by_role_and_label(Role::Button, "Fit & measure").click();
+        h.step();
+        wait(&mut h, "the measurement", |a| a.doc.as_ref().is_some_and(|d| d.outcome.is_some()));
+        h.get_by_role_and_label(Role::Button, ">").click();
+        h.step();
+        h.step();
+        let window = egui::Rect::from_min_size(egui::Pos2::ZERO, egui::vec2(w, hgt));
+        let rects: Vec<(&str, egui::Rect)> = [
+            ("Fit & measure", h.get_by_role_and_label(Role::Button, "Fit & measure").rect()),
+            ("Slices (xy)", h.get_by_label("Slices (xy)").rect()),
+            ("Radial cut", h.get_by_label("Radial cut").rect()),
+            ("Fit view", h.get_by_label("Fit view").rect()),
+            ("distance (mm)", h.get_by_label("distance (mm)").rect()),
+            ("Duct profile", h.get_by_label("Duct profile").rect()),
+            ("Plan map", h.get_all_by_label("Plan map").next().unwrap().rect()),
+            ("section stepper", h.get_by_role_and_label(Role::Button, ">").rect()),
+        ]
+        .into();
+        for (name, r) in &rects {
+            assert!(window.contains_rect(*r), "{w}×{hgt}: {name} at {r:?} is outside the window");
+        }
+        for (i, (a, ra)) in rects.iter().enumerate() {
+            for (b, rb) in &rects[i + 1..] {
+                assert!(!ra.intersects(*rb), "{w}×{hgt}: {a} {ra:?} overlaps {b} {rb:?}");
+            }
+        }
+        if let Err(e) = h.try_snapshot_options(format!("layout_{w}x{hgt}"), &egui_kittest::SnapshotOptions::new().max_failed_pixels(20)) {
+            panic!("{w}×{hgt}: {e}");
+        }
+    }
+}
