@@ -77,6 +77,18 @@ pub fn run(
 ) -> Result<Outcome> {
     let voxel = stack.voxel()?;
     let centreline = fit(items, fit_s, voxel.max())?;
+    measure_fitted(stack, centreline, ms, overrides, gw, progress)
+}
+
+/// Measures along a centreline already fitted (the app's, after an edit: no second fit).
+pub fn measure_fitted(
+    stack: &Stack,
+    centreline: Centreline,
+    ms: &MeasureSettings,
+    overrides: &[Override],
+    gw: &Greenwood,
+    progress: &Progress,
+) -> Result<Outcome> {
     let (geoms, rows) = measure::measure(stack, &centreline, ms, overrides, gw, progress)?;
     let estimates = centreline.basal_diameter().map(|a| LengthEstimates::new(a, centreline.depth_deg()));
     Ok(Outcome { centreline, geoms, rows, greenwood: gw.clone(), estimates })

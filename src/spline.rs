@@ -82,6 +82,33 @@ impl Band {
         }
         y
     }
+    /// The band (|i − j| ≤ 2) of M⁻¹ with `self` = L, M = L Lᵀ, as rows [z(i,i), z(i,i+1),
+    /// z(i,i+2)]: the back recursion of Hutchinson & de Hoog (1985) from U = Lᵀ,
+    /// z(i,j) = (δᵢⱼ/uᵢᵢ − Σₖ₌ᵢ₊₁..ᵢ₊₂ uᵢₖ z(k,j)) / uᵢᵢ for i ≤ j ≤ i + 2, i from the last row up.
+    /// O(m) where solving for each column would be O(m²).
+    fn inverse_band(&self) -> Vec<[f64; 3]> {
+        let m = self.rows.len();
+        let mut z = vec![[0.0f64; 3]; m];
+        let zget = |z: &[[f64; 3]], a: usize, b: usize| {
+            let (a, b) = if a <= b { (a, b) } else { (b, a) };
+            if b - a > 2 || b >= m { 0.0 } else { z[a][b - a] }
+        };
+        for i in (0..m).rev() {
+            let uii = self.get(i, i);
+            for d in (0..3).rev() {
+                let j = i + d;
+                if j >= m {
+                    continue;
+                }
+                let mut s = if d == 0 { 1.0 / uii } else { 0.0 };
+                for k in i + 1..(i + 3).min(m) {
+                    s -= self.get(k, i) * zget(&z, k, j);
+                }
+                z[i][d] = s / uii;
+            }
+        }
+        z
+    }
 }
 
 struct System {
@@ -157,16 +184,17 @@ impl System {
 
     /// Diagonal of the hat matrix at λ, from the Cholesky factor `l` of M.
     fn leverage(&self, l: &Band, lambda: f64) -> Vec<f64> {
-        let m = self.n - 2;
+        // row i of Q has its entries within two columns of each other: only M⁻¹'s band is needed
+        let z = l.inverse_band();
+        let zget = |a: usize, b: usize| {
+            let (a, b) = if a <= b { (a, b) } else { (b, a) };
+            z[a][b - a]
+        };
         (0..self.n)
             .map(|i| {
                 let row = self.q_row(i);
-                let mut b = vec![0.0; m];
-                for &(c, v) in &row {
-                    b[c] = v;
-                }
-                let x = l.solve(&b);
-                1.0 - lambda * self.winv[i] * row.iter().map(|&(c, v)| v * x[c]).sum::<f64>()
+                let quad: f64 = row.iter().flat_map(|&(a, va)| row.iter().map(move |&(b, vb)| (a, va, b, vb))).map(|(a, va, b, vb)| va * vb * zget(a, b)).sum();
+                1.0 - lambda * self.winv[i] * quad
             })
             .collect()
     }
@@ -189,13 +217,11 @@ impl System {
         let g: Vec<f64> = y.iter().zip(&qg).zip(&self.winv).map(|((y, q), wi)| y - lambda * wi * q).collect();
         let mut tr = f64::NAN;
         if want_trace {
-            // tr A = n − λ tr(M⁻¹ QᵀQ), column by column of QᵀQ
-            let m = self.n - 2;
-            let mut t = 0.0;
-            for c in 0..m {
-                let col: Vec<f64> = (0..m).map(|r| self.qtq.get(r, c)).collect();
-                t += l.solve(&col)[c];
-            }
+            // tr A = n − λ tr(M⁻¹ QᵀQ); QᵀQ is pentadiagonal, so only M⁻¹'s band counts
+            let z = l.inverse_band();
+            let m = z.len();
+            let q = |i: usize, j: usize| if j < m { self.qtq.get(i, j) } else { 0.0 };
+            let t: f64 = z.iter().enumerate().map(|(i, zi)| zi[0] * q(i, i) + 2.0 * (zi[1] * q(i, i + 1) + zi[2] * q(i, i + 2))).sum();
             tr = self.n as f64 - lambda * t;
         }
         Ok((gamma, g, tr))

@@ -171,6 +171,10 @@ pub struct DuctApp {
     /// The centreline refitted after an edit, off the UI thread, with the document's fit
     /// generation it answers (an answer to an older request is dropped).
     refit: Option<(u64, Job<Result<ductline::centreline::Centreline, String>>)>,
+    /// After an edit of a measured specimen, the profile follows in the background: first at a
+    /// coarse step (a preview within tens of milliseconds), then at the document's step. The
+    /// fit generation it answers for, the job, and whether it is the full one.
+    live: Option<(u64, Job<MeasureAnswer>, bool)>,
     /// The system file dialog, running on its own thread, and when it was opened.
     dialog: Option<(Pending, Receiver<Option<PathBuf>>, Instant)>,
     /// ductline's own file dialog: used when the system one is unavailable or fails.
@@ -242,6 +246,7 @@ impl DuctApp {
             tracing: None,
             overview: None,
             refit: None,
+            live: None,
             dialog: None,
             in_app: None,
             // the system dialog talks to the desktop portal over the session bus
@@ -287,13 +292,50 @@ impl DuctApp {
         self.refit = Some((d.fit_gen, Job::spawn("fitting", move |_| ductline::pipeline::fit(&items, &fit, voxel).map_err(|e| e.to_string()))));
     }
 
+    /// Re-measures the document in the background after an edit (`full`: at the document's
+    /// step; else a preview at five times it, at least 0.5 mm), replacing any earlier one.
+    fn live_measure(&mut self, full: bool) {
+        let Some(doc) = &self.doc else { return };
+        let Ok(gw) = Greenwood::preset(&doc.species) else { return };
+        if let Some((_, j, _)) = &self.live {
+            j.progress.cancel();
+        }
+        let Ok(cl) = doc.fitted.clone() else { return };
+        let (st, mut ms, ov) = (doc.stack.clone(), doc.measure.clone(), doc.overrides.clone());
+        if !full {
+            ms.step_mm = (5.0 * ms.step_mm).max(0.5);
+        }
+        let label = if full { "measuring" } else { "previewing" };
+        self.live =
+            Some((doc.fit_gen, Job::spawn(label, move |p| ductline::pipeline::measure_fitted(&st, cl, &ms, &ov, &gw, p).map_err(|e| e.to_string())), full));
+    }
+
     /// Finishes background work whose result has arrived.
     pub fn poll(&mut self) {
         if let Some((generation, res)) = self.refit.as_ref().and_then(|(g, j)| j.poll().map(|r| (*g, r))) {
             self.refit = None;
             if let Some(d) = self.doc.as_mut().filter(|d| d.fit_gen == generation) {
+                let fitted = res.is_ok();
                 d.fitted = res;
                 d.stale = true;
+                if fitted && d.outcome.is_some() && self.run.is_none() {
+                    self.live_measure(false);
+                }
+            }
+        }
+        if let Some((generation, res, full)) = self.live.as_ref().and_then(|(g, j, f)| j.poll().map(|r| (*g, r, *f))) {
+            self.live = None;
+            if let (Some(d), Ok(out)) = (self.doc.as_mut().filter(|d| d.fit_gen == generation && self.run.is_none()), res) {
+                let s_sel = self.selected_row.and_then(|i| d.outcome.as_ref()?.rows.get(i).map(|r| r.s_mm));
+                self.selected_row = s_sel.map(|s| nearest_row(&out.rows, s));
+                d.outcome = Some(out);
+                if full {
+                    d.stale = false;
+                    self.status = d.outcome.as_ref().map(|o| o.summary()).unwrap_or_default();
+                } else {
+                    self.status = "profile previewed at a coarse step; measuring every section…".into();
+                    self.live_measure(true);
+                }
             }
         }
         if let Some(res) = self.load.as_ref().and_then(|j| j.poll()) {
@@ -722,6 +764,9 @@ impl DuctApp {
                 None => Err("measure first".into()),
             },
             Cmd::Measure => {
+                if let Some((_, j, _)) = self.live.take() {
+                    j.progress.cancel();
+                }
                 let gw = Greenwood::preset(&doc.species).map_err(|e| e.to_string());
                 match gw {
                     Ok(gw) => {
@@ -1176,8 +1221,8 @@ impl DuctApp {
             ctx.send_viewport_cmd(egui::ViewportCommand::Title(title.clone()));
             self.title = title;
         }
-        if self.fitting() {
-            // a refit answers within tens of milliseconds: look again soon
+        if self.fitting() || self.live.is_some() {
+            // a refit or a profile preview answers within tens of milliseconds: look again soon
             ctx.request_repaint_after(Duration::from_millis(15));
         } else if self.busy() || self.dialog.is_some() || self.in_app.is_some() {
             ctx.request_repaint_after(Duration::from_millis(100));
@@ -1277,4 +1322,12 @@ fn install_fonts(ctx: &egui::Context) {
             .collect();
         ctx.add_font(FontInsert::new(name, egui::FontData::from_static(data), families));
     }
+}
+
+/// What a background measure answers.
+type MeasureAnswer = Result<ductline::pipeline::Outcome, String>;
+
+/// The row nearest to distance `s` (mm) along the centreline (0 when there are none).
+fn nearest_row(rows: &[ductline::measure::Row], s: f64) -> usize {
+    (0..rows.len()).min_by(|&a, &b| (rows[a].s_mm - s).abs().total_cmp(&(rows[b].s_mm - s).abs())).unwrap_or(0)
 }

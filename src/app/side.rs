@@ -133,22 +133,16 @@ impl Side {
                         ui.label(format!("basal diameter A not given: {why}"));
                     }
                 }
+                // (the fit may answer for the landmarks of a moment ago while a refit runs)
                 for (i, t, r) in c.flagged() {
-                    ui.colored_label(
-                        palette::OUTLIER,
-                        format!("#{} ({}) at {:.0}° lies {r:.3} mm from the fit (ringed)", i + 1, doc.lms.items[i].kind.as_str(), t.to_degrees()),
-                    );
+                    let Some(l) = doc.lms.items.get(i) else { continue };
+                    ui.colored_label(palette::OUTLIER, format!("#{} ({}) at {:.0}° lies {r:.3} mm from the fit (ringed)", i + 1, l.kind.as_str(), t.to_degrees()));
                 }
                 for (i, t, alt) in &c.ambiguous {
+                    let Some(l) = doc.lms.items.get(*i) else { continue };
                     ui.colored_label(
                         palette::FLAG,
-                        format!(
-                            "#{} ({}) at {:.0}° could belong to the turn at {:.0}°",
-                            i + 1,
-                            doc.lms.items[*i].kind.as_str(),
-                            t.to_degrees(),
-                            alt.to_degrees()
-                        ),
+                        format!("#{} ({}) at {:.0}° could belong to the turn at {:.0}°", i + 1, l.kind.as_str(), t.to_degrees(), alt.to_degrees()),
                     );
                 }
             }

@@ -812,6 +812,27 @@ fn frame_time() {
     wait(&mut h, "the measure", |a| !a.busy());
     let measure = t.elapsed().as_secs_f64() * 1000.0;
     eprintln!("bundled sample: refit after a drag {refit:.1} ms; measure for the profile {measure:.0} ms (background; includes frames stepped while waiting)");
+    // with a measured specimen, a drag: when the profile's preview and then the full profile
+    // are in (frames stepped every 2 ms while waiting)
+    let (i, p) = h.state().doc.as_ref().unwrap().lms.items.iter().enumerate().find(|(_, l)| l.kind == Kind::Ligament).map(|(i, l)| (i, l.p)).unwrap();
+    h.state_mut().apply(Cmd::Edit(ductline::landmarks::Edit::Move { index: i, to: [p[0] + 0.02, p[1], p[2]] }));
+    let rows = |a: &DuctApp| a.doc.as_ref().unwrap().outcome.as_ref().unwrap().rows.len();
+    let full_rows = rows(h.state());
+    let t = Instant::now();
+    h.state_mut().request_refit();
+    let (mut preview, mut full) = (f64::NAN, f64::NAN);
+    while t.elapsed().as_secs() < 20 && full.is_nan() {
+        h.step();
+        let a = h.state();
+        if preview.is_nan() && rows(a) < full_rows {
+            preview = t.elapsed().as_secs_f64() * 1000.0;
+        }
+        if !a.fitting() && a.live.is_none() && !a.doc.as_ref().unwrap().stale {
+            full = t.elapsed().as_secs_f64() * 1000.0;
+        }
+        std::thread::sleep(Duration::from_millis(2));
+    }
+    eprintln!("bundled sample, measured: after a drag the fit and a preview profile are in after {preview:.0} ms, the full profile after {full:.0} ms");
 }
 
 /// The plan map shows the cochlea turned as the slice view does (x right, y down), not mirrored:
@@ -873,6 +894,42 @@ fn the_refit_runs_in_the_background() {
     assert!(h.state().doc.as_ref().unwrap().fit_gen > stale);
     wait(&mut h, "the overtaken refit", |a| !a.fitting());
     assert!((len(&h) - before).abs() < 1e-12, "the fit of the undone state stands: {} vs {before}", len(&h));
+}
+
+/// After an edit of a measured specimen the profile follows by itself, off the UI thread: a
+/// preview at a coarse step, then every section; the result is the one an explicit measure of
+/// the edited landmarks gives, and an edit made meanwhile wins over an older answer.
+#[test]
+fn the_profile_follows_a_drag() {
+    let mut h = harness(Some(sample_path()));
+    wait(&mut h, "the sample", |a| a.doc.is_some());
+    h.state_mut().apply(Cmd::Measure);
+    wait(&mut h, "the measure", |a| !a.busy());
+    let outcome = |h: &Harness<'static, DuctApp>| h.state().doc.as_ref().unwrap().outcome.clone().unwrap();
+    let before = outcome(&h);
+    let (i, p) = h.state().doc.as_ref().unwrap().lms.items.iter().enumerate().find(|(_, l)| l.kind == Kind::Ligament).map(|(i, l)| (i, l.p)).unwrap();
+    h.state_mut().apply(Cmd::Edit(ductline::landmarks::Edit::Move { index: i, to: [p[0] + 0.15, p[1] + 0.1, p[2]] }));
+    h.state_mut().request_refit();
+    wait(&mut h, "the live profile", |a| !a.fitting() && a.live.is_none() && !a.doc.as_ref().unwrap().stale);
+    let after = outcome(&h);
+    assert!(after.rows.len().abs_diff(before.rows.len()) <= 2, "{} rows vs {}", after.rows.len(), before.rows.len());
+    assert!(after.rows.iter().zip(&before.rows).any(|(a, b)| a.sv.area != b.sv.area), "the profile follows the edit");
+    // the same as measuring the edited landmarks explicitly
+    let doc = h.state().doc.as_ref().unwrap();
+    let gw = ductline::cochlea::Greenwood::preset(&doc.species).unwrap();
+    let direct = ductline::pipeline::run(&doc.stack, &doc.lms.items, &doc.fit, &doc.measure, &doc.overrides, &gw, &Default::default()).unwrap();
+    assert_eq!(direct.rows.len(), after.rows.len());
+    for (a, b) in direct.rows.iter().zip(&after.rows) {
+        assert!(a.s_mm == b.s_mm && a.sv.area == b.sv.area && a.st.area == b.st.area, "at s {} mm: {:?} vs {:?}", a.s_mm, a.sv.area, b.sv.area);
+    }
+    // an answer overtaken by an undo is dropped: the profile ends at the undone landmarks
+    h.state_mut().request_refit();
+    h.state_mut().apply(Cmd::Undo);
+    h.state_mut().request_refit();
+    wait(&mut h, "the live profile after the undo", |a| !a.fitting() && a.live.is_none() && !a.doc.as_ref().unwrap().stale);
+    let undone = outcome(&h);
+    assert_eq!(undone.rows.len(), before.rows.len());
+    assert!(undone.rows.iter().zip(&before.rows).all(|(a, b)| a.s_mm == b.s_mm && a.sv.area == b.sv.area && a.st.area == b.st.area));
 }
 
 /// The layout from the smallest supported window up: at 1100×700 and 1600×1000, with a
