@@ -277,6 +277,8 @@ pub fn trace(stack: &Stack, seeds: &[Landmark], step_deg: f64) -> Result<Trace> 
     let mut r_min = ducts.first().map_or(f64::INFINITY, |d| d.0.r);
     let mut angle = start;
     let mut weak = 0;
+    // the number of points of each run of steps found one after another (a failed step ends a run)
+    let mut runs: Vec<usize> = vec![];
     // the last angle with accepted points
     let mut last_ok = start;
     let (reason, stopped) = loop {
@@ -352,6 +354,10 @@ pub fn trace(stack: &Stack, seeds: &[Landmark], step_deg: f64) -> Result<Trace> 
         }
         match found {
             Ok((l, g, conf)) => {
+                if weak > 0 || runs.is_empty() {
+                    runs.push(0);
+                }
+                *runs.last_mut().unwrap() += 1;
                 weak = 0;
                 for (e, kind) in [(l, Kind::Lamina), (g, Kind::Ligament)] {
                     let p = frame.to_stack(e.r, e.angle, e.h);
@@ -372,7 +378,40 @@ pub fn trace(stack: &Stack, seeds: &[Landmark], step_deg: f64) -> Result<Trace> 
             }
         }
     };
+    // past the duct's end the search can still find a shelf, a wall or a dark blob in what lies
+    // beyond (the apical cap, the modiolus): a tail of points turning outward is dropped
+    let (mut stopped, mut reason) = (stopped, reason);
+    // a short run found again after a gap, with nothing after it, is something beyond the duct
+    if runs.len() > 1 && runs.last().is_some_and(|&n| n < 3) {
+        let n = runs.pop().unwrap();
+        let from = lam[lam.len() - n].angle;
+        lam.truncate(lam.len() - n);
+        lig.truncate(lig.len() - n);
+        proposed.retain(|p| p.angle_deg < from);
+        stopped = proposed.last().map_or(start, |p| p.angle_deg);
+        reason = format!("{reason} (the last points, found again past a gap, are left out)");
+    }
+    while lam.len() > 1 && proposed.last().is_some_and(|p| p.angle_deg > start) {
+        let (l, g) = (lam[lam.len() - 1], lig[lig.len() - 1]);
+        if !(outward(&lam[..lam.len() - 1], l, g.r - l.r) || outward(&lig[..lig.len() - 1], g, g.r - l.r)) {
+            break;
+        }
+        lam.pop();
+        lig.pop();
+        proposed.retain(|p| p.angle_deg < l.angle);
+        stopped = proposed.last().map_or(start, |p| p.angle_deg);
+        reason = "the partition turns outward past here (the duct's end?)".to_string();
+    }
     Ok(Trace { frame, proposed, stopped_deg: stopped.max(start), reason })
+}
+
+/// Whether edge point `e` lies farther from the axis than its curve did anywhere over the half
+/// turn before it, by more than 0.15 of the partition's `width`: past the basal turn (540° on) a
+/// cochlea's spiral only tightens, so such a point lies beyond the duct's end. (Nearer the base
+/// the turn can widen before it tightens.)
+fn outward(curve: &[Edge], e: Edge, width: f64) -> bool {
+    e.angle >= 540.0
+        && curve.iter().filter(|c| c.angle >= e.angle - 180.0 && c.angle < e.angle).map(|c| c.r).reduce(f64::min).is_some_and(|m| e.r > m + 0.15 * width)
 }
 
 /// The lamina tip, the ligament point and a confidence in one cut, given their predictions.

@@ -49,7 +49,7 @@ fn run(spec: PhantomSpec) -> (f64, f64, f64) {
 /// From seven points, on the default phantom and on family members at 30–50 µm (thin shelf
 /// tapering toward the apex, limbus, ligament, scanner effects; left and right ears): the
 /// proposals lie within 1 voxel (median) and 2 voxels (p95) of the true edge curves and reach at
-/// least 95 % of the true angular depth. Member 8 (35 × 35 × 50 µm, tilted) is traced and printed
+/// least 95 % of the true angular depth, and no more than 40° past it (the duct runs 25° on). Member 8 (35 × 35 × 50 µm, tilted) is traced and printed
 /// but not held: it reaches its full depth, but its proposals stray up to 2.3 voxels (p95; the
 /// README says so).
 #[test]
@@ -63,12 +63,13 @@ fn proposals_follow_the_true_edges() {
         if only.is_some_and(|o| Some(o) != n) {
             continue;
         }
+        let tmax = spec.theta_max().to_degrees();
         let (med, p95, depth) = run(spec);
         if n == Some(8) {
             continue;
         }
         assert!(med <= 1.0 && p95 <= 2.0, "member {n:?}: off the edges median {med:.2}, p95 {p95:.2} voxels");
-        assert!(depth >= 0.95, "member {n:?}: reached {:.0} % of the depth", 100.0 * depth);
+        assert!(depth >= 0.95 && depth * tmax <= tmax + 40.0, "member {n:?}: reached {:.0} % of the depth", 100.0 * depth);
     }
 }
 
@@ -77,15 +78,16 @@ fn proposals_follow_the_true_edges() {
 /// kept where they lay relative to it at the seeds) and marks those points as guesses (confidence
 /// under 0.5). Members 0, 1 (a left ear, whose seeds on the window's own line used to turn the
 /// frame the wrong way), 5 and 11 (air-filled): before, no proposal at all; now at least 95 % of
-/// the true depth, proposals within 1.5 voxels of the true edges (median), no more than 60° past
-/// the end of the duct (the phantom's duct runs 25° past its last landmark).
+/// the true depth, proposals within 1.5 voxels of the true edges (median), no more than 40° past
+/// the last landmark (the phantom's duct runs 25° past it; beyond, the tracer used to follow the
+/// apical cap or the modiolus for up to 60° more, lengthening the midline by up to 10 %).
 #[test]
 fn clinical_resolution_follows_the_lumen() {
     for n in [0, 1, 5, 11] {
         let spec = PhantomSpec { truth_step_deg: 30.0, ..PhantomSpec::variant(n, [150.0; 3]) };
         let tmax = spec.theta_max().to_degrees();
         let (med, _, depth) = run(spec);
-        assert!(depth >= 0.95 && depth * tmax <= tmax + 60.0, "member {n}: reached {:.0} % of the depth", 100.0 * depth);
+        assert!(depth >= 0.95 && depth * tmax <= tmax + 40.0, "member {n}: reached {:.0} % of the depth", 100.0 * depth);
         assert!(med <= 1.5, "member {n}: off the edges median {med:.2} voxels");
     }
 }

@@ -136,7 +136,10 @@ impl Side {
                 // (the fit may answer for the landmarks of a moment ago while a refit runs)
                 for (i, t, r) in c.flagged() {
                     let Some(l) = doc.lms.items.get(i) else { continue };
-                    ui.colored_label(palette::OUTLIER, format!("#{} ({}) at {:.0}° lies {r:.3} mm from the fit (ringed)", i + 1, l.kind.as_str(), t.to_degrees()));
+                    ui.colored_label(
+                        palette::OUTLIER,
+                        format!("#{} ({}) at {:.0}° lies {r:.3} mm from the fit (ringed)", i + 1, l.kind.as_str(), t.to_degrees()),
+                    );
                 }
                 for (i, t, alt) in &c.ambiguous {
                     let Some(l) = doc.lms.items.get(*i) else { continue };
