@@ -446,15 +446,7 @@ fn reads_pydicoms_real_scans_like_pydicom() {
     let files = manifest["dicom_real"].as_array().unwrap();
     assert!(!files.is_empty(), "the fixture script found no real DICOM scan in the pydicom package");
     for f in files {
-        let name = f["name"].as_str().unwrap();
-        let st = load(&fixture(&format!("dicom/{name}"))).unwrap_or_else(|e| panic!("{name}: {e}"));
-        let shape: Vec<usize> = f["shape"].as_array().unwrap().iter().map(|x| x.as_u64().unwrap() as usize).collect();
-        assert_eq!(st.dims.to_vec(), shape, "{name}");
-        let raw = std::fs::read(fixture(&format!("dicom/{name}.expected.raw"))).unwrap();
-        let want: Vec<f64> = raw.chunks_exact(8).map(|c| f64::from_le_bytes(c.try_into().unwrap())).collect();
-        assert_eq!(want.len(), st.samples.len(), "{name}");
-        let wrong = want.iter().enumerate().filter(|(i, w)| (st.samples.get(*i) as f64 - **w).abs() > 1e-6 * w.abs().max(1.0)).count();
-        assert_eq!(wrong, 0, "{name}: {wrong} samples differ from pydicom's");
+        let (name, st) = (f["name"].as_str().unwrap(), same_values("dicom", f));
         let ps: Vec<f64> = f["pixel_spacing"].as_array().unwrap().iter().map(|x| x.as_f64().unwrap()).collect();
         let vox = st.voxel.unwrap();
         assert!((vox.mm[0] - ps[1]).abs() < 1e-9 && (vox.mm[1] - ps[0]).abs() < 1e-9, "{name}: {:?} vs {ps:?}", vox.mm);
@@ -474,10 +466,9 @@ fn world_points_come_home(name: &str, affine: &serde_json::Value, world: &stack:
     }
 }
 
-/// A volume fixture read as its writing library reads it back (manifest entry `f` under `dir`):
-/// shape, every sample, voxel sizes (manifest key `sizes`) and the world transform in `frame`,
-/// to `tol`; and world points come home through `World::to_stack`.
-fn matches_reference(dir: &str, f: &serde_json::Value, sizes: &str, frame: &str, tol: f64) {
+/// The fixture of manifest entry `f` under `dir`, loaded: its shape and every sample (to 1e-6
+/// relative) as the writing library reads them back (`NAME.expected.raw`, float64).
+fn same_values(dir: &str, f: &serde_json::Value) -> stack::Stack {
     let name = f["name"].as_str().unwrap();
     let st = load(&fixture(&format!("{dir}/{name}"))).unwrap_or_else(|e| panic!("{name}: {e}"));
     let shape: Vec<usize> = f["shape"].as_array().unwrap().iter().map(|x| x.as_u64().unwrap() as usize).collect();
@@ -489,6 +480,14 @@ fn matches_reference(dir: &str, f: &serde_json::Value, sizes: &str, frame: &str,
         let got = st.samples.get(i) as f64;
         assert!((got - w).abs() <= 1e-6 * w.abs().max(1.0), "{name}: sample {i}: {got} vs {w}");
     }
+    st
+}
+
+/// A volume fixture read as its writing library reads it back (manifest entry `f` under `dir`):
+/// shape, every sample, voxel sizes (manifest key `sizes`) and the world transform in `frame`,
+/// to `tol`; and world points come home through `World::to_stack`.
+fn matches_reference(dir: &str, f: &serde_json::Value, sizes: &str, frame: &str, tol: f64) {
+    let (name, st) = (f["name"].as_str().unwrap(), same_values(dir, f));
     let size: Vec<f64> = f[sizes].as_array().unwrap().iter().map(|x| x.as_f64().unwrap()).collect();
     let vox = st.voxel.as_ref().unwrap_or_else(|| panic!("{name}: no voxel size"));
     for a in 0..3 {
