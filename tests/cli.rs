@@ -354,8 +354,10 @@ fn world_frame_landmarks_in_and_points_out() {
     for (ra, rb) in a.iter().zip(&b) {
         for name in ["sv_area_mm2", "st_area_mm2", "radius_mm", "flags"] {
             let (x, y) = (&ra[col(name)], &rb[col(name)]);
+            // the table prints six decimals, and landmarks taken through the world transform and
+            // back differ in their last bits: a value on a rounding edge prints one unit apart
             match (x.parse::<f64>(), y.parse::<f64>()) {
-                (Ok(x), Ok(y)) => assert!((x - y).abs() <= 1e-6 * x.abs().max(1.0), "{name}: {x} vs {y}"),
+                (Ok(x), Ok(y)) => assert!((x - y).abs() <= 1.5e-6 * x.abs().max(1.0), "{name}: {x} vs {y}"),
                 _ => assert_eq!(x, y, "{name}"),
             }
         }
