@@ -409,6 +409,11 @@ impl DuctApp {
     }
 
     fn loaded(&mut self, l: Loaded) {
+        // background answers for the document being replaced are dropped with it
+        if let Some((_, j, _)) = self.live.take() {
+            j.progress.cancel();
+        }
+        self.refit = None;
         let mut doc = Doc::new(l.stack, l.stack_path.clone(), l.looks);
         doc.fingerprint = l.fingerprint;
         doc.autosave_dir = self.autosave_dir.clone();
