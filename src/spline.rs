@@ -89,10 +89,6 @@ impl Band {
     fn inverse_band(&self) -> Vec<[f64; 3]> {
         let m = self.rows.len();
         let mut z = vec![[0.0f64; 3]; m];
-        let zget = |z: &[[f64; 3]], a: usize, b: usize| {
-            let (a, b) = if a <= b { (a, b) } else { (b, a) };
-            if b - a > 2 || b >= m { 0.0 } else { z[a][b - a] }
-        };
         for i in (0..m).rev() {
             let uii = self.get(i, i);
             for d in (0..3).rev() {
@@ -102,13 +98,20 @@ impl Band {
                 }
                 let mut s = if d == 0 { 1.0 / uii } else { 0.0 };
                 for k in i + 1..(i + 3).min(m) {
-                    s -= self.get(k, i) * zget(&z, k, j);
+                    s -= self.get(k, i) * band_at(&z, k, j);
                 }
                 z[i][d] = s / uii;
             }
         }
         z
     }
+}
+
+/// Entry (a, b) of a symmetric matrix kept as its band rows [z(i,i), z(i,i+1), z(i,i+2)]
+/// ([`Band::inverse_band`]); 0 outside the band or the matrix.
+fn band_at(z: &[[f64; 3]], a: usize, b: usize) -> f64 {
+    let (a, b) = if a <= b { (a, b) } else { (b, a) };
+    if b - a > 2 || b >= z.len() { 0.0 } else { z[a][b - a] }
 }
 
 struct System {
@@ -186,14 +189,11 @@ impl System {
     fn leverage(&self, l: &Band, lambda: f64) -> Vec<f64> {
         // row i of Q has its entries within two columns of each other: only M⁻¹'s band is needed
         let z = l.inverse_band();
-        let zget = |a: usize, b: usize| {
-            let (a, b) = if a <= b { (a, b) } else { (b, a) };
-            z[a][b - a]
-        };
         (0..self.n)
             .map(|i| {
                 let row = self.q_row(i);
-                let quad: f64 = row.iter().flat_map(|&(a, va)| row.iter().map(move |&(b, vb)| (a, va, b, vb))).map(|(a, va, b, vb)| va * vb * zget(a, b)).sum();
+                let quad: f64 =
+                    row.iter().flat_map(|&(a, va)| row.iter().map(move |&(b, vb)| (a, va, b, vb))).map(|(a, va, b, vb)| va * vb * band_at(&z, a, b)).sum();
                 1.0 - lambda * self.winv[i] * quad
             })
             .collect()

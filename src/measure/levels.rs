@@ -332,31 +332,23 @@ fn fit_layer(f: &[f32], lv: &Levels, sigma: f64, xt: f64, xb: f64) -> Option<(f6
     let sse = |a: f64, c: f64| -> f64 {
         f.iter().enumerate().map(|(i, &y)| (y as f64 - l - (t - l) * phi((i as f64 - a) / sigma) - (b - t) * phi((i as f64 - c) / sigma)).powi(2)).sum()
     };
-    let mut best = (f64::INFINITY, xt, xb);
-    for i in -6..=6 {
-        let a = xt + 0.5 * i as f64;
-        for j in -6..=6 {
-            let c = xb + 0.5 * j as f64;
-            if c >= a {
-                let e = sse(a, c);
-                if e < best.0 {
-                    best = (e, a, c);
+    // (error, a, c) of the best pair so far, improved over a square grid of ±k steps about (a0, c0)
+    let search = |mut best: (f64, f64, f64), (a0, c0): (f64, f64), step: f64, k: i32| {
+        for i in -k..=k {
+            for j in -k..=k {
+                let (a, c) = (a0 + step * i as f64, c0 + step * j as f64);
+                if c >= a {
+                    let e = sse(a, c);
+                    if e < best.0 {
+                        best = (e, a, c);
+                    }
                 }
             }
         }
-    }
-    let (a0, c0) = (best.1, best.2);
-    for i in -4..=4 {
-        for j in -4..=4 {
-            let (a, c) = (a0 + 0.125 * i as f64, c0 + 0.125 * j as f64);
-            if c >= a {
-                let e = sse(a, c);
-                if e < best.0 {
-                    best = (e, a, c);
-                }
-            }
-        }
-    }
+        best
+    };
+    let coarse = search((f64::INFINITY, xt, xb), (xt, xb), 0.5, 6);
+    let best = search(coarse, (coarse.1, coarse.2), 0.125, 4);
     Some((best.1, best.2))
 }
 
