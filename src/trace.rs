@@ -507,6 +507,17 @@ fn find(cut: &Cut, pl: Edge, pg: Edge, vmax: f64) -> std::result::Result<(Edge, 
             break;
         }
     }
+    // Where the first rise does not level off within three voxels, the spiral ligament is too
+    // thin for the blur to show its own level, and the half level above lies past the lumen's
+    // edge (by about a voxel at a blur of one). Then the rise is fitted by a blurred
+    // lumen | soft tissue | bone model and the lumen edge is its first step.
+    if grad(flat) >= 0.25 * steep {
+        let a = ga.max(cut.col(rg - 0.25 * width));
+        let b = (flat + 2 * vox_n).min(cut.nr - 1);
+        if let Some(x) = layered_edge(&prof[a..=b], lumen, 1.5 * vox_n as f64) {
+            rg = cut.r0 + (a as f64 + x) * cut.pitch;
+        }
+    }
     // 3. lamina tip: the ridge along the partition falls from the shelf to the lumen
     // brightness over the darker side (the limbus may pad the shelf's other side), smoothed over
     // five samples along r
@@ -551,6 +562,75 @@ fn find(cut: &Cut, pl: Edge, pg: Edge, vmax: f64) -> std::result::Result<(Edge, 
     let wall_snr = (top - lumen) / noise;
     let conf = (ridge_snr / 4.0).min(1.0) * (wall_snr / 6.0).min(1.0) * ((s_in - s_out) / (4.0 * noise)).min(1.0);
     Ok((Edge { angle: pl.angle, r: rl, h }, Edge { angle: pg.angle, r: rg, h }, conf.max(0.0)))
+}
+
+/// The lumen edge (in samples) of a profile `p` that rises from the lumen level `lumen` to bone
+/// through a soft-tissue layer: the first step a of the blurred model
+/// m(x) = L + (T − L)·Φ((x − a)/σ) + (B − T)·Φ((x − a − w)/σ) fitted in least squares (T and B
+/// linear for each a, w, σ ≤ `smax` samples; whole samples, then eighths about the best). None
+/// where the first step is under a tenth of the whole rise (no layer: the edge is the bone's) or
+/// above two thirds of it (no bone behind), or the fit fails.
+fn layered_edge(p: &[f64], lumen: f64, smax: f64) -> Option<f64> {
+    use crate::measure::phi;
+    let n = p.len();
+    if n < 6 {
+        return None;
+    }
+    let y: Vec<f64> = p.iter().map(|v| v - lumen).collect();
+    let yy: f64 = y.iter().map(|v| v * v).sum();
+    // (sse, [first step, second step]) for one (a, w, σ)
+    let fit = |a: f64, w: f64, s: f64| -> Option<(f64, [f64; 2])> {
+        let (mut m, mut r) = ([[0.0f64; 2]; 2], [0.0f64; 2]);
+        for (i, &v) in y.iter().enumerate() {
+            let f = [phi((i as f64 - a) / s), phi((i as f64 - a - w) / s)];
+            for u in 0..2 {
+                r[u] += f[u] * v;
+                for t in 0..2 {
+                    m[u][t] += f[u] * f[t];
+                }
+            }
+        }
+        let det = m[0][0] * m[1][1] - m[0][1] * m[1][0];
+        if !(det.abs() > 1e-9 * (m[0][0] * m[1][1]).abs().max(1e-300)) {
+            return None;
+        }
+        let c = [(r[0] * m[1][1] - r[1] * m[0][1]) / det, (m[0][0] * r[1] - m[1][0] * r[0]) / det];
+        let fitted: f64 = (0..2).map(|u| c[u] * (0..2).map(|t| m[u][t] * c[t]).sum::<f64>()).sum();
+        Some((yy - 2.0 * (c[0] * r[0] + c[1] * r[1]) + fitted, c))
+    };
+    type Best = (f64, [f64; 2], f64, f64, f64); // sse, steps, a, w, σ
+    let mut best: Best = (f64::INFINITY, [0.0; 2], 0.0, 0.0, 1.0);
+    let consider = |best: &mut Best, a: f64, w: f64, s: f64| {
+        if let Some((e, c)) = fit(a, w, s)
+            && e < best.0
+            && c[0] >= 0.0
+            && c[1] >= 0.0
+        {
+            *best = (e, c, a, w, s);
+        }
+    };
+    let sigmas: Vec<f64> = (1..=((smax / 0.25) as usize).max(2)).map(|k| 0.25 * k as f64 + 0.25).collect();
+    for &s in &sigmas {
+        for a in 0..n {
+            for w in 1..n - a {
+                consider(&mut best, a as f64, w as f64, s);
+            }
+        }
+    }
+    let (a0, w0, s0) = (best.2, best.3, best.4);
+    for da in -8..=8 {
+        for dw in -8..=8 {
+            for ds in -2..=2 {
+                let (a, w, s) = (a0 + da as f64 / 8.0, w0 + dw as f64 / 8.0, s0 + ds as f64 / 8.0);
+                if w > 0.0 && s >= 0.5 {
+                    consider(&mut best, a, w, s);
+                }
+            }
+        }
+    }
+    let (_, [t, b], a, _, _) = best;
+    let whole = t + b;
+    (whole > 0.0 && t >= 0.1 * whole && t <= 0.67 * whole).then_some(a)
 }
 
 /// Where the partition's ends lie near a guess, for snapping a click: `lamina` and `ligament`

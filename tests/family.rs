@@ -147,6 +147,12 @@ fn family_sweep() {
         // areas on nearly every section: no leaks, levels found without thick bone
         assert!(measured >= 0.9, "member {}: areas on {:.0} % of sections", m.n, 100.0 * measured);
         assert!(leaks * 20 <= inner.len(), "member {}: {leaks} of {} sections open or without levels", m.n, inner.len());
+        // the floor for thin-walled phantoms: sound sections (no flag at all, so no wall
+        // read under one voxel from a one-profile scatter either)
+        assert!(sound >= 0.95, "member {}: {:.0} % of sections sound", m.n, 100.0 * sound);
+        // the lateral wall, the median of its rows' errors, within half a voxel (largest side)
+        let vox = m.voxel.iter().fold(0.0f64, |a, &b| a.max(b)) / 1000.0;
+        assert!(lm <= 0.5 * vox, "member {}: wall median error {:.1} µm", m.n, 1000.0 * lm);
         worst_sv = worst_sv.max(svm);
         worst_st = worst_st.max(stm);
     }

@@ -522,7 +522,7 @@ pub(super) enum Wall {
 
 /// The standard normal distribution function (Abramowitz & Stegun 7.1.26 for erf, error
 /// under 1.5e-7).
-pub(super) fn phi(z: f64) -> f64 {
+pub(crate) fn phi(z: f64) -> f64 {
     let x = z.abs() / std::f64::consts::SQRT_2;
     let t = 1.0 / (1.0 + 0.327_591_1 * x);
     let y = 1.0 - (((((1.061_405_429 * t - 1.453_152_027) * t) + 1.421_413_741) * t - 0.284_496_736) * t + 0.254_829_592) * t * (-x * x).exp();

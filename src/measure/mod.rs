@@ -35,10 +35,12 @@
 //!    tissue − lumen), which holds however thin the layer: a ligament tapering to nothing is
 //!    neither half fluid nor cut off. Pixels nearer to another lumen region are left to it.
 //! 5. Wall ([`wall`]): along the partition direction outward, from where bone starts to where it
-//!    ends. Width and wall under one voxel are flagged `below_resolution` and left blank.
+//!    ends; each row reports the median over ±0.5 mm of s (`walls_along`). Width and wall under
+//!    one voxel are flagged `below_resolution` and left blank.
 
 mod areas;
 mod levels;
+pub(crate) use levels::phi;
 mod regions;
 mod wall;
 
@@ -299,7 +301,7 @@ pub fn measure(
     // wall profile anywhere: the tube's soft-tissue peak if it has one (see `levels::pooled`),
     // else two materials.
     let layered: Vec<(usize, levels::Wall)> = fitted.iter().copied().filter(|f| matches!(f.1, levels::Wall::Layer(_))).collect();
-    let fitted = if 2 * layered.len() > fitted.len() { layered } else { fitted };
+    let fitted = if 3 * layered.len() >= fitted.len() && !layered.is_empty() { layered } else { fitted };
     for (i, lv) in auto.iter_mut().enumerate() {
         if let (Some(lv), Some(&(_, wall))) = (lv.as_mut(), fitted.iter().min_by_key(|f| f.0.abs_diff(i))) {
             lv.tissue = match wall {
@@ -349,7 +351,36 @@ pub fn measure(
             Ok(row)
         })
         .collect::<Result<Vec<Row>>>()?;
+    let mut rows = rows;
+    walls_along(&mut rows, vmax);
     Ok((geoms, rows))
+}
+
+/// Half-length (mm along s) of the stretch whose median wall a row reports.
+const WALL_WINDOW_MM: f64 = 0.5;
+
+/// Each row's wall becomes the median of the walls measured within ±[`WALL_WINDOW_MM`] of it
+/// (its own included; rows without a wall keep none): a wall of one or two voxels read from
+/// one profile scatters by a good part of a voxel, while the bony wall changes little over a
+/// millimetre. A median under one voxel (`vmax`, mm) is `below_resolution` and blank.
+fn walls_along(rows: &mut [Row], vmax: f64) {
+    let raw: Vec<(f64, Option<f64>)> = rows.iter().map(|r| (r.s_mm, r.wall_mm)).collect();
+    for (r, &(s, own)) in rows.iter_mut().zip(&raw) {
+        if own.is_none() {
+            continue;
+        }
+        let mut near: Vec<f64> = raw.iter().filter(|(t, _)| (t - s).abs() <= WALL_WINDOW_MM + 1e-9).filter_map(|x| x.1).collect();
+        near.sort_by(f64::total_cmp);
+        let m = near.len();
+        let median = if m % 2 == 1 { near[m / 2] } else { 0.5 * (near[m / 2 - 1] + near[m / 2]) };
+        r.wall_mm = Some(median);
+        if median < vmax {
+            r.wall_mm = None;
+            if !r.flags.contains(&Flag::BelowResolution) {
+                r.flags.push(Flag::BelowResolution);
+            }
+        }
+    }
 }
 
 /// The partition in a section: its line, midpoint and unit direction lamina → ligament (mm);
@@ -547,16 +578,10 @@ fn section_row(
         let [sv, st] = scalae;
         row.sv = sv;
         row.st = st;
+        // (a wall under one voxel is blanked by `walls_along`, once its neighbours are known)
         row.wall_mm = wall::wall(stack, g, mid, part.dir, pitch, s.capture_mm, &row.levels);
-        match row.wall_mm {
-            None => row.flags.push(Flag::NoWall),
-            Some(w) if w < vmax => {
-                row.wall_mm = None;
-                if !row.flags.contains(&Flag::BelowResolution) {
-                    row.flags.push(Flag::BelowResolution);
-                }
-            }
-            _ => {}
+        if row.wall_mm.is_none() {
+            row.flags.push(Flag::NoWall);
         }
         return row;
     }

@@ -9,7 +9,8 @@ use crate::with_samples;
 /// coordinates): past the lumen, the crossing into bone (halfway from soft tissue to bone, so a
 /// soft-tissue lining is not counted as wall), then the crossing out of it; a wall under three
 /// voxels by those crossings is measured by the bone it holds instead (see below). The profile is
-/// the mean of four lines at ±1 and ±2 pitches off the partition line.
+/// the mean of eight lines at ±1 to ±4 pitches off the partition line (a thin wall read from fewer
+/// scatters with the noise).
 pub(super) fn wall(stack: &Stack, g: &SectionGeom, mid: [f64; 2], dir: [f64; 2], pitch: f64, capture: f64, lv: &Levels) -> Option<f64> {
     let (lumen_cut, thr, bone) = (lv.lumen_cut(), lv.bone_cut(), lv.bone);
     let vox = stack.voxel.as_ref()?;
@@ -19,37 +20,46 @@ pub(super) fn wall(stack: &Stack, g: &SectionGeom, mid: [f64; 2], dir: [f64; 2],
     let prof: Vec<f32> = with_samples!(&stack.samples, data => (0..steps).map(|i| {
         let d = i as f64 * h;
         let mut acc = 0.0f32;
-        for o in [-2.0, -1.0, 1.0, 2.0] {
+        for o in [-4.0, -3.0, -2.0, -1.0, 1.0, 2.0, 3.0, 4.0] {
             let q = [mid[0] + d * dir[0] + o * pitch * normal[0], mid[1] + d * dir[1] + o * pitch * normal[1]];
             acc += section::trilinear_idx(data, stack.dims, stack.to_index(g.from_plane(q)));
         }
-        acc / 4.0
+        acc / 8.0
     }).collect());
     let cross = |i: usize, t: f32| -> f64 {
         let (a, b) = (prof[i - 1], prof[i]);
         ((i - 1) as f64 + ((t - a) / (b - a)).clamp(0.0, 1.0) as f64) * h
     };
     let first_dark = prof.iter().position(|x| x.is_finite() && *x < lumen_cut)?;
-    // a thin wall blurred below the soft-tissue/bone midpoint is looked for at the lumen/bone one
-    // (its thickness then comes from the bone it holds, below)
-    let (up, thr) = [thr, 0.5 * (lv.lumen + bone)]
-        .into_iter()
-        .find_map(|t| (first_dark + 1..prof.len()).find(|&i| !prof[i].is_finite() || prof[i] >= t).map(|i| (i, t)))?;
-    let down = (up + 1..prof.len()).find(|&i| !prof[i].is_finite() || prof[i] < thr)?;
-    if !prof[up].is_finite() || !prof[down].is_finite() {
-        return None;
+    // the profile up to where it leaves the stack
+    let end = (first_dark..prof.len()).find(|&i| !prof[i].is_finite()).unwrap_or(prof.len());
+    // The wall is the first bright run past the lumen (at the lumen/bone midpoint). It starts
+    // where it crosses the soft-tissue/bone midpoint; a thin wall blurred below that is taken at
+    // the lumen/bone one (its thickness then comes from the bone it holds, below).
+    let mut low = (0.5 * (lv.lumen + bone)).min(thr);
+    // A wall thinner than the blur (clinical CT) may not even reach that: then it is the first
+    // crest past the lumen standing a quarter of the lumen–bone step above the lumen, taken at
+    // half its height above the lumen.
+    if !(first_dark + 1..end).any(|i| prof[i] >= low) {
+        let rise = (first_dark + 1..end).find(|&i| prof[i] >= lv.lumen + 0.25 * (bone - lv.lumen))?;
+        let crest = (rise..end).take_while(|&i| i + 1 < end && prof[i + 1] >= prof[i]).last().map_or(rise, |i| i + 1);
+        low = 0.5 * (lv.lumen + prof[crest]);
     }
+    let first = (first_dark + 1..end).find(|&i| prof[i] >= low)?;
+    let run = (first..end).find(|&i| prof[i] < low).unwrap_or(end);
+    let (up, thr) = (first..run).find(|&i| prof[i] >= thr).map_or((first, low), |i| (i, thr));
+    let down = (up + 1..end).find(|&i| prof[i] < thr)?;
     // The outer edge's half level lies between bone and what is outside the wall, which need
     // not be fluid: take that level from the profile two to four voxels beyond the edge.
     let k = (vox.max() / h).ceil() as usize;
-    let mut outside: Vec<f32> = prof.get(down + 2 * k..(down + 4 * k).min(prof.len()))?.iter().copied().filter(|x| x.is_finite()).collect();
+    let mut outside: Vec<f32> = prof.get(down + 2 * k..(down + 4 * k).min(end))?.iter().copied().filter(|x| x.is_finite()).collect();
     if outside.is_empty() {
         return None;
     }
     outside.sort_by(f32::total_cmp);
     let lo_out = outside[outside.len() / 2];
     let t_out = (0.5 * (bone + lo_out)).max(thr);
-    let down = (up + 1..prof.len()).find(|&i| prof[i] < t_out).unwrap_or(down);
+    let down = (up + 1..end).find(|&i| prof[i] < t_out).unwrap_or(down);
     let crossing = cross(down, t_out) - cross(up, thr);
     if crossing >= 3.0 * vox.max() {
         return Some(crossing);
@@ -59,18 +69,24 @@ pub(super) fn wall(stack: &Stack, g: &SectionGeom, mid: [f64; 2], dir: [f64; 2],
     // the bone fraction over the profile from two voxels before it to two voxels after, against
     // the level inside (soft tissue or lumen) before its peak and the level outside after it.
     let a = up.saturating_sub(2 * k).max(first_dark);
-    let b = (down + 2 * k).min(prof.len());
+    let b = (down + 2 * k).min(end);
     let mut inner: Vec<f32> = prof[first_dark..a.max(first_dark + 1)].iter().rev().take(k.max(1)).copied().filter(|x| x.is_finite()).collect();
     if inner.is_empty() || prof[a..b].iter().any(|x| !x.is_finite()) {
         return Some(crossing);
     }
     inner.sort_by(f32::total_cmp);
-    let lo_in = inner[inner.len() / 2];
+    // where the section has a soft-tissue level, the spiral ligament lines the wall here (it is
+    // thickest where the partition meets it): bone is what stands above soft tissue, not above
+    // the lumen two voxels in, and nothing below soft tissue counts. (The level is held to what
+    // lies outside the wall where that is darker: the wall fit can read soft tissue high.)
+    let lined = lv.tissue < lv.bone;
+    let lo_in = if lined { inner[inner.len() / 2].max(lv.tissue.min(lo_out)) } else { inner[inner.len() / 2] };
     let peak = (a..b).max_by(|&i, &j| prof[i].total_cmp(&prof[j]))?;
     let frac = |x: f32, lo: f32| ((x - lo) / (bone - lo)) as f64;
     if !(bone > lo_in && bone > lo_out) {
         return Some(crossing);
     }
-    let held: f64 = (a..peak).map(|i| frac(prof[i], lo_in)).sum::<f64>() + (peak..b).map(|i| frac(prof[i], lo_out)).sum::<f64>();
+    let before = |x: f32| if lined { frac(x, lo_in).max(0.0) } else { frac(x, lo_in) };
+    let held: f64 = (a..peak).map(|i| before(prof[i])).sum::<f64>() + (peak..b).map(|i| frac(prof[i], lo_out)).sum::<f64>();
     Some(held * h)
 }
