@@ -58,9 +58,9 @@ fn truth_at(t: &[phantom::TruthRow], a: f64, f: &dyn Fn(&phantom::TruthRow) -> f
 /// seeded watershed), and seeds are looked for deep in small scalae. Before: sound sections came
 /// out at up to 4.9 times their true area (member 1, a scala flooding the turn above), and members
 /// 6–10 had areas on only 6–61 % of their sections (`no_seed`, `open`). Now every
-/// member has areas on at least 95 % of its sections, none over 2.5 times its truth. (Soft tissue
-/// a voxel thick cannot be told from partial-volume lumen at this resolution, so areas run high:
-/// the SV+ST median error is printed, not held.)
+/// member has areas on at least 95 % of its sections, none over 2.5 times its truth, and SV+ST
+/// within 20 % median (soft tissue a voxel thick is hard to tell from partial-volume lumen at this
+/// resolution: members run 4–16 % off).
 #[test]
 fn clinical_resolution_keeps_turns_apart() {
     for n in 0..12 {
@@ -79,6 +79,10 @@ fn clinical_resolution_keeps_turns_apart() {
         eprintln!("member {n:>2} at 150 µm: areas on {:.0} %, SV+ST median error {:.1} %, largest area / truth {worst:.2}", 100.0 * measured, 100.0 * med);
         assert!(measured >= 0.95, "member {n}: areas on {:.0} % of sections", 100.0 * measured);
         assert!(worst < 2.5, "member {n}: a section at {worst:.2} times its true area");
+        // soft tissue a voxel thick is not counted as half lumen where the wall fit cannot read
+        // it (the tube's soft-tissue peak stands): SV+ST within 20 % (median) on every member
+        // (it was up to 28 % with such walls read as bare bone)
+        assert!(med < 0.2, "member {n}: SV+ST median error {:.1} %", 100.0 * med);
     }
 }
 

@@ -568,6 +568,12 @@ fn section_row(
             lv = row.levels;
             continue;
         }
+        // a scala too small for the blur to leave any pixel below the lumen/soft-tissue midpoint
+        // is grown again against bone alone (two materials), as where no soft tissue is found
+        if missing && row.levels.tissue < row.levels.bone && lumen_limit.is_some() {
+            lv = Levels { tissue: row.levels.bone, ..row.levels };
+            continue;
+        }
         if missing {
             row.flags.push(Flag::NoSeed);
         }
