@@ -571,7 +571,7 @@ fn find(cut: &Cut, pl: Edge, pg: Edge, vmax: f64) -> std::result::Result<(Edge, 
 /// where the first step is under a tenth of the whole rise (no layer: the edge is the bone's) or
 /// above two thirds of it (no bone behind), or the fit fails.
 fn layered_edge(p: &[f64], lumen: f64, smax: f64) -> Option<f64> {
-    use crate::measure::phi;
+    use crate::measure::{phi, two_basis_fit};
     let n = p.len();
     if n < 6 {
         return None;
@@ -579,25 +579,7 @@ fn layered_edge(p: &[f64], lumen: f64, smax: f64) -> Option<f64> {
     let y: Vec<f64> = p.iter().map(|v| v - lumen).collect();
     let yy: f64 = y.iter().map(|v| v * v).sum();
     // (sse, [first step, second step]) for one (a, w, σ)
-    let fit = |a: f64, w: f64, s: f64| -> Option<(f64, [f64; 2])> {
-        let (mut m, mut r) = ([[0.0f64; 2]; 2], [0.0f64; 2]);
-        for (i, &v) in y.iter().enumerate() {
-            let f = [phi((i as f64 - a) / s), phi((i as f64 - a - w) / s)];
-            for u in 0..2 {
-                r[u] += f[u] * v;
-                for t in 0..2 {
-                    m[u][t] += f[u] * f[t];
-                }
-            }
-        }
-        let det = m[0][0] * m[1][1] - m[0][1] * m[1][0];
-        if !(det.abs() > 1e-9 * (m[0][0] * m[1][1]).abs().max(1e-300)) {
-            return None;
-        }
-        let c = [(r[0] * m[1][1] - r[1] * m[0][1]) / det, (m[0][0] * r[1] - m[1][0] * r[0]) / det];
-        let fitted: f64 = (0..2).map(|u| c[u] * (0..2).map(|t| m[u][t] * c[t]).sum::<f64>()).sum();
-        Some((yy - 2.0 * (c[0] * r[0] + c[1] * r[1]) + fitted, c))
-    };
+    let fit = |a: f64, w: f64, s: f64| two_basis_fit(&y, yy, |i| [phi((i as f64 - a) / s), phi((i as f64 - a - w) / s)]);
     type Best = (f64, [f64; 2], f64, f64, f64); // sse, steps, a, w, σ
     let mut best: Best = (f64::INFINITY, [0.0; 2], 0.0, 0.0, 1.0);
     let consider = |best: &mut Best, a: f64, w: f64, s: f64| {

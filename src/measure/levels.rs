@@ -413,26 +413,11 @@ pub(super) fn wall_level(p: &[f64], pitch: f64) -> Option<Wall> {
     }
     let yy: f64 = p.iter().map(|y| y * y).sum();
     // least squares of t and b given the two edges' Φ at every sample: (sse, [t, b])
-    let solve = |cdf: &dyn Fn(usize) -> (f64, f64)| -> Option<(f64, [f64; 2])> {
-        let (mut m, mut r) = ([[0.0f64; 2]; 2], [0.0f64; 2]);
-        for (i, &y) in p.iter().enumerate() {
+    let solve = |cdf: &dyn Fn(usize) -> (f64, f64)| {
+        two_basis_fit(p, yy, |i| {
             let (f1, f2) = cdf(i);
-            let basis = [f1 - f2, f2];
-            for u in 0..2 {
-                r[u] += basis[u] * y;
-                for v in 0..2 {
-                    m[u][v] += basis[u] * basis[v];
-                }
-            }
-        }
-        let det = m[0][0] * m[1][1] - m[0][1] * m[1][0];
-        if !(det.abs() > 1e-9 * (m[0][0] * m[1][1]).abs().max(1e-300)) {
-            return None;
-        }
-        let c = [(r[0] * m[1][1] - r[1] * m[0][1]) / det, (m[0][0] * r[1] - m[1][0] * r[0]) / det];
-        // Σ(model − y)² = Σy² − 2c·r + cᵀMc
-        let fitted: f64 = (0..2).map(|u| c[u] * (0..2).map(|v| m[u][v] * c[v]).sum::<f64>()).sum();
-        Some((yy - 2.0 * (c[0] * r[0] + c[1] * r[1]) + fitted, c))
+            [f1 - f2, f2]
+        })
     };
     // coarse: positions and blur every g half pixels (g keeps the grid near 32 steps a side),
     // Φ from one table per blur; then fine: eighths of g within one coarse step of the best
@@ -516,6 +501,29 @@ pub(super) fn wall_level(p: &[f64], pitch: f64) -> Option<Wall> {
         return Some(Wall::Bare);
     }
     Some(Wall::Layer((t / b) as f32))
+}
+
+/// Linear least squares of y ≈ c₀·f₀(i) + c₁·f₁(i) over the samples y (Σy² = `yy` given):
+/// (the residual sum of squares, [c₀, c₁]), or None where the two bases are (nearly) collinear.
+pub(crate) fn two_basis_fit(y: &[f64], yy: f64, basis: impl Fn(usize) -> [f64; 2]) -> Option<(f64, [f64; 2])> {
+    let (mut m, mut r) = ([[0.0f64; 2]; 2], [0.0f64; 2]);
+    for (i, &v) in y.iter().enumerate() {
+        let f = basis(i);
+        for u in 0..2 {
+            r[u] += f[u] * v;
+            for t in 0..2 {
+                m[u][t] += f[u] * f[t];
+            }
+        }
+    }
+    let det = m[0][0] * m[1][1] - m[0][1] * m[1][0];
+    if !(det.abs() > 1e-9 * (m[0][0] * m[1][1]).abs().max(1e-300)) {
+        return None;
+    }
+    let c = [(r[0] * m[1][1] - r[1] * m[0][1]) / det, (m[0][0] * r[1] - m[1][0] * r[0]) / det];
+    // Σ(model − y)² = Σy² − 2c·r + cᵀMc
+    let fitted: f64 = (0..2).map(|u| c[u] * (0..2).map(|t| m[u][t] * c[t]).sum::<f64>()).sum();
+    Some((yy - 2.0 * (c[0] * r[0] + c[1] * r[1]) + fitted, c))
 }
 
 /// What the lateral wall shows between lumen and bone (see [`wall_level`]).
