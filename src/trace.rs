@@ -567,7 +567,8 @@ fn find(cut: &Cut, pl: Edge, pg: Edge, vmax: f64) -> std::result::Result<(Edge, 
 /// The lumen edge (in samples) of a profile `p` that rises from the lumen level `lumen` to bone
 /// through a soft-tissue layer: the first step a of the blurred model
 /// m(x) = L + (T − L)·Φ((x − a)/σ) + (B − T)·Φ((x − a − w)/σ) fitted in least squares (T and B
-/// linear for each a, w, σ ≤ `smax` samples; whole samples, then eighths about the best). None
+/// linear for each a, w and σ from half a sample to about `smax`; a coarse grid, then eighths
+/// about the best). None
 /// where the first step is under a tenth of the whole rise (no layer: the edge is the bone's) or
 /// above two thirds of it (no bone behind), or the fit fails.
 fn layered_edge(p: &[f64], lumen: f64, smax: f64) -> Option<f64> {
@@ -578,12 +579,11 @@ fn layered_edge(p: &[f64], lumen: f64, smax: f64) -> Option<f64> {
     }
     let y: Vec<f64> = p.iter().map(|v| v - lumen).collect();
     let yy: f64 = y.iter().map(|v| v * v).sum();
-    // (sse, [first step, second step]) for one (a, w, σ)
-    let fit = |a: f64, w: f64, s: f64| two_basis_fit(&y, yy, |i| [phi((i as f64 - a) / s), phi((i as f64 - a - w) / s)]);
-    type Best = (f64, [f64; 2], f64, f64, f64); // sse, steps, a, w, σ
+    type Best = (f64, [f64; 2], f64, f64, f64); // sse, [first step, second step], a, w, σ
     let mut best: Best = (f64::INFINITY, [0.0; 2], 0.0, 0.0, 1.0);
-    let consider = |best: &mut Best, a: f64, w: f64, s: f64| {
-        if let Some((e, c)) = fit(a, w, s)
+    // keeps a fit (sse, steps) of (a, w, σ) that is better and climbs at both steps
+    let keep = |best: &mut Best, fit: Option<(f64, [f64; 2])>, a: f64, w: f64, s: f64| {
+        if let Some((e, c)) = fit
             && e < best.0
             && c[0] >= 0.0
             && c[1] >= 0.0
@@ -591,21 +591,29 @@ fn layered_edge(p: &[f64], lumen: f64, smax: f64) -> Option<f64> {
             *best = (e, c, a, w, s);
         }
     };
-    let sigmas: Vec<f64> = (1..=((smax / 0.25) as usize).max(2)).map(|k| 0.25 * k as f64 + 0.25).collect();
-    for &s in &sigmas {
-        for a in 0..n {
-            for w in 1..n - a {
-                consider(&mut best, a as f64, w as f64, s);
+    // coarse: edges every g samples (g keeps the grid near 16 steps a side) and σ every half
+    // sample, Φ from one table per σ; then eighths of g about the best
+    let g = (n / 16).max(1);
+    let mut s = 0.5;
+    while s <= smax.max(0.5) {
+        let table: Vec<f64> = (0..2 * n + 1).map(|d| phi((d as f64 - n as f64) / s)).collect();
+        for a in (0..n).step_by(g) {
+            for w in (g..n - a).step_by(g) {
+                let fit = two_basis_fit(&y, yy, |i| [table[i + n - a], table[i + n - a - w]]);
+                keep(&mut best, fit, a as f64, w as f64, s);
             }
         }
+        s += 0.5;
     }
     let (a0, w0, s0) = (best.2, best.3, best.4);
+    let fine = |k: i32| k as f64 * g as f64 / 8.0;
     for da in -8..=8 {
         for dw in -8..=8 {
             for ds in -2..=2 {
-                let (a, w, s) = (a0 + da as f64 / 8.0, w0 + dw as f64 / 8.0, s0 + ds as f64 / 8.0);
+                let (a, w, s) = (a0 + fine(da), w0 + fine(dw), s0 + ds as f64 / 8.0);
                 if w > 0.0 && s >= 0.5 {
-                    consider(&mut best, a, w, s);
+                    let fit = two_basis_fit(&y, yy, |i| [phi((i as f64 - a) / s), phi((i as f64 - a - w) / s)]);
+                    keep(&mut best, fit, a, w, s);
                 }
             }
         }
