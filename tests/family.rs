@@ -162,6 +162,7 @@ fn family_sweep() {
     }
     // the state reached (see the module note), with room for other seeds: every member's median
     // area error
-    assert!(worst_st < 0.07, "worst ST median error {:.1} %", 100.0 * worst_st);
-    assert!(worst_sv < 0.08, "worst SV median error {:.1} %", 100.0 * worst_sv);
+    // (taking bone from the sections nearby brought member 1 from 4.6/5.3 to 2.8/3.8 %)
+    assert!(worst_st < 0.05, "worst ST median error {:.1} %", 100.0 * worst_st);
+    assert!(worst_sv < 0.07, "worst SV median error {:.1} %", 100.0 * worst_sv);
 }

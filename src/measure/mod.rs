@@ -70,6 +70,9 @@ pub struct MeasureSettings {
     pub levels: Option<[f32; 2]>,
 }
 
+/// Distance (mm) within which sections lend each other their bone level (`levels::bone_nearby`).
+const BONE_NEARBY_MM: f64 = 2.5;
+
 /// Sections pooled on either side of each one for its levels (a tube along the duct).
 const POOL_MM: f64 = 0.4;
 
@@ -327,6 +330,14 @@ pub fn measure(
             (level, level + 0.1 * step)
         })
     };
+    // Bone is one material too, but a tube whose walls are all thinner than the blur never shows
+    // it: its brightest class is their blurred crests (member 1 at 80 µm: 40 k where the
+    // modiolus shows 48 k), and every lumen pixel next to such a wall then counts too little (its
+    // basal turn read 10–15 % low). Each section takes the bone of the sections around it in
+    // space where that is brighter (`levels::bone_nearby`); the wall keeps the tube's own level.
+    let tube_bone: Vec<f32> = auto.iter().map(|l| l.map_or(f32::NAN, |l| l.bone)).collect();
+    let centres: Vec<[f64; 3]> = geoms.iter().map(|g| g.centre).collect();
+    levels::bone_nearby(&mut auto, &centres, BONE_NEARBY_MM);
     if let Some((level, limit)) = duct {
         for lv in auto.iter_mut().flatten().filter(|l| l.lumen > limit) {
             lv.lumen = level;
@@ -337,14 +348,15 @@ pub fn measure(
         .zip(geoms.par_iter())
         .zip(auto)
         .zip(parts.par_iter())
-        .map(|(((img, g), auto), part)| {
+        .zip(tube_bone.par_iter())
+        .map(|((((img, g), auto), part), &tube_bone)| {
             progress.check()?;
             let ov = ov_of(g);
             let given = ov.and_then(|o| o.levels).or(s.levels).map(|l| Levels { lumen: l[0], tissue: l[1], bone: l[1] });
             // the lumen level is re-taken from the section's own scalae (levels found, not given)
             // where it lies within the duct's range
             let limit = given.is_none().then(|| duct.map_or(f32::INFINITY, |d| d.1));
-            let mut row = section_row(stack, cl, g, part, s, pitch, vmax, ov, gw, img, given.or(auto), limit);
+            let mut row = section_row(stack, cl, g, part, s, pitch, vmax, ov, gw, img, given.or(auto), limit, given.map_or(tube_bone, |l| l.bone));
             if cl.extrapolated(g.theta) {
                 row.flags.push(Flag::Extrapolated);
             }
@@ -483,6 +495,7 @@ fn section_row(
     mut img: Img,
     levels: Option<Levels>,
     lumen_limit: Option<f32>,
+    wall_bone: f32,
 ) -> Row {
     let (radius, height) = cl.radius_height(g.theta);
     let mut row = Row {
@@ -587,7 +600,12 @@ fn section_row(
         row.sv = sv;
         row.st = st;
         // (a wall under one voxel is blanked by `walls_along`, once its neighbours are known)
-        row.wall_mm = wall::wall(stack, g, mid, part.dir, pitch, s.capture_mm, &row.levels);
+        // The wall is read against the bone level its own tube shows: raised to the bone nearby,
+        // member 8's 1.5-voxel walls (80 µm) read 25 % thin, most of them under a voxel: their
+        // inner side is taken against the soft-tissue level, which such a blurred wall reads
+        // high (`levels::wall_level`), and the low bone level had made up for it.
+        let bone = if wall_bone.is_finite() && wall_bone > row.levels.lumen { wall_bone } else { row.levels.bone };
+        row.wall_mm = wall::wall(stack, g, mid, part.dir, pitch, s.capture_mm, &Levels { bone, ..row.levels });
         if row.wall_mm.is_none() {
             row.flags.push(Flag::NoWall);
         }
