@@ -154,9 +154,12 @@ fn family_sweep() {
         // the floor for thin-walled phantoms: sound sections (no flag at all, so no wall
         // read under one voxel from a one-profile scatter either)
         assert!(sound >= 0.95, "member {}: {:.0} % of sections sound", m.n, 100.0 * sound);
-        // the lateral wall, the median of its rows' errors, within half a voxel (largest side)
+        // the lateral wall, the median of its rows' errors, within 0.35 voxel (largest side; the
+        // issue's target is 0.3: members 3 and 5 sit at 0.30, the rest at 0.06–0.29). It was up
+        // to 0.43 (member 10) while a wall still rising through its outer half level was taken
+        // to end one sample after it began
         let vox = m.voxel.iter().fold(0.0f64, |a, &b| a.max(b)) / 1000.0;
-        assert!(lm <= 0.5 * vox, "member {}: wall median error {:.1} µm", m.n, 1000.0 * lm);
+        assert!(lm <= 0.35 * vox, "member {}: wall median error {:.1} µm", m.n, 1000.0 * lm);
         worst_sv = worst_sv.max(svm);
         worst_st = worst_st.max(stm);
     }

@@ -320,8 +320,7 @@ pub fn measure(
     // blur to leave any pure lumen (the apical turns at clinical resolution: their blurred
     // interior would pass for lumen and every edge pixel would count too much), and the duct's
     // level stands in: the darkest tenth of the sections' levels. The margin, a tenth of the
-    // lumen–bone step, leaves a scanner's slow drift alone. (Bone is left as each tube finds it:
-    // raising it where the walls are thinner than the blur counted thin soft tissue as lumen.)
+    // lumen–bone step, leaves a scanner's slow drift alone.
     let duct = {
         let mut lumen: Vec<(f32, f32)> = auto.iter().flatten().filter(|l| l.lumen < l.bone).map(|l| (l.lumen, l.bone - l.lumen)).collect();
         lumen.sort_by(|a, b| a.0.total_cmp(&b.0));
@@ -333,9 +332,8 @@ pub fn measure(
     // Bone is one material too, but a tube whose walls are all thinner than the blur never shows
     // it: its brightest class is their blurred crests (member 1 at 80 µm: 40 k where the
     // modiolus shows 48 k), and every lumen pixel next to such a wall then counts too little (its
-    // basal turn read 10–15 % low). Each section takes the bone of the sections around it in
-    // space where that is brighter (`levels::bone_nearby`); the wall keeps the tube's own level.
-    let tube_bone: Vec<f32> = auto.iter().map(|l| l.map_or(f32::NAN, |l| l.bone)).collect();
+    // basal turn read 10–15 % low). Each section with soft tissue takes the bone of the sections
+    // around it in space where that is brighter (`levels::bone_nearby`).
     let centres: Vec<[f64; 3]> = geoms.iter().map(|g| g.centre).collect();
     levels::bone_nearby(&mut auto, &centres, BONE_NEARBY_MM);
     if let Some((level, limit)) = duct {
@@ -348,15 +346,14 @@ pub fn measure(
         .zip(geoms.par_iter())
         .zip(auto)
         .zip(parts.par_iter())
-        .zip(tube_bone.par_iter())
-        .map(|((((img, g), auto), part), &tube_bone)| {
+        .map(|(((img, g), auto), part)| {
             progress.check()?;
             let ov = ov_of(g);
             let given = ov.and_then(|o| o.levels).or(s.levels).map(|l| Levels { lumen: l[0], tissue: l[1], bone: l[1] });
             // the lumen level is re-taken from the section's own scalae (levels found, not given)
             // where it lies within the duct's range
             let limit = given.is_none().then(|| duct.map_or(f32::INFINITY, |d| d.1));
-            let mut row = section_row(stack, cl, g, part, s, pitch, vmax, ov, gw, img, given.or(auto), limit, given.map_or(tube_bone, |l| l.bone));
+            let mut row = section_row(stack, cl, g, part, s, pitch, vmax, ov, gw, img, given.or(auto), limit);
             if cl.extrapolated(g.theta) {
                 row.flags.push(Flag::Extrapolated);
             }
@@ -495,7 +492,6 @@ fn section_row(
     mut img: Img,
     levels: Option<Levels>,
     lumen_limit: Option<f32>,
-    wall_bone: f32,
 ) -> Row {
     let (radius, height) = cl.radius_height(g.theta);
     let mut row = Row {
@@ -600,12 +596,7 @@ fn section_row(
         row.sv = sv;
         row.st = st;
         // (a wall under one voxel is blanked by `walls_along`, once its neighbours are known)
-        // The wall is read against the bone level its own tube shows: raised to the bone nearby,
-        // member 8's 1.5-voxel walls (80 µm) read 25 % thin, most of them under a voxel: their
-        // inner side is taken against the soft-tissue level, which such a blurred wall reads
-        // high (`levels::wall_level`), and the low bone level had made up for it.
-        let bone = if wall_bone.is_finite() && wall_bone > row.levels.lumen { wall_bone } else { row.levels.bone };
-        row.wall_mm = wall::wall(stack, g, mid, part.dir, pitch, s.capture_mm, &Levels { bone, ..row.levels });
+        row.wall_mm = wall::wall(stack, g, mid, part.dir, pitch, s.capture_mm, &row.levels);
         if row.wall_mm.is_none() {
             row.flags.push(Flag::NoWall);
         }
