@@ -91,8 +91,9 @@ pub(super) fn wall(stack: &Stack, g: &SectionGeom, mid: [f64; 2], dir: [f64; 2],
     let a = up.saturating_sub(2 * k).max(first_dark);
     let b = (down + 2 * k).min(end);
     let mut inner: Vec<f32> = prof[first_dark..a.max(first_dark + 1)].iter().rev().take(k.max(1)).copied().filter(|x| x.is_finite()).collect();
+    // (where the integral cannot be taken, the crossings stand; a wall held at its crest has none)
     if inner.is_empty() || prof[a..b].iter().any(|x| !x.is_finite()) {
-        return Some(crossing);
+        return (!thin).then_some(crossing);
     }
     inner.sort_by(f32::total_cmp);
     // where the section has a soft-tissue level, the spiral ligament lines the wall here (it is
@@ -104,7 +105,7 @@ pub(super) fn wall(stack: &Stack, g: &SectionGeom, mid: [f64; 2], dir: [f64; 2],
     let peak = (a..b).max_by(|&i, &j| prof[i].total_cmp(&prof[j]))?;
     let frac = |x: f32, lo: f32| ((x - lo) / (bone - lo)) as f64;
     if !(bone > lo_in && bone > lo_out) {
-        return Some(crossing);
+        return (!thin).then_some(crossing);
     }
     let before = |x: f32| if lined { frac(x, lo_in).max(0.0) } else { frac(x, lo_in) };
     let held: f64 = (a..peak).map(|i| before(prof[i])).sum::<f64>() + (peak..b).map(|i| frac(prof[i], lo_out)).sum::<f64>();
