@@ -42,7 +42,13 @@ impl Levels {
 const BINS: usize = 256;
 
 /// Levels for every section from the pooled histograms of its neighbours (±`pool` sections).
-pub(super) fn pooled(imgs: &[Img], pool: usize) -> Vec<Option<Levels>> {
+///
+/// `centre` holds each section's median value near its centreline point (inside the duct, NaN
+/// where unknown). Where the pooled median of those lies at the level the split takes for soft
+/// tissue, something darker than the lumen fills the darkest class (air around a specimen, air
+/// cells beside a fluid-filled duct): the bins below halfway to the duct's level are dropped and
+/// the split is made again (see [`lumen_class`]).
+pub(super) fn pooled(imgs: &[Img], centre: &[f32], pool: usize) -> Vec<Option<Levels>> {
     use rayon::prelude::*;
     let (lo, hi) = imgs
         .par_iter()
@@ -67,9 +73,33 @@ pub(super) fn pooled(imgs: &[Img], pool: usize) -> Vec<Option<Levels>> {
         .map(|i| {
             let h = window_sum(&hists, i, pool);
             let at = |bin: usize| lo + bin as f32 / k;
-            three_levels(&h).map(|(a, b, c)| Levels { lumen: at(a), tissue: at(b), bone: at(c) })
+            let mut near: Vec<f32> = centre[i.saturating_sub(pool)..(i + pool + 1).min(centre.len())].iter().copied().filter(|x| x.is_finite()).collect();
+            let duct = (!near.is_empty()).then(|| (median_f32(&mut near) - lo) * k);
+            lumen_class(&h, duct).map(|(a, b, c)| Levels { lumen: at(a), tissue: at(b), bone: at(c) })
         })
         .collect()
+}
+
+/// [`three_levels`] of a histogram whose lumen is the class the duct's centre lies in: `duct` is
+/// the value near the sections' centreline points, in (fractional) bins. Where it lies at or
+/// above three quarters of the way from the darkest class's mode to the level taken for soft
+/// tissue, that "soft tissue" is the lumen and the darkest class is something darker; the bins
+/// below halfway to the duct's level are dropped and the split made again, kept where its lumen
+/// lands within a quarter of that way of the duct's value (else the first split stands).
+fn lumen_class(h: &[f64], duct: Option<f32>) -> Option<(usize, usize, usize)> {
+    let (a, b, c) = three_levels(h)?;
+    let Some(d) = duct.map(|d| d as f64) else { return Some((a, b, c)) };
+    let (fa, fb) = (a as f64, b as f64);
+    if !(fb > fa && d >= fb - 0.25 * (fb - fa)) {
+        return Some((a, b, c));
+    }
+    let cut = ((fa + d) / 2.0) as usize;
+    let mut trimmed = h.to_vec();
+    trimmed[..=cut.min(h.len() - 1)].iter_mut().for_each(|x| *x = 0.0);
+    match three_levels(&trimmed) {
+        Some((a2, b2, c2)) if (a2 as f64 - d).abs() <= 0.25 * (fb - fa) => Some((a2, b2, c2)),
+        _ => Some((a, b, c)),
+    }
 }
 
 /// The sum of the histograms of sections i − k ..= i + k (those that exist): a tube along the duct.

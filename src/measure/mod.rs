@@ -256,7 +256,25 @@ pub fn measure(
         })
         .collect::<Result<_>>()?;
     let pool = ((POOL_MM / s.step_mm).round() as usize).clamp(1, 10);
-    let mut auto = levels::pooled(&first, pool);
+    // the value inside the duct next to each centreline point: the median within a quarter of
+    // the partition's width of it (the partition itself is a thin line through it)
+    let centre: Vec<f32> = first
+        .par_iter()
+        .zip(geoms.par_iter())
+        .map(|(img, g)| {
+            let r = (0.25 * g.width() / pitch).max(2.0);
+            let c = 0.5 * (img.n - 1) as f64;
+            let (lo, hi) = ((c - r).floor().max(0.0) as usize, ((c + r).ceil() as usize).min(img.n - 1));
+            let mut v: Vec<f32> = (lo..=hi)
+                .flat_map(|b| (lo..=hi).map(move |a| (a, b)))
+                .filter(|&(a, b)| (a as f64 - c).hypot(b as f64 - c) <= r)
+                .map(|(a, b)| img.v[b * img.n + a])
+                .filter(|x| x.is_finite())
+                .collect();
+            if v.is_empty() { f32::NAN } else { levels::median_f32(&mut v) }
+        })
+        .collect();
+    let mut auto = levels::pooled(&first, &centre, pool);
     // soft tissue from the lateral wall next to the partition's outer end: the scalae grown in
     // each first square, the mean profile of rays across the wall there summed over the tube of
     // neighbouring sections, fitted by a blurred lumen | soft tissue | bone model
