@@ -572,7 +572,7 @@ fn find(cut: &Cut, pl: Edge, pg: Edge, vmax: f64) -> std::result::Result<(Edge, 
 /// where the first step is under a tenth of the whole rise (no layer: the edge is the bone's) or
 /// above two thirds of it (no bone behind), or the fit fails.
 fn layered_edge(p: &[f64], lumen: f64, smax: f64) -> Option<f64> {
-    use crate::measure::{phi, two_basis_fit};
+    use crate::measure::{phi, phi_table, two_basis_fit};
     let n = p.len();
     if n < 6 {
         return None;
@@ -596,7 +596,7 @@ fn layered_edge(p: &[f64], lumen: f64, smax: f64) -> Option<f64> {
     let g = (n / 16).max(1);
     let mut s = 0.5;
     while s <= smax.max(0.5) {
-        let table: Vec<f64> = (0..2 * n + 1).map(|d| phi((d as f64 - n as f64) / s)).collect();
+        let table = phi_table(n, s);
         for a in (0..n).step_by(g) {
             for w in (g..n - a).step_by(g) {
                 let fit = two_basis_fit(&y, yy, |i| [table[i + n - a], table[i + n - a - w]]);

@@ -483,7 +483,7 @@ pub(super) fn wall_level(p: &[f64], pitch: f64) -> Option<Wall> {
     let smax = ((0.15 / (0.5 * pitch)) as isize).max(2);
     let mut best = (f64::INFINITY, [0.0; 2], 0.0, 0.0, 0.0); // sse, [t, b], a, w, σ
     for s in (1..=smax).step_by(g as usize) {
-        let table: Vec<f64> = (-len..=len).map(|d| phi(d as f64 / s as f64)).collect();
+        let table = phi_table(len as usize, s as f64);
         let at = |i: usize, c: isize| table[(i as isize - c + len) as usize];
         for a in (0..len / 2).step_by(g as usize) {
             for w in (0..len - a).step_by(g as usize) {
@@ -590,6 +590,12 @@ pub(super) enum Wall {
     Layer(f32),
     /// Lumen straight against bone.
     Bare,
+}
+
+/// Φ(d/σ) for the whole-sample offsets d = −n ..= n, at index d + n: one table per blur σ
+/// (samples) for fits over many edge positions.
+pub(crate) fn phi_table(n: usize, sigma: f64) -> Vec<f64> {
+    (0..2 * n + 1).map(|d| phi((d as f64 - n as f64) / sigma)).collect()
 }
 
 /// The standard normal distribution function (Abramowitz & Stegun 7.1.26 for erf, error

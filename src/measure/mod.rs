@@ -40,7 +40,7 @@
 
 mod areas;
 mod levels;
-pub(crate) use levels::{phi, two_basis_fit};
+pub(crate) use levels::{phi, phi_table, two_basis_fit};
 mod regions;
 mod wall;
 

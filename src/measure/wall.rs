@@ -80,9 +80,12 @@ pub(super) fn wall(stack: &Stack, g: &SectionGeom, mid: [f64; 2], dir: [f64; 2],
             true
         }
     };
-    let crossing = cross(down, t_out) - cross(up, thr);
-    if crossing >= 3.0 * vox.max() && !thin {
-        return Some(crossing);
+    // (a wall held at its crest has no crossings that mean anything)
+    let crossing = (!thin).then(|| cross(down, t_out) - cross(up, thr));
+    if let Some(c) = crossing
+        && c >= 3.0 * vox.max()
+    {
+        return Some(c);
     }
     // A wall within a few voxels of the blur never reaches its full level, and the crossings
     // close in on each other: take its thickness from the bone it holds instead, the integral of
@@ -91,9 +94,9 @@ pub(super) fn wall(stack: &Stack, g: &SectionGeom, mid: [f64; 2], dir: [f64; 2],
     let a = up.saturating_sub(2 * k).max(first_dark);
     let b = (down + 2 * k).min(end);
     let mut inner: Vec<f32> = prof[first_dark..a.max(first_dark + 1)].iter().rev().take(k.max(1)).copied().filter(|x| x.is_finite()).collect();
-    // (where the integral cannot be taken, the crossings stand; a wall held at its crest has none)
+    // (where the integral cannot be taken, the crossings stand)
     if inner.is_empty() || prof[a..b].iter().any(|x| !x.is_finite()) {
-        return (!thin).then_some(crossing);
+        return crossing;
     }
     inner.sort_by(f32::total_cmp);
     // where the section has a soft-tissue level, the spiral ligament lines the wall here (it is
@@ -105,7 +108,7 @@ pub(super) fn wall(stack: &Stack, g: &SectionGeom, mid: [f64; 2], dir: [f64; 2],
     let peak = (a..b).max_by(|&i, &j| prof[i].total_cmp(&prof[j]))?;
     let frac = |x: f32, lo: f32| ((x - lo) / (bone - lo)) as f64;
     if !(bone > lo_in && bone > lo_out) {
-        return (!thin).then_some(crossing);
+        return crossing;
     }
     let before = |x: f32| if lined { frac(x, lo_in).max(0.0) } else { frac(x, lo_in) };
     let held: f64 = (a..peak).map(|i| before(prof[i])).sum::<f64>() + (peak..b).map(|i| frac(prof[i], lo_out)).sum::<f64>();
