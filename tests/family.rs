@@ -50,6 +50,25 @@ fn truth_at(t: &[phantom::TruthRow], a: f64, f: &dyn Fn(&phantom::TruthRow) -> f
     f(p) + w * (f(q) - f(p))
 }
 
+/// Share of the sections ≥ 30° from either end that have both areas, the median SV+ST error
+/// against truth and the largest area / truth, of member n at `voxel` µm.
+fn clinical(n: u64, voxel: f64) -> (f64, f64, f64) {
+    let (spec, rows, truth) = run_member(n, [voxel; 3]);
+    let tmax = spec.theta_max().to_degrees();
+    let inner: Vec<_> = rows.iter().filter(|r| r.angle_deg >= 30.0 && r.angle_deg <= tmax - 30.0).collect();
+    let (mut worst, mut sum) = (0.0f64, vec![]);
+    for r in inner.iter().filter(|r| r.sv.area.is_some() && r.st.area.is_some()) {
+        let (sv, st) = (r.sv.area.unwrap(), r.st.area.unwrap());
+        let (tsv, tst) = (truth_at(&truth, r.angle_deg, &|t| t.sv_area_mm2), truth_at(&truth, r.angle_deg, &|t| t.st_area_mm2));
+        worst = worst.max(sv / tsv).max(st / tst);
+        sum.push(((sv + st) / (tsv + tst) - 1.0).abs());
+    }
+    let measured = sum.len() as f64 / inner.len() as f64;
+    let (med, _) = stats(&mut sum);
+    eprintln!("member {n:>2} at {voxel} µm: areas on {:.0} %, SV+ST median error {:.1} %, largest area / truth {worst:.2}", 100.0 * measured, 100.0 * med);
+    (measured, med, worst)
+}
+
 /// At clinical CT resolution (150 µm) the bony septa between turns (0.06–0.2 mm in the family),
 /// the lateral capsule wall and the modiolar wall are thinner than a voxel and the blur: nothing
 /// in the threshold stops a scala from flooding the turn above or below, the modiolus or what lies
@@ -59,30 +78,27 @@ fn truth_at(t: &[phantom::TruthRow], a: f64, f: &dyn Fn(&phantom::TruthRow) -> f
 /// out at up to 4.9 times their true area (member 1, a scala flooding the turn above), and members
 /// 6–10 had areas on only 6–61 % of their sections (`no_seed`, `open`). Now every
 /// member has areas on at least 95 % of its sections, none over 2.5 times its truth, and SV+ST
-/// within 20 % median (soft tissue a voxel thick is hard to tell from partial-volume lumen at this
-/// resolution: members run 4–16 % off).
+/// within 15 % median (soft tissue a voxel thick is hard to tell from partial-volume lumen at this
+/// resolution: members run 4–13 % off).
+///
+/// At 200 µm the scalae are a few voxels across: the tube around the duct holds too few lumen
+/// pixels to make a class of their own, and its darkest class is soft tissue (`levels::pooled`
+/// then takes the lumen from the duct's centre). Before that, SV+ST read up to 88 % high (member
+/// 2; mean over the family 26 %); now every member has areas on at least 60 % of its sections
+/// and SV+ST within 30 % median (members run 3–25 % off: with a blur of 1.3 voxels no pixel of a
+/// scala is pure lumen).
 #[test]
 fn clinical_resolution_keeps_turns_apart() {
     for n in 0..12 {
-        let (spec, rows, truth) = run_member(n, [150.0; 3]);
-        let tmax = spec.theta_max().to_degrees();
-        let inner: Vec<_> = rows.iter().filter(|r| r.angle_deg >= 30.0 && r.angle_deg <= tmax - 30.0).collect();
-        let (mut worst, mut sum) = (0.0f64, vec![]);
-        for r in inner.iter().filter(|r| r.sv.area.is_some() && r.st.area.is_some()) {
-            let (sv, st) = (r.sv.area.unwrap(), r.st.area.unwrap());
-            let (tsv, tst) = (truth_at(&truth, r.angle_deg, &|t| t.sv_area_mm2), truth_at(&truth, r.angle_deg, &|t| t.st_area_mm2));
-            worst = worst.max(sv / tsv).max(st / tst);
-            sum.push(((sv + st) / (tsv + tst) - 1.0).abs());
-        }
-        let measured = sum.len() as f64 / inner.len() as f64;
-        let (med, _) = stats(&mut sum);
-        eprintln!("member {n:>2} at 150 µm: areas on {:.0} %, SV+ST median error {:.1} %, largest area / truth {worst:.2}", 100.0 * measured, 100.0 * med);
+        let (measured, med, worst) = clinical(n, 150.0);
         assert!(measured >= 0.95, "member {n}: areas on {:.0} % of sections", 100.0 * measured);
         assert!(worst < 2.5, "member {n}: a section at {worst:.2} times its true area");
         // soft tissue a voxel thick is not counted as half lumen where the wall fit cannot read
-        // it (the tube's soft-tissue peak stands): SV+ST within 20 % (median) on every member
+        // it (the tube's soft-tissue peak stands): SV+ST within 15 % (median) on every member
         // (it was up to 28 % with such walls read as bare bone)
-        assert!(med < 0.2, "member {n}: SV+ST median error {:.1} %", 100.0 * med);
+        assert!(med < 0.15, "member {n}: SV+ST median error {:.1} %", 100.0 * med);
+        let (measured, med, _) = clinical(n, 200.0);
+        assert!(measured >= 0.6 && med < 0.3, "member {n} at 200 µm: areas on {:.0} %, SV+ST median error {:.1} %", 100.0 * measured, 100.0 * med);
     }
 }
 
