@@ -6,7 +6,9 @@
 //!    bands lie inside it or the capture limit is reached.
 //! 2. Levels ([`levels`]): lumen and bone from a three-class Otsu split of the pooled histogram
 //!    of the neighbouring sections (a tube around the duct, smoothed along s), as the modes of the
-//!    darkest and brightest classes — no patch of pure bone is needed, so thin walls do; soft
+//!    darkest and brightest classes (or, where the duct's centre lies well below the darkest
+//!    class, the duct's own small peak: scalae too few voxels across to make a class) — no patch
+//!    of pure bone is needed, so thin walls do; soft
 //!    tissue from the ring 1.5–2.5 voxels outside the scalae (where a spiral ligament or limbus
 //!    lines them its values pile up at the soft-tissue level), summed over the same tube; a ring
 //!    that is nearly all bone means two materials. The lumen level is then re-taken from the
