@@ -190,6 +190,17 @@ fn thin_free_standing_walls_50um() {
     check(&PhantomSpec { voxel_um: [50.0; 3], wall_mm: 0.12, blur_vox: 1.0, ..Default::default() }, 0.09, Some(0.15), None);
 }
 
+/// Thin walls (0.12 mm at 50 µm) in a background halfway between soft tissue and bone (0.5 of
+/// full scale, the soft-tissue/bone midpoint here about 0.48): past the wall the profile never
+/// falls back below that midpoint, so the wall's outer edge was never found and 136 of 137
+/// sections came out `no_wall` (1 % sound). The wall now ends halfway from its crest down to
+/// what lies beyond: every section sound (at most one in fifty flagged), areas within 5 %
+/// median (they read −3 %: the bone level is the walls' blurred crest, see the test above).
+#[test]
+fn thin_walls_in_a_bright_background() {
+    check(&PhantomSpec { voxel_um: [50.0; 3], wall_mm: 0.12, levels: [0.15, 0.35, 0.9, 0.5], ..Default::default() }, 0.05, None, None);
+}
+
 /// A specimen in air: outside the capsule darker than the fluid (0 against 0.15 of full scale),
 /// so the darkest class of every section's histogram is the air, not the lumen. The lumen is the
 /// class the duct's centre lies in (`levels::pooled`): areas within 2 % median, width and wall

@@ -48,10 +48,26 @@ pub(super) fn wall(stack: &Stack, g: &SectionGeom, mid: [f64; 2], dir: [f64; 2],
     let first = (first_dark + 1..end).find(|&i| prof[i] >= low)?;
     let run = (first..end).find(|&i| prof[i] < low).unwrap_or(end);
     let (up, thr) = (first..run).find(|&i| prof[i] >= thr).map_or((first, low), |i| (i, thr));
-    let mut down = (up + 1..end).find(|&i| prof[i] < thr)?;
     // The outer edge's half level lies between bone and what is outside the wall, which need
     // not be fluid: take that level from the profile two to four voxels beyond the edge.
     let k = (vox.max() / h).ceil() as usize;
+    // Where what lies outside is itself above the midpoint (a background between soft tissue and
+    // bone), the profile never falls below it: the wall then ends halfway from its crest (within
+    // two voxels of where it rose) down to the level two to four voxels past that crest.
+    let mut down = match (up + 1..end).find(|&i| prof[i] < thr) {
+        Some(d) => d,
+        None => {
+            let crest = (up..(up + 2 * k).min(end)).max_by(|&i, &j| prof[i].total_cmp(&prof[j]))?;
+            let mut far: Vec<f32> = prof.get(crest + 2 * k..(crest + 4 * k).min(end))?.to_vec();
+            far.sort_by(f32::total_cmp);
+            let beyond = *far.get(far.len() / 2)?;
+            let half = 0.5 * (prof[crest] + beyond);
+            if !(prof[crest] - beyond > 0.1 * (bone - lv.lumen)) {
+                return None;
+            }
+            (crest + 1..end).find(|&i| prof[i] < half)?
+        }
+    };
     let level_beyond = |from: usize| -> Option<f32> {
         let mut v: Vec<f32> = prof.get(from + 2 * k..(from + 4 * k).min(end))?.iter().copied().filter(|x| x.is_finite()).collect();
         v.sort_by(f32::total_cmp);
