@@ -79,7 +79,7 @@ fn clinical(n: u64, voxel: f64) -> (f64, f64, f64) {
 /// 6–10 had areas on only 6–61 % of their sections (`no_seed`, `open`). Now every
 /// member has areas on at least 95 % of its sections, none over 2.5 times its truth, and SV+ST
 /// within 15 % median (soft tissue a voxel thick is hard to tell from partial-volume lumen at this
-/// resolution: members run 4–13 % off).
+/// resolution: members run 4–10 % off).
 ///
 /// At 200 µm the scalae are a few voxels across: the tube around the duct holds too few lumen
 /// pixels to make a class of their own, and its darkest class is soft tissue (`levels::pooled`

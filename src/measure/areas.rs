@@ -117,7 +117,7 @@ pub(super) fn fraction_area(img: &Img, r: &Region, side: f64, lv: &Levels, band:
             inside.then(|| (y as usize - reach.b0) * w + x as usize - reach.a0)
         };
         let plateaus;
-        (plateaus, blur) = super::levels::plateaus(img, &[mask], r.bounds, lv, erode);
+        (plateaus, blur) = super::levels::plateaus(img, &[mask], r.bounds, lv, erode, side > 0.0);
         for p in plateaus.iter().filter(|p| p.layer.is_none()) {
             let (a, b) = ((p.pixel % n) as f64, (p.pixel / n) as f64);
             let kind = if p.value < lv.bone_cut() { Ref::Tissue } else { Ref::Bone };
@@ -161,7 +161,7 @@ pub(super) fn fraction_area(img: &Img, r: &Region, side: f64, lv: &Levels, band:
                     }
                     continue;
                 }
-                let beta = super::levels::phi((t - layer.bone) / layer.sigma) as f32;
+                let beta = layer.bone_share(t) as f32;
                 by_ray[k] = Some(if t > layer.lumen + 3.0 * layer.sigma { Ref::None } else { Ref::Mixed(beta, layer.bone_level) });
             }
         }
