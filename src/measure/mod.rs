@@ -35,7 +35,9 @@
 //!    model is fitted to the ray (its lumen and bone edges; the blur from the section's bare
 //!    edges), and the pixels it passes count (soft tissue + bone's blurred share there − v)/(soft
 //!    tissue − lumen), which holds however thin the layer: a ligament tapering to nothing is
-//!    neither half fluid nor cut off. Pixels nearer to another lumen region are left to it.
+//!    neither half fluid nor cut off. From scala vestibuli, rays across the thin bony shelf are
+//!    fitted the same way with the shelf's far side and the lumen beyond it in the model (the
+//!    spiral limbus on the shelf). Pixels nearer to another lumen region are left to it.
 //! 5. Wall ([`wall`]): along the partition direction outward, from where bone starts to where it
 //!    ends; each row reports the median over ±0.5 mm of s (`walls_along`). Width and wall under
 //!    one voxel are flagged `below_resolution` and left blank.
