@@ -104,9 +104,7 @@ fn lumen_class(h: &[f64], duct: Option<f32>) -> Option<(usize, usize, usize)> {
     let (fa, fb, fc) = (a as f64, b as f64, c as f64);
     if fa - d >= 0.2 * (fc - d) {
         let cut = ((fa + d) / 2.0) as usize;
-        let n = h.len();
-        let sm = |i: usize| h[i.saturating_sub(2)..(i + 3).min(n)].iter().sum::<f64>();
-        let mode = (0..=cut.min(n - 1)).max_by(|&x, &y| sm(x).total_cmp(&sm(y)).then(y.cmp(&x)))?;
+        let mode = mode_of(&running5(h), 0, cut.min(h.len() - 1) + 1)?;
         let lumen = if (mode as f64 - d).abs() <= 0.5 * (fa - d) { mode } else { d.round().max(0.0) as usize };
         return Some((lumen, b, c));
     }
@@ -120,6 +118,18 @@ fn lumen_class(h: &[f64], duct: Option<f32>) -> Option<(usize, usize, usize)> {
         Some((a2, b2, c2)) if (a2 as f64 - d).abs() <= 0.25 * (fb - fa) => Some((a2, b2, c2)),
         _ => Some((a, b, c)),
     }
+}
+
+/// A histogram summed over 5-bin windows (clipped at its ends): noise does not pick a stray bin
+/// as a mode.
+fn running5(h: &[f64]) -> Vec<f64> {
+    let n = h.len();
+    (0..n).map(|i| h[i.saturating_sub(2)..(i + 3).min(n)].iter().sum::<f64>()).collect()
+}
+
+/// The bin in a..b where the smoothed histogram `sm` is highest (the lowest such bin on a tie).
+fn mode_of(sm: &[f64], a: usize, b: usize) -> Option<usize> {
+    (a..b).max_by(|&x, &y| sm[x].total_cmp(&sm[y]).then(y.cmp(&x)))
 }
 
 /// The sum of the histograms of sections i − k ..= i + k (those that exist): a tube along the duct.
@@ -166,8 +176,8 @@ fn three_levels(h: &[f64]) -> Option<(usize, usize, usize)> {
     let (t1, t2) = otsu3(h)?;
     // a 5-bin running mean keeps noise from picking a stray bin as the mode
     let n = h.len();
-    let sm: Vec<f64> = (0..n).map(|i| h[i.saturating_sub(2)..(i + 3).min(n)].iter().sum::<f64>()).collect();
-    let mode = |a: usize, b: usize| (a..b).max_by(|&x, &y| sm[x].total_cmp(&sm[y]).then(y.cmp(&x)));
+    let sm = running5(h);
+    let mode = |a: usize, b: usize| mode_of(&sm, a, b);
     let total: f64 = h.iter().sum();
     // bone: its class's mode, or where a thin-walled section has no pure-bone peak, the class's
     // 60th percentile (the mode then sits on the partial-volume plateau)

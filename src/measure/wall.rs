@@ -51,6 +51,11 @@ pub(super) fn wall(stack: &Stack, g: &SectionGeom, mid: [f64; 2], dir: [f64; 2],
     // The outer edge's half level lies between bone and what is outside the wall, which need
     // not be fluid: take that level from the profile two to four voxels beyond the edge.
     let k = (vox.max() / h).ceil() as usize;
+    let level_beyond = |from: usize| -> Option<f32> {
+        let mut v: Vec<f32> = prof.get(from + 2 * k..(from + 4 * k).min(end))?.iter().copied().filter(|x| x.is_finite()).collect();
+        v.sort_by(f32::total_cmp);
+        v.get(v.len() / 2).copied()
+    };
     // Where what lies outside is itself above the midpoint (a background between soft tissue and
     // bone), the profile never falls below it: the wall then ends halfway from its crest (within
     // two voxels of where it rose) down to the level two to four voxels past that crest.
@@ -58,20 +63,13 @@ pub(super) fn wall(stack: &Stack, g: &SectionGeom, mid: [f64; 2], dir: [f64; 2],
         Some(d) => d,
         None => {
             let crest = (up..(up + 2 * k).min(end)).max_by(|&i, &j| prof[i].total_cmp(&prof[j]))?;
-            let mut far: Vec<f32> = prof.get(crest + 2 * k..(crest + 4 * k).min(end))?.to_vec();
-            far.sort_by(f32::total_cmp);
-            let beyond = *far.get(far.len() / 2)?;
+            let beyond = level_beyond(crest)?;
             let half = 0.5 * (prof[crest] + beyond);
             if !(prof[crest] - beyond > 0.1 * (bone - lv.lumen)) {
                 return None;
             }
             (crest + 1..end).find(|&i| prof[i] < half)?
         }
-    };
-    let level_beyond = |from: usize| -> Option<f32> {
-        let mut v: Vec<f32> = prof.get(from + 2 * k..(from + 4 * k).min(end))?.iter().copied().filter(|x| x.is_finite()).collect();
-        v.sort_by(f32::total_cmp);
-        v.get(v.len() / 2).copied()
     };
     let mut lo_out = level_beyond(down)?;
     let t_out = (0.5 * (bone + lo_out)).max(thr);
