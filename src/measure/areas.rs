@@ -2,7 +2,7 @@
 
 use super::levels::Levels;
 use super::regions::{Rect, Region, chamfer};
-use super::{Img, OUTLINE_POINTS};
+use super::{Img, OUTLINE_POINTS, Partition};
 
 /// Pixels of an n×n image within Euclidean distance `k` (pixels) of a set, the set included;
 /// `set` is tested over `rect`. The pixel of a set nearest to any pixel outside it is an edge
@@ -46,8 +46,10 @@ pub(super) fn near(n: usize, rect: Rect, k: usize, set: impl Fn(usize) -> bool) 
 /// (tissue + (bone − tissue)·β − v)/(tissue − lumen), β = Φ((t − bone edge)/σ) the blurred bone
 /// share at their distance t along it: exact for the blurred three-material model whatever the
 /// layer's thickness. No pixel over four blur widths from the region holds lumen. The fractions
-/// are not clipped, so noise averages out instead of biasing the sum.
-pub(super) fn fraction_area(img: &Img, r: &Region, side: f64, lv: &Levels, band: usize, erode: usize) -> (f64, Vec<f32>, [f64; 2]) {
+/// are not clipped, so noise averages out instead of biasing the sum. `part` is the section's
+/// partition: next to it the material beyond is known from the anatomy where no ray says.
+#[allow(clippy::too_many_arguments)]
+pub(super) fn fraction_area(img: &Img, r: &Region, side: f64, lv: &Levels, band: usize, erode: usize, part: &Partition) -> (f64, Vec<f32>, [f64; 2]) {
     let (n, mask) = (img.n, &r.mask);
     let thr = lv.lumen_cut();
     let k = band as isize;
@@ -84,6 +86,19 @@ pub(super) fn fraction_area(img: &Img, r: &Region, side: f64, lv: &Levels, band:
     let bone_level = lv.tissue + 0.2 * (lv.bone - lv.tissue);
     let d_bone = chamfer(w, h, |k| img.sm[at(k)] >= bone_level);
     let d_lumen = chamfer(w, h, |k| mask[at(k)]);
+    // distance to the other side of the partition (chamfer units)
+    let d_part = chamfer(w, h, |k| img.side[at(k)] as f64 == -side);
+    // Next to the partition lies the bony shelf (modiolus to lamina tip) or the basilar
+    // membrane, thinner than a voxel (lamina tip to ligament): both count against bone, where a
+    // shelf whose blurred crest stays near the soft-tissue level (too low for its rays to say)
+    // counted as soft tissue took about a pixel of lumen off each side of it (the family at
+    // 65–80 µm: ST −4.5 % on a basal section of member 0). Not on scala vestibuli's side of the
+    // shelf, where the spiral limbus sits, nor within two voxels of the ligament.
+    let vox_mm = erode as f64 * img.pitch;
+    let by_partition = |i: usize| {
+        let along = part.along(img.uv(i));
+        along < part.width() - 2.0 * vox_mm && (side < 0.0 || along > 0.0)
+    };
     // one voxel in chamfer units (thirds of a pixel)
     let vox3 = 3 * erode as u32;
     // a pixel a voxel or more outside the lumen whose value sits at the soft-tissue level is soft
@@ -117,7 +132,7 @@ pub(super) fn fraction_area(img: &Img, r: &Region, side: f64, lv: &Levels, band:
             inside.then(|| (y as usize - reach.b0) * w + x as usize - reach.a0)
         };
         let plateaus;
-        (plateaus, blur) = super::levels::plateaus(img, &[mask], r.bounds, lv, erode, side > 0.0);
+        (plateaus, blur) = super::levels::plateaus(img, &[mask], r.bounds, lv, erode, (side > 0.0).then_some(part));
         for p in plateaus.iter().filter(|p| p.layer.is_none()) {
             let (a, b) = ((p.pixel % n) as f64, (p.pixel / n) as f64);
             let kind = if p.value < lv.bone_cut() { Ref::Tissue } else { Ref::Bone };
@@ -175,6 +190,8 @@ pub(super) fn fraction_area(img: &Img, r: &Region, side: f64, lv: &Levels, band:
         let x = img.sm[i];
         let tissue = d_lumen[k] >= vox3 && x >= tissue_band.0 && x <= tissue_band.1;
         if !two_tissues || (on_bone_edge[k] <= d_lumen[k] + 3 && !tissue) {
+            Ref::Bone
+        } else if 2 * d_part[k] <= 3 * vox3 && by_partition(i) {
             Ref::Bone
         } else if 2 * d_lumen[k] <= 3 * vox3 {
             Ref::Tissue
