@@ -110,8 +110,9 @@ pub(super) fn fraction_area(img: &Img, r: &Region, side: f64, lv: &Levels, band:
     // or limbus on bone is not a blurred bone edge). Where no ray says (it crossed a thin septum or
     // the partition, or ran past a corner), the stretch of edge nearest the pixel decides: bone
     // beyond stretches that meet bone directly (bone within 1.75 voxels; an edge with a ray
-    // counts as its ray says), out to the band; soft tissue elsewhere, but only within 1.5 voxels
-    // of the lumen: beyond the lumen's own blur soft tissue holds no lumen.
+    // counts as its ray says), out to the band; bone within 1.5 voxels of the partition (see
+    // `by_partition`); soft tissue elsewhere, but only within 1.5 voxels of the lumen: beyond
+    // the lumen's own blur soft tissue holds no lumen.
     #[derive(Clone, Copy, PartialEq)]
     enum Ref {
         Bone,
@@ -189,9 +190,9 @@ pub(super) fn fraction_area(img: &Img, r: &Region, side: f64, lv: &Levels, band:
         }
         let x = img.sm[i];
         let tissue = d_lumen[k] >= vox3 && x >= tissue_band.0 && x <= tissue_band.1;
-        if !two_tissues || (on_bone_edge[k] <= d_lumen[k] + 3 && !tissue) {
-            Ref::Bone
-        } else if 2 * d_part[k] <= 3 * vox3 && by_partition(i) {
+        let bone_edge = on_bone_edge[k] <= d_lumen[k] + 3 && !tissue;
+        let partition = 2 * d_part[k] <= 3 * vox3 && by_partition(i);
+        if !two_tissues || bone_edge || partition {
             Ref::Bone
         } else if 2 * d_lumen[k] <= 3 * vox3 {
             Ref::Tissue

@@ -315,8 +315,9 @@ impl Layer {
 /// tissue between two lumens) or that reaches a region again says nothing about any material and
 /// is dropped. The value says which material (the area step compares it with the
 /// soft-tissue–bone midpoint); the soft-tissue level itself comes from [`wall_level`]. With
-/// `limbus` (scala vestibuli), rays across a thin crest are fitted for a limbus on a bony shelf
-/// ([`fit_bar`]) instead of being taken as bare crests.
+/// `limbus` (scala vestibuli's partition), rays across a thin crest are fitted for a limbus on a
+/// bony shelf ([`fit_bar`]) instead of being taken as bare crests, also where the crest stays
+/// near the soft-tissue level on the modiolar side of the lamina tip.
 pub(super) fn plateaus(
     img: &Img,
     masks: &[&[bool]],
