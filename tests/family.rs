@@ -8,8 +8,9 @@
 //! What is held here is what the method reaches today, as a guard against regressions; the
 //! targets of the measures issue (median ≤ 1.5 %, p95 ≤ 4 %) are not met on every member yet —
 //! the lumen fractions next to soft tissue are only as good as the soft-tissue level read from
-//! the lateral wall, and the limbus on the thin bony shelf is read by a coarser rule (README,
-//! limits). The printed table is the record.
+//! the lateral wall (within about 0.04 of the lumen–bone step on this family), and the limbus on
+//! the thin bony shelf is read by a coarser rule (README, limits). The printed table is the
+//! record.
 
 use ductline::centreline::FitSettings;
 use ductline::cochlea::Greenwood;
@@ -171,17 +172,19 @@ fn family_sweep() {
         // read under one voxel from a one-profile scatter either)
         assert!(sound >= 0.95, "member {}: {:.0} % of sections sound", m.n, 100.0 * sound);
         // the lateral wall, the median of its rows' errors, within 0.35 voxel (largest side; the
-        // issue's target is 0.3: members 3 and 5 sit at 0.30, the rest at 0.06–0.29). It was up
-        // to 0.43 (member 10) while a wall still rising through its outer half level was taken
-        // to end one sample after it began
+        // issue's target is 0.3: member 3 sits at 0.34, the rest at 0.08–0.29). It was up to
+        // 0.43 (member 10) while a wall still rising through its outer half level was taken to
+        // end one sample after it began, and 0.41 on member 1 when the soft-tissue level dropped
+        // to its truth before the wall's inner floor got its margin (`wall::LINING_MARGIN`)
         let vox = m.voxel.iter().fold(0.0f64, |a, &b| a.max(b)) / 1000.0;
         assert!(lm <= 0.35 * vox, "member {}: wall median error {:.1} µm", m.n, 1000.0 * lm);
         worst_sv = worst_sv.max(svm);
         worst_st = worst_st.max(stm);
     }
     // the state reached (see the module note), with room for other seeds: every member's median
-    // area error
-    // (taking bone from the sections nearby brought member 1 from 4.6/5.3 to 2.8/3.8 %)
-    assert!(worst_st < 0.05, "worst ST median error {:.1} %", 100.0 * worst_st);
-    assert!(worst_sv < 0.07, "worst SV median error {:.1} %", 100.0 * worst_sv);
+    // area error (taking bone from the sections nearby brought member 1 from 4.6/5.3 to
+    // 2.8/3.8 %; the soft-tissue level at its fitted value, bone next to the partition and the
+    // wider edge band the worst from 5.2/3.8 to 4.8/3.3 %)
+    assert!(worst_st < 0.04, "worst ST median error {:.1} %", 100.0 * worst_st);
+    assert!(worst_sv < 0.06, "worst SV median error {:.1} %", 100.0 * worst_sv);
 }
