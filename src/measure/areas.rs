@@ -91,9 +91,9 @@ pub(super) fn fraction_area(img: &Img, r: &Region, side: f64, lv: &Levels, band:
     // Next to the partition lies the bony shelf (modiolus to lamina tip) or the basilar
     // membrane, thinner than a voxel (lamina tip to ligament): both count against bone, where a
     // shelf whose blurred crest stays near the soft-tissue level (too low for its rays to say)
-    // counted as soft tissue took about a pixel of lumen off each side of it (the family at
-    // 65–80 µm: ST −4.5 % on a basal section of member 0). Not on scala vestibuli's side of the
-    // shelf, where the spiral limbus sits, nor within two voxels of the ligament.
+    // counted as soft tissue took about a pixel of lumen off each side of it (the family's
+    // member 0 at 80 µm, a basal section: ST −5.5 → +0.3 %). Not on scala vestibuli's side of
+    // the shelf, where the spiral limbus sits, nor within two voxels of the ligament.
     let vox_mm = erode as f64 * img.pitch;
     let by_partition = |i: usize| {
         let along = part.along(img.uv(i));

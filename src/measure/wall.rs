@@ -122,7 +122,7 @@ pub(super) fn wall(stack: &Stack, g: &SectionGeom, mid: [f64; 2], dir: [f64; 2],
     // ligament's own values scatter about that level (noise, and the wall fit's error of a few
     // hundredths), and those clipped above a floor at the level itself count as bone. With the
     // level itself, walls read 5–17 µm thicker on the family's members 0–2 at 60–80 µm (member
-    // 1: 0.19 → 0.41 voxel median error); with the margin 0.08–0.26 voxel.
+    // 1: 0.19 → 0.41 voxel median error); with the margin 0.08–0.25 voxel.
     let floor = lv.tissue + LINING_MARGIN * (bone - lv.lumen);
     let lo_in = if lined { inner[inner.len() / 2].max(floor.min(lo_out)) } else { inner[inner.len() / 2] };
     let peak = (a..b).max_by(|&i, &j| prof[i].total_cmp(&prof[j]))?;
