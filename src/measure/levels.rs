@@ -578,10 +578,11 @@ pub(super) fn wall_profile(img: &Img, found: &[super::regions::Region], lv: &Lev
 /// [`THIN_LAYER_VOX`]): the bony wall behind a ligament is often as thin as the blur, so its
 /// fitted step b stays well under bone, and t/b read the layer 0.04–0.1 of the lumen–bone step
 /// too high (the family at 35–80 µm: members 0, 1, 2, 4, 6, 8 and 9; areas next to the ligament
-/// several per cent high). t reads within 0.045 of the truth on every member. A layer fitted thinner than that (clinical CT, where the ligament is about a voxel)
-/// holds no pure soft tissue; its t is a partial-volume mix, and t/b is kept there (with t the
-/// family at 150 µm read SV+ST 6.7 → 9.7 % off, mean of the members' medians). In between,
-/// the level moves from one to the other.
+/// several per cent high). t reads within 0.045 of the truth on every member. A layer fitted
+/// thinner than that (clinical CT, where the ligament is about a voxel) holds no pure soft
+/// tissue; its t is a partial-volume mix, and t/b is kept there (with t the family at 150 µm
+/// read SV+ST 6.7 → 9.7 % off, mean of the members' medians). In between, the level moves from
+/// one to the other.
 pub(super) fn wall_level(p: &[f64], pitch: f64, vox: f64) -> Option<Wall> {
     let top = (0..p.len()).max_by(|&a, &b| p[a].total_cmp(&p[b]))?;
     let p = &p[..(top + 3).min(p.len())];

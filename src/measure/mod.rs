@@ -29,8 +29,8 @@
 //!    the bone level, out to a band of 4.5 voxels; next to the partition (the bony shelf seen from
 //!    scala tympani, the membrane beyond the lamina tip) bone too; elsewhere ref is the
 //!    soft-tissue level (taken a little higher where the pixel's own surroundings are), and only
-//!    within 1.5 voxels of the lumen — soft tissue beyond the lumen's blur holds no lumen, and a thin layer on bone is not
-//!    half fluid. A stretch of edge is lined with soft tissue where its rays climb from the
+//!    within 1.5 voxels of the lumen — soft tissue beyond the lumen's blur holds no lumen, and a
+//!    thin layer on bone is not half fluid. A stretch of edge is lined with soft tissue where its rays climb from the
 //!    lumen/soft-tissue midpoint to bone much more slowly than the section's bare edges do, even
 //!    where the layer is too thin to show a plateau. There a blurred lumen | soft tissue | bone
 //!    model is fitted to the ray (its lumen and bone edges; the blur from the section's bare
