@@ -2,8 +2,10 @@
 //! near the base) the lamina tips and ligament points are proposed along the whole spiral.
 //!
 //! The duct is followed apically in radial cuts (half-planes through the modiolar axis), one
-//! every `step_deg`. Each step is predicted from the points so far (a straight line in θ through
-//! the last four, for the log radius and the height of each edge) and searched near the prediction:
+//! every `step_deg`, each read as the mean of a thin slab of cuts that move with the spiral
+//! (noise down by up to √7 where the shelf is faint). Each step is predicted from the points so
+//! far (a straight line in θ through the last four, for the log radius and the height of each
+//! edge) and searched near the prediction:
 //!
 //! 1. the partition's height: in each column of the cut just inside the predicted lamina tip, the
 //!    height of the strongest bright ridge between darker fluid above and below (the bony shelf's
@@ -70,25 +72,37 @@ struct Cut {
 
 impl Cut {
     fn new(stack: &Stack, f: &Frame, angle_deg: f64, r: [f64; 2], h: [f64; 2], pitch: f64) -> Cut {
+        Cut::mean(stack, f, &[(angle_deg, 0.0, 0.0)], r, h, pitch)
+    }
+    /// The mean of the cuts at the angles of `at` (angle in degrees, then the r and h shifts in mm
+    /// that carry the cut at `at[0]`'s grid onto that angle's): a slab of cuts about one angle,
+    /// each moved with the spiral, averages the noise of the cuts as a thick slice would without
+    /// smearing the edges. A sample outside the stack in any cut is NaN.
+    fn mean(stack: &Stack, f: &Frame, at: &[(f64, f64, f64)], r: [f64; 2], h: [f64; 2], pitch: f64) -> Cut {
         let nr = ((r[1] - r[0]) / pitch).ceil().max(2.0) as usize;
         let nh = ((h[1] - h[0]) / pitch).ceil().max(2.0) as usize;
-        let mut v = Vec::with_capacity(nr * nh);
-        for j in 0..nh {
-            for i in 0..nr {
-                let p = f.to_stack(r[0] + i as f64 * pitch, angle_deg, h[0] + j as f64 * pitch);
-                v.push(if stack.contains_mm(p) { stack.sample_mm(p) } else { f32::NAN });
+        let mut v = vec![0.0f32; nr * nh];
+        for &(a, dr, dh) in at {
+            for j in 0..nh {
+                for i in 0..nr {
+                    let p = f.to_stack(r[0] + dr + i as f64 * pitch, a, h[0] + dh + j as f64 * pitch);
+                    v[j * nr + i] += if stack.contains_mm(p) { stack.sample_mm(p) } else { f32::NAN };
+                }
             }
         }
+        let n = at.len() as f32;
+        v.iter_mut().for_each(|x| *x /= n);
         Cut { r0: r[0], h0: h[0], pitch, nr, nh, v }
     }
     /// The cut the tracer reads for predicted lamina and ligament points `pl`, `pg` (their
     /// partition `width` apart): from the lamina's inner side (1.2 widths in) to beyond the
-    /// ligament, a duct height about their mean height, sampled every `pitch` mm.
-    fn around(stack: &Stack, f: &Frame, angle_deg: f64, pl: Edge, pg: Edge, vmax: f64, pitch: f64) -> Cut {
+    /// ligament, a duct height about their mean height, sampled every `pitch` mm; the mean of
+    /// the slab of cuts `slab` (see [`Cut::mean`]; its first angle is the cut's own).
+    fn around(stack: &Stack, f: &Frame, slab: &[(f64, f64, f64)], pl: Edge, pg: Edge, vmax: f64, pitch: f64) -> Cut {
         let width = pg.r - pl.r;
         let hp = 0.5 * (pl.h + pg.h);
         let half_h = 0.9 * width + 4.0 * vmax;
-        Cut::new(stack, f, angle_deg, [(pl.r - 1.2 * width).max(0.0), pg.r + 0.6 * width + 4.0 * vmax], [hp - half_h, hp + half_h], pitch)
+        Cut::mean(stack, f, slab, [(pl.r - 1.2 * width).max(0.0), pg.r + 0.6 * width + 4.0 * vmax], [hp - half_h, hp + half_h], pitch)
     }
     fn at(&self, i: usize, j: usize) -> f32 {
         self.v[j * self.nr + i]
@@ -218,6 +232,28 @@ fn predict(pts: &[Edge], a: f64) -> Edge {
     Edge { angle: a, r: line(&|e| e.r.ln()).exp(), h: line(&|e| e.h) }
 }
 
+/// The slab of cuts read for the step at `angle` (see [`Cut::mean`]): the cut itself first, then
+/// pairs either side about a voxel apart at the partition's middle, over at most ±0.4 of the step
+/// and three a side, each shifted as the predicted partition moves. Cuts a voxel apart carry
+/// independent noise; the partition's bony shelf, under a voxel thick and faint at 60–80 µm,
+/// then shows in a slab where one cut loses it in the noise.
+fn slab(lam: &[Edge], lig: &[Edge], angle: f64, step_deg: f64, vmax: f64) -> Vec<(f64, f64, f64)> {
+    let mid = |a: f64| {
+        let (l, g) = (predict(lam, a), predict(lig, a));
+        (0.5 * (l.r + g.r), 0.5 * (l.h + g.h))
+    };
+    let (r0, h0) = mid(angle);
+    let da = (vmax / r0.max(vmax)).to_degrees();
+    let m = ((0.4 * step_deg / da).floor() as i32).clamp(0, 3);
+    let mut out = vec![(angle, 0.0, 0.0)];
+    for k in (1..=m).flat_map(|k| [k, -k]) {
+        let a = angle + k as f64 * da;
+        let (r, h) = mid(a);
+        out.push((a, r - r0, h - h0));
+    }
+    out
+}
+
 /// Proposes lamina and ligament landmarks along the spiral from `seeds` (axis_base, axis_apex,
 /// window, and at least two lamina and two ligament points near the base), every `step_deg`.
 ///
@@ -272,7 +308,10 @@ pub fn trace(stack: &Stack, seeds: &[Landmark], step_deg: f64) -> Result<Trace> 
     let (l0, g0) = (*lam.last().unwrap(), *lig.last().unwrap());
     let guess = duct(stack, &frame, start, mid(&l0, &g0), (0.5 * (g0.r - l0.r).abs()).max(3.0 * vmax), pitch, &[]);
     let first = guess.and_then(|d| duct(stack, &frame, start, (d.r, d.h), d.rho, pitch, &[]));
-    let mut cal: Option<Offsets> = first.map(|d| offsets(&d, l0, g0));
+    // (the offsets found wherever the partition showed, the seeds' first; the median of the last
+    // nine is used, so one step misread in the noise does not move the guesses that follow)
+    let mut cals: Vec<Offsets> = first.map(|d| offsets(&d, l0, g0)).into_iter().collect();
+    let mut cal: Option<Offsets> = cals.first().copied();
     let mut ducts: Vec<(Edge, f64)> = first.map(|d| (Edge { angle: start, r: d.r, h: d.h }, d.rho)).into_iter().collect();
     let mut r_min = ducts.first().map_or(f64::INFINITY, |d| d.0.r);
     let mut angle = start;
@@ -292,7 +331,7 @@ pub fn trace(stack: &Stack, seeds: &[Landmark], step_deg: f64) -> Result<Trace> 
         let fine = if width < 3.0 * vmax {
             Err(format!("the predicted partition is under three voxels wide ({:.3} mm)", width))
         } else {
-            let cut = Cut::around(stack, &frame, angle, pl, pg, vmax, pitch);
+            let cut = Cut::around(stack, &frame, &slab(&lam, &lig, angle, step_deg, vmax), pl, pg, vmax, pitch);
             find(&cut, pl, pg, vmax).and_then(|(l, g, conf)| {
                 // a point far from its prediction is less sure; one over a fifth of the width off
                 // is not taken (the spiral changes slowly between steps)
@@ -332,7 +371,9 @@ pub fn trace(stack: &Stack, seeds: &[Landmark], step_deg: f64) -> Result<Trace> 
             (Ok((l, g, conf)), _, _) => {
                 if let Some(d) = &lumen {
                     let o = offsets(d, l, g);
-                    cal = Some(cal.map_or(o, |c| std::array::from_fn(|k| 0.5 * (c[k] + o[k]))));
+                    cals.push(o);
+                    let tail = &cals[cals.len().saturating_sub(9)..];
+                    cal = Some(std::array::from_fn(|k| median(&mut tail.iter().map(|c| c[k]).collect::<Vec<_>>())));
                 }
                 Ok((l, g, conf))
             }
@@ -507,11 +548,18 @@ fn find(cut: &Cut, pl: Edge, pg: Edge, vmax: f64) -> std::result::Result<(Edge, 
             break;
         }
     }
-    // Where the first rise does not level off within three voxels, the spiral ligament is too
-    // thin for the blur to show its own level, and the half level above lies past the lumen's
-    // edge (by about a voxel at a blur of one). Then the rise is fitted by a blurred
-    // lumen | soft tissue | bone model and the lumen edge is its first step.
-    if grad(flat) >= 0.25 * steep {
+    // Where the first rise does not level off within three voxels, or levels off only at a crest
+    // that falls again within three voxels with nothing brighter behind it (the blurred top of a
+    // bony wall as thin as the blur, not a soft-tissue plateau before the bone nor thick bone),
+    // the spiral ligament is too thin for the blur to show its own level, and the half level
+    // above lies past the lumen's edge (by about a voxel at a blur of one; member 6 at
+    // 40 × 40 × 60 µm, a 0.13 mm ligament on a 0.12 mm wall: 1.2 voxels). Then the rise is fitted by a blurred lumen | soft tissue | bone model and the
+    // lumen edge is its first step (none where the fit finds no layer: a bare wall keeps the
+    // half level).
+    let past = flat..(flat + 3 * vox_n).min(cut.nr);
+    let (lo, hi) = past.map(|i| prof[i]).fold((f64::INFINITY, f64::NEG_INFINITY), |(a, b), x| (a.min(x), b.max(x)));
+    let crest = hi < top + 0.5 * (top - lumen) && lo < top - 0.25 * (top - lumen);
+    if grad(flat) >= 0.25 * steep || crest {
         let a = ga.max(cut.col(rg - 0.25 * width));
         let b = (flat + 2 * vox_n).min(cut.nr - 1);
         if let Some(x) = layered_edge(&prof[a..=b], lumen, 1.5 * vox_n as f64) {
@@ -638,7 +686,7 @@ pub fn snap(stack: &Stack, frame: &Frame, lamina: V, ligament: V) -> Option<(V, 
     if pg.r - pl.r < 3.0 * vmax {
         return None;
     }
-    let (l, g, conf) = find(&Cut::around(stack, frame, angle, pl, pg, vmax, pitch), pl, pg, vmax).ok()?;
+    let (l, g, conf) = find(&Cut::around(stack, frame, &[(angle, 0.0, 0.0)], pl, pg, vmax, pitch), pl, pg, vmax).ok()?;
     (conf >= 0.2).then(|| (frame.to_stack(l.r, angle, l.h), frame.to_stack(g.r, angle, g.h)))
 }
 
