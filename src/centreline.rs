@@ -102,6 +102,18 @@ fn fit_edge(frame: &Frame, items: &[Landmark], idx: &[usize], theta: &[f64], kin
         })
         .collect();
     pts.sort_by(|a, b| a.0.total_cmp(&b.0).then(a.3.cmp(&b.3)));
+    // two points 0.1 mm or more apart within 0.06° of each other: the turns were not told apart
+    // there (a trace noisier than the gap between turns); no curve can pass through both
+    if let Some(w) = pts.windows(2).find(|w| w[1].0 - w[0].0 < 1e-3 && (w[1].1 - w[0].1).hypot(w[1].2 - w[0].2) > 0.1) {
+        return Err(Error::invalid(format!(
+            "{} landmarks #{} and #{} fall at the same angle ({:.1}°) {:.2} mm apart: the turns could not be told apart there; check them",
+            kind.as_str(),
+            w[0].3.min(w[1].3) + 1,
+            w[0].3.max(w[1].3) + 1,
+            w[0].0.to_degrees(),
+            (w[1].1 - w[0].1).hypot(w[1].2 - w[0].2)
+        )));
+    }
     // equal angles: nudge apart by a negligible amount so the knots increase strictly
     for k in 1..pts.len() {
         if pts[k].0 <= pts[k - 1].0 {

@@ -5,11 +5,12 @@
 //! 0° before it climbs. Instead, each edge's landmarks are chained: links go from a point to one
 //! a little further round (0 < Δangle < 180°) at a similar radius and height, cheapest first, each
 //! point taking one successor and one predecessor and no link closing a loop (a greedy path
-//! cover). Along a chain the angle grows by the wrapped steps. Which end is the base follows from
-//! the radius, which falls toward the apex, and the height, which rises overall; that also gives
-//! the handedness. Points the chains leave out (stray or duplicate clicks) are put on the turn
-//! whose curve lies nearest them; a point whose alternative turn lies about as near as its own
-//! is reported as ambiguous rather than guessed silently.
+//! cover; a link far dearer than the cover's typical link is cut). Along a chain the angle grows
+//! by the wrapped steps. Which end is the base follows from the radius, which falls toward the
+//! apex, and the height, which rises overall; that also gives the handedness. Points the main
+//! chain leaves out (stray or duplicate clicks, the pieces of a noisy trace) are put on the turn
+//! whose curve lies nearest them, the curve continued past its ends; a point whose alternative
+//! turn lies about as near as its own is reported as ambiguous rather than guessed silently.
 //!
 //! Angles in degrees, lengths in mm. The row order of the input never matters.
 
@@ -23,6 +24,8 @@ const STEP_WEIGHT: f64 = 4.0;
 /// or sinks ~0.5 mm between landmarks 30° apart).
 const MAX_JUMP: f64 = 0.3;
 const JUMP_PER_RAD: f64 = 0.6;
+/// A link dearer than this many times the median link of a first cover is left out.
+const MAX_LINK_COST: f64 = 6.0;
 /// Angle steps below this (degrees) do not link: a duplicate click is placed by matching instead.
 const MIN_STEP_DEG: f64 = 0.01;
 /// An alternative turn nearer than this many times the point's own distance makes it ambiguous…
@@ -98,12 +101,16 @@ pub fn assign(frame: &Frame, lamina: &[V], ligament: &[V]) -> Turns {
             pts[e].iter_mut().for_each(|p| p.a = -p.a);
         }
     }
-    // the other chains of an edge are placed on the turns where its main chain's curve lies nearest
+    // the other chains of an edge are placed, longest first, on the turns where the curve of
+    // the chains placed so far lies nearest (a chain of three or more placed unambiguously joins
+    // that curve, so a short piece near the apex is placed against the turn before it, not
+    // against a curve that ends a turn short of it)
     let mut theta = [vec![f64::NAN; pts[0].len()], vec![f64::NAN; pts[1].len()]];
     let mut ambiguous = vec![];
     for e in 0..2 {
         let Some(main) = chains[e].first() else { continue };
-        let curve = Curve::new(&main.idx, &main.theta, &pts[e]);
+        let mut placed: Vec<(f64, usize)> = main.theta.iter().copied().zip(main.idx.iter().copied()).collect();
+        let mut curve = Curve::new(&main.idx, &main.theta, &pts[e]);
         for (k, c) in chains[e].iter().enumerate() {
             let (shift, alt) = if k == 0 { (0.0, None) } else { curve.place(c, &pts[e]) };
             for (&i, &t) in c.idx.iter().zip(&c.theta) {
@@ -111,6 +118,12 @@ pub fn assign(frame: &Frame, lamina: &[V], ligament: &[V]) -> Turns {
                 if let Some(alt) = alt {
                     ambiguous.push((e, i, t + shift, t + alt));
                 }
+            }
+            if k > 0 && c.idx.len() >= 3 && alt.is_none() {
+                placed.extend(c.theta.iter().map(|t| t + shift).zip(c.idx.iter().copied()));
+                placed.sort_by(|a, b| a.0.total_cmp(&b.0));
+                let (t, idx): (Vec<f64>, Vec<usize>) = placed.iter().copied().unzip();
+                curve = Curve::new(&idx, &t, &pts[e]);
             }
         }
     }
@@ -207,26 +220,15 @@ fn chain(pts: &[Cyl]) -> Vec<Chain> {
         }
     }
     links.sort_by(|a, b| a.0.total_cmp(&b.0).then((a.1, a.2).cmp(&(b.1, b.2))));
-    let (mut succ, mut pred) = (vec![usize::MAX; n], vec![usize::MAX; n]);
-    let mut root: Vec<usize> = (0..n).collect();
-    fn find(root: &mut [usize], mut i: usize) -> usize {
-        while root[i] != i {
-            root[i] = root[root[i]];
-            i = root[i];
-        }
-        i
-    }
-    for (_, i, j) in links {
-        if succ[i] != usize::MAX || pred[j] != usize::MAX {
-            continue;
-        }
-        let (ri, rj) = (find(&mut root, i), find(&mut root, j));
-        if ri == rj {
-            continue;
-        }
-        root[ri] = rj;
-        succ[i] = j;
-        pred[j] = i;
+    // the cover, then again without the links dearer than six times the median link it took: in
+    // a noisy trace two chains can zig-zag through one turn, and the one left over at a turn's
+    // end then reaches back a quarter turn to another turn (a jump its own turn never makes);
+    // cut there, the pieces are placed on their turns like stray points
+    let (mut succ, mut pred) = cover(n, &links, f64::INFINITY);
+    let mut taken: Vec<f64> = links.iter().filter(|l| succ[l.1] == l.2).map(|l| l.0).collect();
+    if !taken.is_empty() {
+        taken.sort_by(f64::total_cmp);
+        (succ, pred) = cover(n, &links, MAX_LINK_COST * taken[taken.len() / 2]);
     }
     let mut out: Vec<Chain> = (0..n)
         .filter(|&i| pred[i] == usize::MAX)
@@ -244,6 +246,34 @@ fn chain(pts: &[Cyl]) -> Vec<Chain> {
         .collect();
     out.sort_by(|a, b| b.span().total_cmp(&a.span()).then(b.idx.len().cmp(&a.idx.len())).then(a.idx[0].cmp(&b.idx[0])));
     out
+}
+
+/// The greedy path cover of `n` points by `links` (cost, from, to), cheapest first, each point
+/// taking one successor and one predecessor and no link closing a loop, links dearer than
+/// `max_cost` left out: (successor, predecessor) of each point, `usize::MAX` for none.
+fn cover(n: usize, links: &[(f64, usize, usize)], max_cost: f64) -> (Vec<usize>, Vec<usize>) {
+    let (mut succ, mut pred) = (vec![usize::MAX; n], vec![usize::MAX; n]);
+    let mut root: Vec<usize> = (0..n).collect();
+    fn find(root: &mut [usize], mut i: usize) -> usize {
+        while root[i] != i {
+            root[i] = root[root[i]];
+            i = root[i];
+        }
+        i
+    }
+    for &(cost, i, j) in links {
+        if cost > max_cost || succ[i] != usize::MAX || pred[j] != usize::MAX {
+            continue;
+        }
+        let (ri, rj) = (find(&mut root, i), find(&mut root, j));
+        if ri == rj {
+            continue;
+        }
+        root[ri] = rj;
+        succ[i] = j;
+        pred[j] = i;
+    }
+    (succ, pred)
 }
 
 /// An edge's curve from its main chain: radius and height, piecewise linear in angle (degrees),
@@ -273,6 +303,27 @@ impl Curve {
         (self.r[k - 1] + f * (self.r[k] - self.r[k - 1]), self.z[k - 1] + f * (self.z[k] - self.z[k - 1]))
     }
 
+    /// (radius, height) at angle `t`, continued beyond the ends along the straight line through
+    /// the curve's last (first) quarter turn, the radius kept above zero: a chain lying past the
+    /// curve's end is compared with where the spiral goes, not with its end held still (a trace
+    /// whose one stray point split the apical turn off its chain had that turn put a turn lower).
+    fn at_extended(&self, t: f64) -> (f64, f64) {
+        let n = self.t.len();
+        let (end, from) = if t > self.t[n - 1] {
+            (n - 1, self.t.partition_point(|&x| x < self.t[n - 1] - 90.0).min(n - 1))
+        } else if t < self.t[0] {
+            (0, self.t.partition_point(|&x| x <= self.t[0] + 90.0).saturating_sub(1))
+        } else {
+            return self.at(t);
+        };
+        let dt = self.t[end] - self.t[from];
+        if dt.abs() < 1e-9 {
+            return self.at(t);
+        }
+        let f = (t - self.t[end]) / dt;
+        ((self.r[end] + f * (self.r[end] - self.r[from])).max(0.0), self.z[end] + f * (self.z[end] - self.z[from]))
+    }
+
     /// Distance (mm, in the radius–height plane) of a point from the curve at angle `t`.
     fn dist(&self, t: f64, p: Cyl) -> f64 {
         let (r, z) = self.at(t);
@@ -296,16 +347,24 @@ impl Curve {
 
     /// The whole-turn shift (degrees) that puts a chain nearest this curve, and a second shift
     /// when that one is about as near (ambiguous). Only shifts that keep the chain's middle within
-    /// half a turn of the curve's range are tried.
+    /// a turn of the curve's range are tried (beyond its ends the curve is continued, see
+    /// [`Curve::at_extended`]).
     fn place(&self, c: &Chain, pts: &[Cyl]) -> (f64, Option<f64>) {
         let mid = 0.5 * (c.theta[0] + c.theta[c.theta.len() - 1]);
-        let (lo, hi) = (self.t[0] - 180.0, self.t[self.t.len() - 1] + 180.0);
+        let (lo, hi) = (self.t[0] - 360.0, self.t[self.t.len() - 1] + 360.0);
         let mut costs: Vec<(f64, f64)> = (((lo - mid) / 360.0).floor() as i64..=((hi - mid) / 360.0).ceil() as i64)
             .map(|m| 360.0 * m as f64)
             .filter(|s| (lo..=hi).contains(&(mid + s)))
-            .map(|s| (c.idx.iter().zip(&c.theta).map(|(&i, &t)| self.dist(t + s, pts[i])).sum::<f64>() / c.idx.len() as f64, s))
+            .map(|s| {
+                let d = c.idx.iter().zip(&c.theta).map(|(&i, &t)| {
+                    let (r, z) = self.at_extended(t + s);
+                    (pts[i].r - r).hypot(pts[i].z - z)
+                });
+                (d.sum::<f64>() / c.idx.len() as f64, s)
+            })
             .collect();
         costs.sort_by(|a, b| a.0.total_cmp(&b.0));
+
         match costs.as_slice() {
             [] => (0.0, None),
             [(_, s)] => (*s, None),
