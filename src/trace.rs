@@ -96,12 +96,14 @@ impl Cut {
     }
     /// The cut the tracer reads for predicted lamina and ligament points `pl`, `pg` (their
     /// partition `width` apart): from the lamina's inner side (1.2 widths in) to beyond the
-    /// ligament, a duct height about their mean height, sampled every `pitch` mm; the mean of
-    /// the slab of cuts `slab` (see [`Cut::mean`]; its first angle is the cut's own).
+    /// ligament, and as high as [`find`] reads about their mean height (its search band of a tenth
+    /// of the width and a voxel either side, and the fluid it samples 4.5 voxels off the
+    /// partition), sampled every `pitch` mm; the mean of the slab of cuts `slab` (see
+    /// [`Cut::mean`]; its first angle is the cut's own).
     fn around(stack: &Stack, f: &Frame, slab: &[(f64, f64, f64)], pl: Edge, pg: Edge, vmax: f64, pitch: f64) -> Cut {
         let width = pg.r - pl.r;
         let hp = 0.5 * (pl.h + pg.h);
-        let half_h = 0.9 * width + 4.0 * vmax;
+        let half_h = 0.1 * width + 7.0 * vmax;
         Cut::mean(stack, f, slab, [(pl.r - 1.2 * width).max(0.0), pg.r + 0.6 * width + 4.0 * vmax], [hp - half_h, hp + half_h], pitch)
     }
     fn at(&self, i: usize, j: usize) -> f32 {

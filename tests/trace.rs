@@ -46,17 +46,19 @@ fn run(spec: PhantomSpec) -> (f64, f64, f64) {
     (med, p95, depth)
 }
 
-/// From seven points, on the default phantom and on family members at 30–50 µm (thin shelf
-/// tapering toward the apex, limbus, ligament, scanner effects; left and right ears): the
-/// proposals lie within 1 voxel (median) and 2 voxels (p95) of the true edge curves and reach at
-/// least 95 % of the true angular depth, and no more than 40° past it (the duct runs 25° on). Member 8 (35 × 35 × 50 µm, tilted) is traced and printed
-/// but not held: it reaches its full depth, but its proposals stray up to 2.3 voxels (p95; the
-/// README says so).
+/// From seven points, on the default phantom and on family members at 30–80 µm (thin shelf
+/// tapering toward the apex, limbus, ligament, scanner effects; left and right ears, tilted,
+/// anisotropic voxels): the proposals lie within 1 voxel (median) and 2 voxels (p95) of the true
+/// edge curves and reach at least 95 % of the true angular depth, and no more than 40° past it
+/// (the duct runs 25° on). Members 1 (70 µm, blur 1.1 voxels), 2 (60 × 60 × 80 µm, contrast to
+/// noise 9) and 8 (35 × 35 × 50 µm, tilted 49°) strayed 2.9, 4.0 and 5.7 voxels (p95) before each
+/// step read a slab of cuts (a shelf too faint in one cut), the guesses kept a median offset and
+/// a ligament on a wall as thin as the blur was fitted; now 1.5, 0.7 and 0.7.
 #[test]
 fn proposals_follow_the_true_edges() {
     let only: Option<u64> = std::env::var("DL_ONLY").ok().and_then(|x| x.parse().ok());
     let mut cases = vec![(None, PhantomSpec { voxel_um: [40.0; 3], ..Default::default() })];
-    for (n, v) in [(3, [50.0; 3]), (7, [40.0; 3]), (10, [30.0; 3]), (8, [35.0, 35.0, 50.0])] {
+    for (n, v) in [(3, [50.0; 3]), (7, [40.0; 3]), (10, [30.0; 3]), (8, [35.0, 35.0, 50.0]), (1, [70.0; 3]), (2, [60.0, 60.0, 80.0])] {
         cases.push((Some(n), PhantomSpec { truth_step_deg: 30.0, ..PhantomSpec::variant(n, v) }));
     }
     for (n, spec) in cases {
@@ -65,9 +67,6 @@ fn proposals_follow_the_true_edges() {
         }
         let tmax = spec.theta_max().to_degrees();
         let (med, p95, depth) = run(spec);
-        if n == Some(8) {
-            continue;
-        }
         assert!(med <= 1.0 && p95 <= 2.0, "member {n:?}: off the edges median {med:.2}, p95 {p95:.2} voxels");
         assert!(depth >= 0.95 && depth * tmax <= tmax + 40.0, "member {n:?}: reached {:.0} % of the depth", 100.0 * depth);
     }
@@ -93,50 +92,65 @@ fn clinical_resolution_follows_the_lumen() {
 }
 
 /// The proposals (seeds included) written as an ordinary landmark CSV measure like the truth:
-/// the default phantom at 40 µm, length within 0.5 % and SV/ST areas within 1.5 % (median) and 4 %
-/// (p95) of the analytic truth over the sections at least 30° from either end.
+/// length within 0.5 % and SV/ST areas within 1.5 % (median) and 4 % (p95) of the analytic truth
+/// over the sections at least 30° from either end — on the default phantom at 40 µm and on
+/// family members 5 (45 µm: limbus, a shelf tapering to 0.015 mm, cupping and rings, contrast to
+/// noise 21) and 10 (30 µm, a left ear tilted 51°). The README gives the whole family's numbers
+/// (members whose measure from the true landmarks already misses 1.5 % do not make it from
+/// proposals either).
 #[test]
 fn proposals_measure_like_the_truth() {
-    let spec = PhantomSpec { voxel_um: [40.0; 3], truth_step_deg: 5.0, ..Default::default() };
-    let ph = phantom::generate(&spec, &Progress::new()).unwrap();
-    let s = seeds(&ph);
-    let t = ductline::trace::trace(&ph.stack, &s, 10.0).unwrap();
-    let text = ductline::trace::to_csv(&s, &t);
-    let lms = ductline::landmarks::parse_csv(&text, std::path::Path::new("traced.csv"), Some(&ph.stack)).unwrap();
-    assert_eq!(lms.len(), s.len() + t.proposed.len());
-    let ms = ductline::measure::MeasureSettings { step_mm: 0.25, ..Default::default() };
-    let gw = ductline::cochlea::Greenwood::preset("human").unwrap();
-    let out = ductline::pipeline::run(&ph.stack, &lms, &ductline::centreline::FitSettings::default(), &ms, &[], &gw, &Progress::new()).unwrap();
-    // the traced depth may pass the landmarks' 900° (the phantom's duct runs on): compare over
-    // the truth's span
-    let tmax = spec.theta_max().to_degrees();
-    let truth_at = |a: f64, f: &dyn Fn(&phantom::TruthRow) -> f64| {
-        let tr = &ph.truth;
-        let k = tr.partition_point(|r| r.angle_deg < a).clamp(1, tr.len() - 1);
-        let (p, q) = (&tr[k - 1], &tr[k]);
-        f(p) + (a - p.angle_deg) / (q.angle_deg - p.angle_deg) * (f(q) - f(p))
-    };
-    let at_tmax = out.rows.iter().min_by(|a, b| (a.angle_deg - tmax).abs().total_cmp(&(b.angle_deg - tmax).abs())).unwrap();
-    let len = at_tmax.s_mm - out.rows[0].s_mm;
-    eprintln!("traced length to {tmax:.0}°: {len:.3} mm, phantom {:.3} mm", ph.length_mm);
-    assert!((len / ph.length_mm - 1.0).abs() < 0.005 + 0.25 / ph.length_mm, "length {len} vs {}", ph.length_mm);
-    for (name, get, truth) in [
-        (
-            "SV",
-            (|r: &ductline::measure::Row| r.sv.area) as fn(&ductline::measure::Row) -> Option<f64>,
-            (|t: &phantom::TruthRow| t.sv_area_mm2) as fn(&phantom::TruthRow) -> f64,
-        ),
-        ("ST", |r| r.st.area, |t| t.st_area_mm2),
-    ] {
-        let mut e: Vec<f64> = out
-            .rows
-            .iter()
-            .filter(|r| r.angle_deg >= 30.0 && r.angle_deg <= tmax - 30.0)
-            .filter_map(|r| get(r).map(|a| (a / truth_at(r.angle_deg, &truth) - 1.0).abs()))
-            .collect();
-        let (med, p95) = (quantile(&mut e, 0.5), quantile(&mut e, 0.95));
-        eprintln!("{name}: area error median {:.2} %, p95 {:.2} % over {} sections", 100.0 * med, 100.0 * p95, e.len());
-        assert!(e.len() > 100 && med <= 0.015 && p95 <= 0.04, "{name}: median {med}, p95 {p95}");
+    let only: Option<u64> = std::env::var("DL_ONLY").ok().and_then(|x| x.parse().ok());
+    let cases = [
+        (None, PhantomSpec { voxel_um: [40.0; 3], truth_step_deg: 5.0, ..Default::default() }),
+        (Some(5), PhantomSpec { truth_step_deg: 5.0, ..PhantomSpec::variant(5, [45.0; 3]) }),
+        (Some(10), PhantomSpec { truth_step_deg: 5.0, ..PhantomSpec::variant(10, [30.0; 3]) }),
+    ];
+    for (n, spec) in cases {
+        if only.is_some_and(|o| Some(o) != n) {
+            continue;
+        }
+        let ph = phantom::generate(&spec, &Progress::new()).unwrap();
+        let s = seeds(&ph);
+        let t = ductline::trace::trace(&ph.stack, &s, 10.0).unwrap();
+        let text = ductline::trace::to_csv(&s, &t);
+        let lms = ductline::landmarks::parse_csv(&text, std::path::Path::new("traced.csv"), Some(&ph.stack)).unwrap();
+        assert_eq!(lms.len(), s.len() + t.proposed.len());
+        let ms = ductline::measure::MeasureSettings { step_mm: 0.25, ..Default::default() };
+        let gw = ductline::cochlea::Greenwood::preset("human").unwrap();
+        let out = ductline::pipeline::run(&ph.stack, &lms, &ductline::centreline::FitSettings::default(), &ms, &[], &gw, &Progress::new()).unwrap();
+        // the traced depth may pass the landmarks' last angle (the phantom's duct runs on):
+        // compare over the truth's span
+        let tmax = spec.theta_max().to_degrees();
+        let truth_at = |a: f64, f: &dyn Fn(&phantom::TruthRow) -> f64| {
+            let tr = &ph.truth;
+            let k = tr.partition_point(|r| r.angle_deg < a).clamp(1, tr.len() - 1);
+            let (p, q) = (&tr[k - 1], &tr[k]);
+            f(p) + (a - p.angle_deg) / (q.angle_deg - p.angle_deg) * (f(q) - f(p))
+        };
+        let at_tmax = out.rows.iter().min_by(|a, b| (a.angle_deg - tmax).abs().total_cmp(&(b.angle_deg - tmax).abs())).unwrap();
+        let len = at_tmax.s_mm - out.rows[0].s_mm;
+        let want = truth_at(at_tmax.angle_deg, &|r| r.s_mm);
+        eprintln!("member {n:?}: traced length to {:.0}°: {len:.3} mm, phantom {want:.3} mm", at_tmax.angle_deg);
+        assert!((len / want - 1.0).abs() < 0.005, "member {n:?}: length {len} vs {want}");
+        for (name, get, truth) in [
+            (
+                "SV",
+                (|r: &ductline::measure::Row| r.sv.area) as fn(&ductline::measure::Row) -> Option<f64>,
+                (|t: &phantom::TruthRow| t.sv_area_mm2) as fn(&phantom::TruthRow) -> f64,
+            ),
+            ("ST", |r| r.st.area, |t| t.st_area_mm2),
+        ] {
+            let mut e: Vec<f64> = out
+                .rows
+                .iter()
+                .filter(|r| r.angle_deg >= 30.0 && r.angle_deg <= tmax - 30.0)
+                .filter_map(|r| get(r).map(|a| (a / truth_at(r.angle_deg, &truth) - 1.0).abs()))
+                .collect();
+            let (med, p95) = (quantile(&mut e, 0.5), quantile(&mut e, 0.95));
+            eprintln!("member {n:?} {name}: area error median {:.2} %, p95 {:.2} % over {} sections", 100.0 * med, 100.0 * p95, e.len());
+            assert!(e.len() > 100 && med <= 0.015 && p95 <= 0.04, "member {n:?} {name}: median {med}, p95 {p95}");
+        }
     }
 }
 
