@@ -21,11 +21,12 @@
 //! Where the partition does not show — clinical CT, where the bony shelf and the membrane are far
 //! thinner than a voxel, or a stretch where the steps above fail — the lumen is followed instead:
 //! the duct's dark blob in the cut (its centroid and size, [`duct`]), with the lamina and ligament
-//! points kept where they last lay relative to it (offsets in units of the blob's size, taken
-//! wherever the partition was found, the seeds first). Such points carry a confidence under 0.5,
-//! so the review shows them as guesses. Tracing stops where the duct is lost — too small to
-//! follow, too little contrast three steps running, or the cut leaves the stack — and says at what
-//! angle and why.
+//! points kept where they lay relative to it (offsets in units of the blob's size, the median of
+//! the last nine steps that found the partition, the seeds first). Such points carry a confidence
+//! under 0.5, so the review shows them as guesses. Tracing stops where the duct is lost — too
+//! small to follow, too little contrast three steps running, or the cut leaves the stack — and
+//! says at what angle and why. Last, each edge's proposals are smoothed along the spiral
+//! ([`smooth_along`]; the seeds stay as placed).
 
 use crate::frame::{Frame, Handedness, v3::V};
 use crate::landmarks::{Kind, Landmark};
@@ -481,7 +482,7 @@ fn smooth_along(curve: &[Edge], conf: &[f64], fixed: &[bool], half_deg: f64, vma
     for pass in 0..3 {
         for i in (0..n).filter(|&i| !fixed[i]) {
             // weighted least squares of a quadratic in the angle apart (the basal turn's dip bends
-            // the height too much for a straight line over three steps a side), value at 0
+            // the height too much for a straight line over four steps a side), value at 0
             let mut a = [[0.0f64; 3]; 3];
             let (mut by, mut bz) = ([0.0f64; 3], [0.0f64; 3]);
             for j in 0..n {
@@ -648,9 +649,9 @@ fn find(cut: &Cut, pl: Edge, pg: Edge, vmax: f64) -> std::result::Result<(Edge, 
     // bony wall as thin as the blur, not a soft-tissue plateau before the bone nor thick bone),
     // the spiral ligament is too thin for the blur to show its own level, and the half level
     // above lies past the lumen's edge (by about a voxel at a blur of one; member 6 at
-    // 40 × 40 × 60 µm, a 0.13 mm ligament on a 0.12 mm wall: 1.2 voxels). Then the rise is fitted by a blurred lumen | soft tissue | bone model and the
-    // lumen edge is its first step (none where the fit finds no layer: a bare wall keeps the
-    // half level).
+    // 40 × 40 × 60 µm, a 0.13 mm ligament on a 0.12 mm wall: 1.2 voxels). Then the rise is
+    // fitted by a blurred lumen | soft tissue | bone model and the lumen edge is its first step
+    // (none where the fit finds no layer: a bare wall keeps the half level).
     let past = flat..(flat + 3 * vox_n).min(cut.nr);
     let (lo, hi) = past.map(|i| prof[i]).fold((f64::INFINITY, f64::NEG_INFINITY), |(a, b), x| (a.min(x), b.max(x)));
     let crest = hi < top + 0.5 * (top - lumen) && lo < top - 0.25 * (top - lumen);
