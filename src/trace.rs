@@ -335,7 +335,7 @@ pub fn trace(stack: &Stack, seeds: &[Landmark], step_deg: f64) -> Result<Trace> 
             Err(format!("the predicted partition is under three voxels wide ({:.3} mm)", width))
         } else {
             let cut = Cut::around(stack, &frame, &slab(&lam, &lig, angle, step_deg, vmax), pl, pg, vmax, pitch);
-            find(&cut, pl, pg, vmax).and_then(|(l, g, conf)| {
+            find(&cut, pl, pg, vmax, true).and_then(|(l, g, conf)| {
                 // a point far from its prediction is less sure; one over a fifth of the width off
                 // is not taken (the spiral changes slowly between steps)
                 let off = (l.r - pl.r).abs().max((g.r - pg.r).abs()).max((l.h - pl.h).abs()) / width;
@@ -546,8 +546,9 @@ fn outward(curve: &[Edge], e: Edge, width: f64) -> bool {
         && curve.iter().filter(|c| c.angle >= e.angle - 180.0 && c.angle < e.angle).map(|c| c.r).reduce(f64::min).is_some_and(|m| e.r > m + 0.15 * width)
 }
 
-/// The lamina tip, the ligament point and a confidence in one cut, given their predictions.
-fn find(cut: &Cut, pl: Edge, pg: Edge, vmax: f64) -> std::result::Result<(Edge, Edge, f64), String> {
+/// The lamina tip, the ligament point and a confidence in one cut, given their predictions;
+/// `crests`: whether a ligament rise that levels off only at a thin wall's crest is fitted (see below).
+fn find(cut: &Cut, pl: Edge, pg: Edge, vmax: f64, crests: bool) -> std::result::Result<(Edge, Edge, f64), String> {
     let width = pg.r - pl.r;
     let d = ((1.5 * vmax) / cut.pitch).round().max(2.0) as usize; // ridge flank offset (rows)
     let band = ((0.1 * width + vmax) / cut.pitch).ceil() as usize;
@@ -651,20 +652,15 @@ fn find(cut: &Cut, pl: Edge, pg: Edge, vmax: f64) -> std::result::Result<(Edge, 
     // above lies past the lumen's edge (by about a voxel at a blur of one; member 6 at
     // 40 × 40 × 60 µm, a 0.13 mm ligament on a 0.12 mm wall: 1.2 voxels). Then the rise is
     // fitted by a blurred lumen | soft tissue | bone model and the lumen edge is its first step
-    // (none where the fit finds no layer: a bare wall keeps the half level).
+    // (none where the fit finds no layer: a bare wall keeps the half level). Crests are read so
+    // only where `crests` is set (tracing, not a lone snap).
     let past = flat..(flat + 3 * vox_n).min(cut.nr);
     let (lo, hi) = past.map(|i| prof[i]).fold((f64::INFINITY, f64::NEG_INFINITY), |(a, b), x| (a.min(x), b.max(x)));
-    let crest = hi < top + 0.5 * (top - lumen) && lo < top - 0.25 * (top - lumen);
+    let crest = crests && hi < top + 0.5 * (top - lumen) && lo < top - 0.25 * (top - lumen);
     if grad(flat) >= 0.25 * steep || crest {
         let a = ga.max(cut.col(rg - 0.25 * width));
         let b = (flat + 2 * vox_n).min(cut.nr - 1);
-        // (at a crest, only a layer one and a half voxels wide or more at 15–50 % of the rise:
-        // the fit reads a layer into the crest of a bare bony ring too — the bundled sample's,
-        // 0.3 mm at 70 µm with no ligament, put the ligament a voxel inside the lumen — where
-        // the family's ligaments on thin walls fit two voxels wide at 23–28 %)
-        let layer =
-            layered_edge(&prof[a..=b], lumen, 1.5 * vox_n as f64).filter(|&(_, w, share)| !crest || (w >= 1.5 * vox_n as f64 && (0.15..=0.5).contains(&share)));
-        if let Some((x, _, _)) = layer {
+        if let Some((x, _, _)) = layered_edge(&prof[a..=b], lumen, 1.5 * vox_n as f64) {
             rg = cut.r0 + (a as f64 + x) * cut.pitch;
         }
     }
@@ -788,7 +784,10 @@ pub fn snap(stack: &Stack, frame: &Frame, lamina: V, ligament: V) -> Option<(V, 
     if pg.r - pl.r < 3.0 * vmax {
         return None;
     }
-    let (l, g, conf) = find(&Cut::around(stack, frame, &[(angle, 0.0, 0.0)], pl, pg, vmax, pitch), pl, pg, vmax).ok()?;
+    // (a crest is not fitted: one click's cut cannot tell a bare bony ring's blurred top from a
+    // thin wall behind a ligament — the bundled sample's bare 0.3 mm ring at 70 µm had the snap
+    // land a voxel inside the lumen — where a trace's steps are held to their prediction)
+    let (l, g, conf) = find(&Cut::around(stack, frame, &[(angle, 0.0, 0.0)], pl, pg, vmax, pitch), pl, pg, vmax, false).ok()?;
     (conf >= 0.2).then(|| (frame.to_stack(l.r, angle, l.h), frame.to_stack(g.r, angle, g.h)))
 }
 
