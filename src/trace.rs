@@ -547,7 +547,8 @@ fn outward(curve: &[Edge], e: Edge, width: f64) -> bool {
 }
 
 /// The lamina tip, the ligament point and a confidence in one cut, given their predictions;
-/// `crests`: whether a ligament rise that levels off only at a thin wall's crest is fitted (see below).
+/// `crests`: whether a ligament rise that levels off only at a thin wall's crest is fitted (see
+/// below).
 fn find(cut: &Cut, pl: Edge, pg: Edge, vmax: f64, crests: bool) -> std::result::Result<(Edge, Edge, f64), String> {
     let width = pg.r - pl.r;
     let d = ((1.5 * vmax) / cut.pitch).round().max(2.0) as usize; // ridge flank offset (rows)
@@ -660,7 +661,7 @@ fn find(cut: &Cut, pl: Edge, pg: Edge, vmax: f64, crests: bool) -> std::result::
     if grad(flat) >= 0.25 * steep || crest {
         let a = ga.max(cut.col(rg - 0.25 * width));
         let b = (flat + 2 * vox_n).min(cut.nr - 1);
-        if let Some((x, _, _)) = layered_edge(&prof[a..=b], lumen, 1.5 * vox_n as f64) {
+        if let Some(x) = layered_edge(&prof[a..=b], lumen, 1.5 * vox_n as f64) {
             rg = cut.r0 + (a as f64 + x) * cut.pitch;
         }
     }
@@ -714,10 +715,10 @@ fn find(cut: &Cut, pl: Edge, pg: Edge, vmax: f64, crests: bool) -> std::result::
 /// through a soft-tissue layer: the first step a of the blurred model
 /// m(x) = L + (T − L)·Φ((x − a)/σ) + (B − T)·Φ((x − a − w)/σ) fitted in least squares (T and B
 /// linear for each a, w and σ from half a sample to about `smax`; a coarse grid, then eighths
-/// about the best), with the layer's width w (samples) and its share of the whole rise. None
+/// about the best). None
 /// where the first step is under a tenth of the whole rise (no layer: the edge is the bone's) or
 /// above two thirds of it (no bone behind), or the fit fails.
-fn layered_edge(p: &[f64], lumen: f64, smax: f64) -> Option<(f64, f64, f64)> {
+fn layered_edge(p: &[f64], lumen: f64, smax: f64) -> Option<f64> {
     use crate::measure::{phi, phi_table, two_basis_fit};
     let n = p.len();
     if n < 6 {
@@ -764,9 +765,9 @@ fn layered_edge(p: &[f64], lumen: f64, smax: f64) -> Option<(f64, f64, f64)> {
             }
         }
     }
-    let (_, [t, b], a, w, _) = best;
+    let (_, [t, b], a, _, _) = best;
     let whole = t + b;
-    (whole > 0.0 && t >= 0.1 * whole && t <= 0.67 * whole).then_some((a, w, t / whole))
+    (whole > 0.0 && t >= 0.1 * whole && t <= 0.67 * whole).then_some(a)
 }
 
 /// Where the partition's ends lie near a guess, for snapping a click: `lamina` and `ligament`
