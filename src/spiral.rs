@@ -324,9 +324,10 @@ impl Curve {
         ((self.r[end] + f * (self.r[end] - self.r[from])).max(0.0), self.z[end] + f * (self.z[end] - self.z[from]))
     }
 
-    /// Distance (mm, in the radius–height plane) of a point from the curve at angle `t`.
+    /// Distance (mm, in the radius–height plane) of a point from the curve at angle `t` (continued
+    /// past its ends, see [`Curve::at_extended`]).
     fn dist(&self, t: f64, p: Cyl) -> f64 {
-        let (r, z) = self.at(t);
+        let (r, z) = self.at_extended(t);
         (p.r - r).hypot(p.z - z)
     }
 
@@ -355,13 +356,7 @@ impl Curve {
         let mut costs: Vec<(f64, f64)> = (((lo - mid) / 360.0).floor() as i64..=((hi - mid) / 360.0).ceil() as i64)
             .map(|m| 360.0 * m as f64)
             .filter(|s| (lo..=hi).contains(&(mid + s)))
-            .map(|s| {
-                let d = c.idx.iter().zip(&c.theta).map(|(&i, &t)| {
-                    let (r, z) = self.at_extended(t + s);
-                    (pts[i].r - r).hypot(pts[i].z - z)
-                });
-                (d.sum::<f64>() / c.idx.len() as f64, s)
-            })
+            .map(|s| (c.idx.iter().zip(&c.theta).map(|(&i, &t)| self.dist(t + s, pts[i])).sum::<f64>() / c.idx.len() as f64, s))
             .collect();
         costs.sort_by(|a, b| a.0.total_cmp(&b.0));
 

@@ -449,7 +449,6 @@ pub fn trace(stack: &Stack, seeds: &[Landmark], step_deg: f64) -> Result<Trace> 
     // each edge's proposals smoothed along the spiral against the seeds and each other (four
     // steps a side; at coarser steps the spiral bends too much between them)
     if step_deg <= 15.0 {
-        let vmax = vox.max();
         for (curve, kind) in [(&lam, Kind::Lamina), (&lig, Kind::Ligament)] {
             let conf: Vec<f64> =
                 curve.iter().map(|e| proposed.iter().find(|p| p.lm.kind == kind && p.angle_deg == e.angle).map_or(1.0, |p| p.confidence)).collect();
