@@ -1,0 +1,122 @@
+//! A cochlea built apart from ductline (`tests/fixtures/outside_phantom.py`, numpy and
+//! scipy.ndimage.gaussian_filter): a logarithmic spiral with rounded-rectangle scalae, the
+//! modiolar axis along the stack's rows, thin bony shells in porous bone, a spiral ligament, a
+//! bare bony shelf (no limbus), 80 µm voxels, blur one voxel, contrast-to-noise 12, 8-bit. Its
+//! truth (areas on planes normal to the analytic partition midline every 3°, the midline's
+//! length) comes from the same script. The method was not developed on it.
+//!
+//! What is held is what a user of other data would first ask: every section measured and sound,
+//! the midline length, SV+ST, and a trace from seven points over the whole duct. Known gap,
+//! held loosely: scala vestibuli reads about 5 % low (median) because the measure expects a
+//! spiral limbus on the vestibular side of the bony shelf (real cochleae have one, this phantom
+//! does not) and counts the blurred shelf there against soft tissue; scala tympani reads about
+//! 2 % high. See the README's limits.
+
+use ductline::centreline::FitSettings;
+use ductline::cochlea::Greenwood;
+use ductline::measure::{MeasureSettings, Row};
+use ductline::progress::Progress;
+use std::path::Path;
+
+mod common;
+
+struct Truth {
+    angle: Vec<f64>,
+    sv: Vec<f64>,
+    st: Vec<f64>,
+    length_mm: f64,
+    depth_deg: f64,
+}
+
+fn truth(dir: &Path) -> Truth {
+    let text = std::fs::read_to_string(dir.join("truth.csv")).unwrap();
+    let mut t = Truth { angle: vec![], sv: vec![], st: vec![], length_mm: 0.0, depth_deg: 0.0 };
+    for line in text.lines().skip(1) {
+        let v: Vec<f64> = line.split(',').map(|x| x.parse().unwrap()).collect();
+        t.angle.push(v[0]);
+        t.sv.push(v[2]);
+        t.st.push(v[3]);
+    }
+    let meta: serde_json::Value = serde_json::from_str(&std::fs::read_to_string(dir.join("phantom.json")).unwrap()).unwrap();
+    t.length_mm = meta["length_mm"].as_f64().unwrap();
+    t.depth_deg = meta["depth_deg"].as_f64().unwrap();
+    t
+}
+
+fn interp(x: &[f64], y: &[f64], at: f64) -> f64 {
+    let k = x.partition_point(|&a| a < at).clamp(1, x.len() - 1);
+    y[k - 1] + (at - x[k - 1]) / (x[k] - x[k - 1]) * (y[k] - y[k - 1])
+}
+
+/// Share of sound rows 30° or more from either end, and the median |error| (%) of SV, ST and
+/// SV+ST there, printed with the signed medians.
+fn score(label: &str, rows: &[Row], t: &Truth) -> (f64, f64, f64, f64) {
+    let inner: Vec<&Row> = rows.iter().filter(|r| r.angle_deg >= 30.0 && r.angle_deg <= t.depth_deg - 30.0).collect();
+    let sound = inner.iter().filter(|r| r.sound()).count() as f64 / inner.len() as f64;
+    let (mut sv, mut st, mut tot) = (vec![], vec![], vec![]);
+    for r in inner.iter().filter(|r| r.sound()) {
+        let (tsv, tst) = (interp(&t.angle, &t.sv, r.angle_deg), interp(&t.angle, &t.st, r.angle_deg));
+        let (a, b) = (r.sv.area.unwrap(), r.st.area.unwrap());
+        sv.push(100.0 * (a / tsv - 1.0));
+        st.push(100.0 * (b / tst - 1.0));
+        tot.push(100.0 * ((a + b) / (tsv + tst) - 1.0));
+    }
+    let med = |v: &mut Vec<f64>| {
+        v.sort_by(f64::total_cmp);
+        common::quantile(v, 0.5)
+    };
+    let abs_med = |v: &[f64]| med(&mut v.iter().map(|x| x.abs()).collect());
+    let out = (sound, abs_med(&sv), abs_med(&st), abs_med(&tot));
+    eprintln!(
+        "{label}: {} rows, {:.0} % sound; |error| median SV {:.1} % (signed {:+.1}), ST {:.1} % ({:+.1}), SV+ST {:.1} % ({:+.1})",
+        inner.len(),
+        100.0 * sound,
+        out.1,
+        med(&mut sv.clone()),
+        out.2,
+        med(&mut st.clone()),
+        out.3,
+        med(&mut tot.clone())
+    );
+    out
+}
+
+/// From its own landmarks (every 10°) and from a trace of seven points: 95 % of the sections or
+/// more sound (all are), SV+ST within 5 % median (the measures issue asks 3 % at 80 µm of its own
+/// family; here 3.1 % both ways), the length within 0.5 % from the landmarks (0.00 %) and 1 %
+/// traced (+0.49 %), the trace to at least 95 % of the depth (it reaches the end), SV and ST
+/// within 9 % median (5.1 and 4.7 % from the landmarks, 7.0 and 4.9 % traced: the known gap
+/// above).
+#[test]
+fn a_phantom_built_elsewhere() {
+    let dir = common::fixture("outside");
+    let stack = ductline::stack::load(&dir.join("stack.tif"), &Default::default()).unwrap();
+    assert_eq!(stack.voxel().unwrap().max(), 0.08, "voxel size from the ImageJ spacing");
+    let t = truth(&dir);
+    let landmarks = ductline::landmarks::read_csv(&dir.join("landmarks.csv"), Some(&stack)).unwrap();
+    let ms = MeasureSettings { step_mm: 0.25, ..Default::default() };
+    let gw = Greenwood::preset("human").unwrap();
+    let run = |lm: &[ductline::landmarks::Landmark]| ductline::pipeline::run(&stack, lm, &FitSettings::default(), &ms, &[], &gw, &Progress::new()).unwrap();
+
+    let placed = run(&landmarks);
+    let length = placed.centreline.length;
+    let (sound, sv, st, tot) = score("from the landmarks", &placed.rows, &t);
+    eprintln!("length {length:.3} mm, truth {:.3} mm", t.length_mm);
+    assert!(sound >= 0.95, "sound {sound}");
+    assert!(tot <= 5.0 && sv <= 9.0 && st <= 9.0, "SV+ST {tot} %, SV {sv} %, ST {st} %");
+    assert!((length / t.length_mm - 1.0).abs() <= 0.005, "length {length} for {}", t.length_mm);
+
+    let seeds = ductline::landmarks::read_csv(&dir.join("seeds.csv"), Some(&stack)).unwrap();
+    assert_eq!(seeds.len(), 7);
+    let traced = ductline::trace::trace(&stack, &seeds, 10.0).unwrap();
+    eprintln!("trace: to {:.0}° of {:.0}°: {}", traced.stopped_deg, t.depth_deg, traced.reason);
+    assert!(traced.stopped_deg >= 0.95 * t.depth_deg, "trace reached {}°", traced.stopped_deg);
+    let lm = ductline::landmarks::parse_csv(&ductline::trace::to_csv(&seeds, &traced), Path::new("traced.csv"), Some(&stack)).unwrap();
+    let out = run(&lm);
+    let length = out.centreline.length;
+    let (sound, sv, st, tot) = score("traced", &out.rows, &t);
+    eprintln!("traced length {length:.3} mm");
+    assert!(sound >= 0.95, "sound {sound}");
+    assert!(tot <= 5.0 && sv <= 9.0 && st <= 9.0, "SV+ST {tot} %, SV {sv} %, ST {st} %");
+    assert!((length / t.length_mm - 1.0).abs() <= 0.01, "traced length {length} for {}", t.length_mm);
+}
