@@ -343,6 +343,10 @@ pub struct MeasureArgs {
     /// Distance between sections along the centreline (mm).
     #[arg(long)]
     pub step_mm: Option<f64>,
+    /// Scala vestibuli's side of the bony shelf is bare (no spiral limbus): count the shelf as
+    /// bone from both sides.
+    #[arg(long)]
+    pub bare_shelf: bool,
     #[arg(long, value_name = "X[,Y,Z]")]
     pub voxel_um: Option<String>,
     /// Species preset of the frequency map (human, cat, guinea-pig, chinchilla, macaque, gerbil, mouse).
@@ -420,6 +424,9 @@ fn measure_one(a: &MeasureArgs, show: bool) -> Result<(pipeline::Outcome, projec
     };
     if let Some(s) = a.step_mm {
         prj.measure.step_mm = s;
+    }
+    if a.bare_shelf {
+        prj.measure.bare_shelf = true;
     }
     if let Some(sp) = &a.species {
         prj.species = sp.clone();

@@ -123,9 +123,24 @@ fn phantom_measure_end_to_end() {
     // the JSON loads with no custom code and carries the metadata
     let j: serde_json::Value = serde_json::from_str(&std::fs::read_to_string(&json).unwrap()).unwrap();
     let m = &j["metadata"];
-    for key in ["version", "caution", "stack", "voxel_mm", "voxel_source", "frame", "species", "frequency_map", "smoothing", "step_mm", "units", "materials"] {
+    for key in [
+        "version",
+        "caution",
+        "stack",
+        "voxel_mm",
+        "voxel_source",
+        "frame",
+        "species",
+        "frequency_map",
+        "smoothing",
+        "step_mm",
+        "bare_shelf",
+        "units",
+        "materials",
+    ] {
         assert!(!m[key].is_null(), "metadata.{key}");
     }
+    assert_eq!(m["bare_shelf"], false, "a spiral limbus is expected unless told otherwise");
     assert_eq!(j["rows"].as_array().unwrap().len(), rows.len());
     assert_eq!(m["frame"]["handedness"], "right");
     assert!(m["materials"]["note"].as_str().unwrap().contains("common-practice"));
@@ -278,8 +293,25 @@ fn trace_then_measure() {
     let (head, rows) = read_csv(&traced);
     assert_eq!(head, ["kind", "x_mm", "y_mm", "z_mm", "confidence", "source"]);
     assert!(rows.len() > 150 && rows.iter().filter(|r| r[5] == "seed").count() == 7);
-    let o = ductline(&["measure", "--stack", s(&d.join("p/phantom.tif")), "--landmarks", s(&traced), "--out", s(&d.join("t.csv")), "--step-mm", "0.25"]);
+    let json = d.join("t.json");
+    let o = ductline(&[
+        "measure",
+        "--stack",
+        s(&d.join("p/phantom.tif")),
+        "--landmarks",
+        s(&traced),
+        "--out",
+        s(&d.join("t.csv")),
+        "--step-mm",
+        "0.25",
+        "--bare-shelf",
+        "--json",
+        s(&json),
+    ]);
     assert!(o.status.success(), "{}", stderr(&o));
+    // the setting is recorded with the table
+    let j: serde_json::Value = serde_json::from_str(&std::fs::read_to_string(&json).unwrap()).unwrap();
+    assert_eq!(j["metadata"]["bare_shelf"], true);
     // one lamina seed only: refused, named
     std::fs::write(&seeds, lines[..lines.len() - 3].join("\n")).unwrap();
     let o = ductline(&["trace", "--stack", s(&d.join("p/phantom.tif")), "--seeds", s(&seeds), "--out", s(&traced)]);

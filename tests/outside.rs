@@ -9,8 +9,9 @@
 //! the midline length, SV+ST, and a trace from seven points over the whole duct. Known gap,
 //! held loosely: scala vestibuli reads about 5 % low (median) because the measure expects a
 //! spiral limbus on the vestibular side of the bony shelf (real cochleae have one, this phantom
-//! does not) and counts the blurred shelf there against soft tissue; scala tympani reads about
-//! 2 % high. See the README's limits.
+//! does not) and counts the blurred shelf there against soft tissue; told that the shelf is bare
+//! (`MeasureSettings::bare_shelf`) it reads 1 % low. Scala tympani reads about 2 % high. See the
+//! README's limits.
 
 use ductline::centreline::FitSettings;
 use ductline::cochlea::Greenwood;
@@ -86,7 +87,7 @@ fn score(label: &str, rows: &[Row], t: &Truth) -> (f64, f64, f64, f64) {
 /// family; here 3.1 % both ways), the length within 0.5 % from the landmarks (0.00 %) and 1 %
 /// traced (+0.49 %), the trace to at least 95 % of the depth (it reaches the end), SV and ST
 /// within 9 % median (5.1 and 4.7 % from the landmarks, 7.0 and 4.9 % traced: the known gap
-/// above).
+/// above); with `bare_shelf` set, SV within 4 % (3.4 %) and ST as before.
 #[test]
 fn a_phantom_built_elsewhere() {
     let dir = common::fixture("outside");
@@ -105,6 +106,12 @@ fn a_phantom_built_elsewhere() {
     assert!(sound >= 0.95, "sound {sound}");
     assert!(tot <= 5.0 && sv <= 9.0 && st <= 9.0, "SV+ST {tot} %, SV {sv} %, ST {st} %");
     assert!((length / t.length_mm - 1.0).abs() <= 0.005, "length {length} for {}", t.length_mm);
+
+    // told that the shelf is bare, scala vestibuli reads within 4 % median (3.4 %, signed −1.0 %)
+    let bare = MeasureSettings { bare_shelf: true, ..ms.clone() };
+    let told = ductline::pipeline::run(&stack, &landmarks, &FitSettings::default(), &bare, &[], &gw, &Progress::new()).unwrap();
+    let (sound, sv_bare, st_bare, _) = score("from the landmarks, bare shelf", &told.rows, &t);
+    assert!(sound >= 0.95 && sv_bare <= 4.0 && sv_bare < sv && (st_bare - st).abs() < 0.5, "bare shelf: SV {sv_bare} %, ST {st_bare} %");
 
     let seeds = ductline::landmarks::read_csv(&dir.join("seeds.csv"), Some(&stack)).unwrap();
     assert_eq!(seeds.len(), 7);

@@ -168,6 +168,17 @@ impl Side {
                 doc.dirty = true;
             }
         });
+        if ui
+            .checkbox(&mut doc.measure.bare_shelf, "bare shelf (no limbus)")
+            .on_hover_text(
+                "Scala vestibuli's side of the bony shelf carries no spiral limbus: the shelf counts as bone from both sides. \
+                 Leave off for real cochleae, which have one",
+            )
+            .changed()
+        {
+            doc.stale = true;
+            doc.dirty = true;
+        }
         egui::ComboBox::from_label("species").selected_text(doc.species.clone()).show_ui(ui, |ui| {
             for s in SPECIES {
                 if ui.selectable_value(&mut doc.species, s.to_string(), s).changed() {

@@ -126,6 +126,12 @@ fn measure_then_profile_and_inspector() {
     let doc = h.state().doc.as_ref().unwrap();
     assert_eq!(doc.overrides.len(), 1);
     assert!(doc.overrides[0].exclude && doc.stale);
+    // a bare shelf is a measure setting, kept in the project like the step
+    h.get_by_role_and_label(Role::CheckBox, "bare shelf (no limbus)").click();
+    h.step();
+    let doc = h.state().doc.as_ref().unwrap();
+    assert!(doc.measure.bare_shelf && doc.dirty);
+    assert!(doc.to_project(&std::env::temp_dir().join("p.ductline.json")).unwrap().measure.bare_shelf);
 }
 
 #[test]

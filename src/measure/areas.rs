@@ -93,11 +93,12 @@ pub(super) fn fraction_area(img: &Img, r: &Region, side: f64, lv: &Levels, band:
     // shelf whose blurred crest stays near the soft-tissue level (too low for its rays to say)
     // counted as soft tissue took about a pixel of lumen off each side of it (the family's
     // member 0 at 80 µm, a basal section: ST −5.5 → +0.3 %). Not on scala vestibuli's side of
-    // the shelf, where the spiral limbus sits, nor within two voxels of the ligament.
+    // the shelf, where the spiral limbus sits (unless the settings say the shelf is bare), nor
+    // within two voxels of the ligament.
     let vox_mm = erode as f64 * img.pitch;
     let by_partition = |i: usize| {
         let along = part.along(img.uv(i));
-        along < part.width() - 2.0 * vox_mm && (side < 0.0 || along > 0.0)
+        along < part.width() - 2.0 * vox_mm && (side < 0.0 || along > 0.0 || !part.limbus)
     };
     // one voxel in chamfer units (thirds of a pixel)
     let vox3 = 3 * erode as u32;
@@ -133,7 +134,7 @@ pub(super) fn fraction_area(img: &Img, r: &Region, side: f64, lv: &Levels, band:
             inside.then(|| (y as usize - reach.b0) * w + x as usize - reach.a0)
         };
         let plateaus;
-        (plateaus, blur) = super::levels::plateaus(img, &[mask], r.bounds, lv, erode, (side > 0.0).then_some(part));
+        (plateaus, blur) = super::levels::plateaus(img, &[mask], r.bounds, lv, erode, (side > 0.0 && part.limbus).then_some(part));
         for p in plateaus.iter().filter(|p| p.layer.is_none()) {
             let (a, b) = ((p.pixel % n) as f64, (p.pixel / n) as f64);
             let kind = if p.value < lv.bone_cut() { Ref::Tissue } else { Ref::Bone };

@@ -73,6 +73,13 @@ pub struct MeasureSettings {
     /// Lumen and bone grey levels for all sections (no soft-tissue class); None = found from the
     /// sections themselves.
     pub levels: Option<[f32; 2]>,
+    /// Scala vestibuli's side of the bony shelf is bare (no spiral limbus on it): the shelf then
+    /// counts as bone from both sides. Off by default: real cochleae carry a limbus there, and a
+    /// limbus as thin as the blur cannot be told from a bare shelf in the image, so the measure
+    /// reads the blurred shelf on that side against soft tissue (on a phantom without a limbus
+    /// that costs scala vestibuli 3–5 % of its area at 40–80 µm).
+    #[serde(default)]
+    pub bare_shelf: bool,
 }
 
 /// Distance (mm) within which sections lend each other their bone level (`levels::bone_nearby`).
@@ -83,7 +90,7 @@ const POOL_MM: f64 = 0.4;
 
 impl Default for MeasureSettings {
     fn default() -> Self {
-        MeasureSettings { step_mm: 0.1, pitch_mm: None, capture_mm: 3.0, levels: None }
+        MeasureSettings { step_mm: 0.1, pitch_mm: None, capture_mm: 3.0, levels: None, bare_shelf: false }
     }
 }
 
@@ -247,7 +254,7 @@ pub fn measure(
     };
     // each section's partition and the spaces around it, found once (the other turns' crossings
     // take a few root searches on the centreline)
-    let parts: Vec<Partition> = geoms.par_iter().map(|g| Partition::of(cl, g)).collect();
+    let parts: Vec<Partition> = geoms.par_iter().map(|g| Partition { limbus: !s.bare_shelf, ..Partition::of(cl, g) }).collect();
     // first pass: each section's first square, and the histograms that give the levels
     let first: Vec<Img> = geoms
         .par_iter()
@@ -431,6 +438,9 @@ struct Partition {
     /// plane, the modiolar axis (nerve core, internal auditory canal) and points beyond the
     /// lateral wall.
     others: Vec<[f64; 2]>,
+    /// Whether a spiral limbus is expected on scala vestibuli's side of the bony shelf
+    /// (`MeasureSettings::bare_shelf` off).
+    limbus: bool,
 }
 
 /// Distances (mm) past the ligament point, along the partition, of the points taken to lie
@@ -453,7 +463,7 @@ impl Partition {
         let foot = v3::axpy(f.origin, v3::dot(v3::sub(g.centre, f.origin), f.ez), f.ez);
         others.extend((-30..=30).map(|k| g.to_plane(v3::axpy(foot, 0.1 * k as f64, f.ez))));
         others.extend(BEYOND_WALL_MM.iter().map(|d| [lig[0] + d * dir[0], lig[1] + d * dir[1]]));
-        Partition { line: Line { p: lam, n }, mid, dir, others }
+        Partition { line: Line { p: lam, n }, mid, dir, others, limbus: true }
     }
 
     /// Distance (mm) of section point `q` along the partition from the lamina tip toward the
