@@ -213,6 +213,16 @@ fn duct(stack: &Stack, f: &Frame, angle_deg: f64, c: (f64, f64), rho: f64, pitch
     Some(Duct { r: sr / n, h: sh / n, rho: (n * pitch * pitch / std::f64::consts::PI).sqrt(), snr })
 }
 
+/// A partition narrower than this (mm) at the seeds is a basal basilar membrane of a real
+/// cochlea (about 0.08–0.16 mm wide there, widening toward the apex; REFERENCES.md, secondary),
+/// not a partition spanning the duct as in the phantom family.
+const NARROW_MM: f64 = 0.3;
+
+/// The duct's equivalent radius (mm) up to which the first search for its blob widens from a
+/// narrow partition: three voxels at clinical resolution (150 µm); a human basal duct is larger
+/// still (scalae of about 1 mm² each; from memory).
+const DUCT_RHO_MM: f64 = 0.45;
+
 /// Where the partition's ends lie relative to the duct, in units of its equivalent radius:
 /// (lamina r, lamina h, ligament r, ligament h) minus the centroid, over ρ.
 type Offsets = [f64; 4];
@@ -309,7 +319,22 @@ pub fn trace(stack: &Stack, seeds: &[Landmark], step_deg: f64) -> Result<Trace> 
     // time at the size the first found) sets where the partition's ends lie relative to it
     let mid = |l: &Edge, g: &Edge| (0.5 * (l.r + g.r), 0.5 * (l.h + g.h));
     let (l0, g0) = (*lam.last().unwrap(), *lig.last().unwrap());
-    let guess = duct(stack, &frame, start, mid(&l0, &g0), (0.5 * (g0.r - l0.r).abs()).max(3.0 * vmax), pitch, &[]);
+    // (half the partition's width, at least three voxels, is the first guess of the duct's size.
+    // At the base of a real cochlea the basilar membrane is a fifth of the duct's width or less
+    // (under [`NARROW_MM`]), and its midpoint lies by the lateral wall: there, while the blob
+    // fills the disc it may take, the search widens from its centroid, up to [`DUCT_RHO_MM`].
+    // Past that the disc would reach the next turn, not yet traced to be kept apart.)
+    let mut guess = None;
+    let (mut c, mut rho) = (mid(&l0, &g0), (0.5 * (g0.r - l0.r).abs()).max(3.0 * vmax));
+    let narrow = (g0.r - l0.r).abs() < NARROW_MM;
+    loop {
+        let Some(d) = duct(stack, &frame, start, c, rho, pitch, &[]) else { break };
+        guess = Some(d);
+        if !narrow || d.rho < 0.8 * rho || rho >= 0.99 * DUCT_RHO_MM {
+            break;
+        }
+        (c, rho) = ((d.r, d.h), (1.5 * rho).min(DUCT_RHO_MM));
+    }
     let first = guess.and_then(|d| duct(stack, &frame, start, (d.r, d.h), d.rho, pitch, &[]));
     // (the offsets found wherever the partition showed, the seeds' first; the median of the last
     // nine is used, so one step misread in the noise does not move the guesses that follow)
