@@ -327,8 +327,7 @@ pub fn trace(stack: &Stack, seeds: &[Landmark], step_deg: f64) -> Result<Trace> 
     let mut guess = None;
     let (mut c, mut rho) = (mid(&l0, &g0), (0.5 * (g0.r - l0.r).abs()).max(3.0 * vmax));
     let narrow = (g0.r - l0.r).abs() < NARROW_MM;
-    loop {
-        let Some(d) = duct(stack, &frame, start, c, rho, pitch, &[]) else { break };
+    while let Some(d) = duct(stack, &frame, start, c, rho, pitch, &[]) {
         guess = Some(d);
         if !narrow || d.rho < 0.8 * rho || rho >= 0.99 * DUCT_RHO_MM {
             break;
