@@ -62,20 +62,18 @@ fn score(label: &str, rows: &[Row], t: &Truth) -> (f64, f64, f64, f64) {
         st.push(100.0 * (b / tst - 1.0));
         tot.push(100.0 * ((a + b) / (tsv + tst) - 1.0));
     }
-    let med = |v: &mut Vec<f64>| {
-        v.sort_by(f64::total_cmp);
-        common::quantile(v, 0.5)
-    };
-    let abs_med = |v: &[f64]| med(&mut v.iter().map(|x| x.abs()).collect());
+    // (`common::quantile` sorts its own copy)
+    let med = |v: &[f64]| common::quantile(v, 0.5);
+    let abs_med = |v: &[f64]| med(&v.iter().map(|x| x.abs()).collect::<Vec<_>>());
     let out = (sound, abs_med(&sv), abs_med(&st), abs_med(&tot));
     eprintln!(
         "{label}: {} rows, {:.0} % sound; |error| median SV {:.1} % (signed {:+.1}), ST {:.1} % ({:+.1}), SV+ST {:.1} % ({:+.1})",
         inner.len(),
         100.0 * sound,
         out.1,
-        med(&mut sv.clone()),
+        med(&sv),
         out.2,
-        med(&mut st.clone()),
+        med(&st),
         out.3,
         med(&mut tot.clone())
     );
@@ -97,9 +95,11 @@ fn a_phantom_built_elsewhere() {
     let landmarks = ductline::landmarks::read_csv(&dir.join("landmarks.csv"), Some(&stack)).unwrap();
     let ms = MeasureSettings { step_mm: 0.25, ..Default::default() };
     let gw = Greenwood::preset("human").unwrap();
-    let run = |lm: &[ductline::landmarks::Landmark]| ductline::pipeline::run(&stack, lm, &FitSettings::default(), &ms, &[], &gw, &Progress::new()).unwrap();
+    let run = |lm: &[ductline::landmarks::Landmark], ms: &MeasureSettings| {
+        ductline::pipeline::run(&stack, lm, &FitSettings::default(), ms, &[], &gw, &Progress::new()).unwrap()
+    };
 
-    let placed = run(&landmarks);
+    let placed = run(&landmarks, &ms);
     let length = placed.centreline.length;
     let (sound, sv, st, tot) = score("from the landmarks", &placed.rows, &t);
     eprintln!("length {length:.3} mm, truth {:.3} mm", t.length_mm);
@@ -109,7 +109,7 @@ fn a_phantom_built_elsewhere() {
 
     // told that the shelf is bare, scala vestibuli reads within 4 % median (3.4 %, signed −1.0 %)
     let bare = MeasureSettings { bare_shelf: true, ..ms.clone() };
-    let told = ductline::pipeline::run(&stack, &landmarks, &FitSettings::default(), &bare, &[], &gw, &Progress::new()).unwrap();
+    let told = run(&landmarks, &bare);
     let (sound, sv_bare, st_bare, _) = score("from the landmarks, bare shelf", &told.rows, &t);
     assert!(sound >= 0.95 && sv_bare <= 4.0 && sv_bare < sv && (st_bare - st).abs() < 0.5, "bare shelf: SV {sv_bare} %, ST {st_bare} %");
 
@@ -119,7 +119,7 @@ fn a_phantom_built_elsewhere() {
     eprintln!("trace: to {:.0}° of {:.0}°: {}", traced.stopped_deg, t.depth_deg, traced.reason);
     assert!(traced.stopped_deg >= 0.95 * t.depth_deg, "trace reached {}°", traced.stopped_deg);
     let lm = ductline::landmarks::parse_csv(&ductline::trace::to_csv(&seeds, &traced), Path::new("traced.csv"), Some(&stack)).unwrap();
-    let out = run(&lm);
+    let out = run(&lm, &ms);
     let length = out.centreline.length;
     let (sound, sv, st, tot) = score("traced", &out.rows, &t);
     eprintln!("traced length {length:.3} mm");
