@@ -95,14 +95,14 @@ impl Cut {
         v.iter_mut().for_each(|x| *x /= n);
         Cut { r0: r[0], h0: h[0], pitch, nr, nh, v }
     }
-    /// The cut the tracer reads for predicted lamina and ligament points `pl`, `pg` (their
-    /// partition `width` apart): from the lamina's inner side (1.2 widths in) to beyond the
+    /// The cut the tracer reads for predicted lamina and ligament points `pl`, `pg` with windows
+    /// scaled by `width` (the partition's, or more; see [`SPAN_OF_DUCT`]): from the lamina's
+    /// inner side (1.2 widths in) to beyond the
     /// ligament, and as high as [`find`] reads about their mean height (its search band of a tenth
     /// of the width and a voxel either side, and the fluid it samples 4.5 voxels off the
     /// partition), sampled every `pitch` mm; the mean of the slab of cuts `slab` (see
     /// [`Cut::mean`]; its first angle is the cut's own).
-    fn around(stack: &Stack, f: &Frame, slab: &[(f64, f64, f64)], pl: Edge, pg: Edge, vmax: f64, pitch: f64) -> Cut {
-        let width = pg.r - pl.r;
+    fn around(stack: &Stack, f: &Frame, slab: &[(f64, f64, f64)], pl: Edge, pg: Edge, width: f64, vmax: f64, pitch: f64) -> Cut {
         let hp = 0.5 * (pl.h + pg.h);
         let half_h = 0.1 * width + 7.0 * vmax;
         Cut::mean(stack, f, slab, [(pl.r - 1.2 * width).max(0.0), pg.r + 0.6 * width + 4.0 * vmax], [hp - half_h, hp + half_h], pitch)
@@ -226,6 +226,12 @@ const DUCT_RHO_MM: f64 = 0.45;
 /// Where the partition's ends lie relative to the duct, in units of its equivalent radius:
 /// (lamina r, lamina h, ligament r, ligament h) minus the centroid, over ρ.
 type Offsets = [f64; 4];
+
+/// The tracer's windows about the partition's ends scale with the partition's width, but with
+/// at least this share of the duct's equivalent radius: a basal membrane of a fifth of the
+/// duct's width would otherwise leave windows of a voxel or two, too small to read the shelf's
+/// level inside its tip or to take the step-to-step change of a membrane that widens apically.
+const SPAN_OF_DUCT: f64 = 0.5;
 
 fn offsets(d: &Duct, l: Edge, g: Edge) -> Offsets {
     [(l.r - d.r) / d.rho, (l.h - d.h) / d.rho, (g.r - d.r) / d.rho, (g.h - d.h) / d.rho]
@@ -354,15 +360,16 @@ pub fn trace(stack: &Stack, seeds: &[Landmark], step_deg: f64) -> Result<Trace> 
         }
         let (pl, pg) = (predict(&lam, angle), predict(&lig, angle));
         let width = pg.r - pl.r;
+        let span = width.max(SPAN_OF_DUCT * ducts.last().map_or(0.0, |d| d.1));
         // the partition itself, where it shows
         let fine = if width < 3.0 * vmax {
             Err(format!("the predicted partition is under three voxels wide ({:.3} mm)", width))
         } else {
-            let cut = Cut::around(stack, &frame, &slab(&lam, &lig, angle, step_deg, vmax), pl, pg, vmax, pitch);
-            find(&cut, pl, pg, vmax, true).and_then(|(l, g, conf)| {
-                // a point far from its prediction is less sure; one over a fifth of the width off
+            let cut = Cut::around(stack, &frame, &slab(&lam, &lig, angle, step_deg, vmax), pl, pg, span, vmax, pitch);
+            find(&cut, pl, pg, span, vmax, true).and_then(|(l, g, conf)| {
+                // a point far from its prediction is less sure; one over a fifth of the span off
                 // is not taken (the spiral changes slowly between steps)
-                let off = (l.r - pl.r).abs().max((g.r - pg.r).abs()).max((l.h - pl.h).abs()) / width;
+                let off = (l.r - pl.r).abs().max((g.r - pg.r).abs()).max((l.h - pl.h).abs()) / span;
                 let conf = conf * (-(off / 0.12).powi(2)).exp();
                 if conf < 0.2 || off > 0.2 {
                     Err("the partition is lost (confidence under 0.2, or far from its prediction)".to_string())
@@ -569,11 +576,11 @@ fn outward(curve: &[Edge], e: Edge, width: f64) -> bool {
         && curve.iter().filter(|c| c.angle >= e.angle - 180.0 && c.angle < e.angle).map(|c| c.r).reduce(f64::min).is_some_and(|m| e.r > m + 0.15 * width)
 }
 
-/// The lamina tip, the ligament point and a confidence in one cut, given their predictions;
-/// `crests`: whether a ligament rise that levels off only at a thin wall's crest is fitted (see
-/// below).
-fn find(cut: &Cut, pl: Edge, pg: Edge, vmax: f64, crests: bool) -> std::result::Result<(Edge, Edge, f64), String> {
-    let width = pg.r - pl.r;
+/// The lamina tip, the ligament point and a confidence in one cut, given their predictions and
+/// the `width` (mm) the search windows scale with (the predicted partition's, or more for a
+/// narrow membrane: [`SPAN_OF_DUCT`]); `crests`: whether a ligament rise that levels off only
+/// at a thin wall's crest is fitted (see below).
+fn find(cut: &Cut, pl: Edge, pg: Edge, width: f64, vmax: f64, crests: bool) -> std::result::Result<(Edge, Edge, f64), String> {
     let d = ((1.5 * vmax) / cut.pitch).round().max(2.0) as usize; // ridge flank offset (rows)
     let band = ((0.1 * width + vmax) / cut.pitch).ceil() as usize;
     let hp = 0.5 * (pl.h + pg.h);
@@ -811,7 +818,8 @@ pub fn snap(stack: &Stack, frame: &Frame, lamina: V, ligament: V) -> Option<(V, 
     // (a crest is not fitted: one click's cut cannot tell a bare bony ring's blurred top from a
     // thin wall behind a ligament — the bundled sample's bare 0.3 mm ring at 70 µm had the snap
     // land a voxel inside the lumen — where a trace's steps are held to their prediction)
-    let (l, g, conf) = find(&Cut::around(stack, frame, &[(angle, 0.0, 0.0)], pl, pg, vmax, pitch), pl, pg, vmax, false).ok()?;
+    let width = pg.r - pl.r;
+    let (l, g, conf) = find(&Cut::around(stack, frame, &[(angle, 0.0, 0.0)], pl, pg, width, vmax, pitch), pl, pg, width, vmax, false).ok()?;
     (conf >= 0.2).then(|| (frame.to_stack(l.r, angle, l.h), frame.to_stack(g.r, angle, g.h)))
 }
 

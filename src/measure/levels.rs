@@ -531,7 +531,7 @@ fn inv_phi(p: f64) -> f64 {
 }
 
 /// Length of a lateral-wall profile (mm): the thickest spiral ligament and the bone behind it.
-const PROFILE_MM: f64 = 0.6;
+pub(super) const PROFILE_MM: f64 = 0.6;
 
 /// The summed profile, in q = (v − lumen)/(bone − lumen), across the lateral wall next to the
 /// partition's outer end, and the number of rays summed (see [`wall_level`]).
