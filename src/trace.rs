@@ -18,6 +18,11 @@
 //! Each proposed point carries a confidence (the partition's and the duct's contrast against the
 //! noise, lowered by a jump from the prediction).
 //!
+//! The search windows scale with the predicted partition's width, but with at least half the
+//! duct's equivalent radius: a real basal membrane is a fifth of the duct's width or less. With
+//! seeds on such a narrow membrane (under [`NARROW_MM`]), a lamina tip not found near its
+//! prediction is looked for farther in, since the membrane widens toward the apex.
+//!
 //! Where the partition does not show — clinical CT, where the bony shelf and the membrane are far
 //! thinner than a voxel, or a stretch where the steps above fail — the lumen is followed instead:
 //! the duct's dark blob in the cut (its centroid and size, [`duct`]), with the lamina and ligament
@@ -360,11 +365,15 @@ pub fn trace(stack: &Stack, seeds: &[Landmark], step_deg: f64) -> Result<Trace> 
         }
         let (pl, pg) = (predict(&lam, angle), predict(&lig, angle));
         let width = pg.r - pl.r;
-        let span = width.max(SPAN_OF_DUCT * ducts.last().map_or(0.0, |d| d.1));
-        // the partition itself, where it shows
-        let fine = if width < 3.0 * vmax {
-            Err(format!("the predicted partition is under three voxels wide ({:.3} mm)", width))
-        } else {
+        let rho_now = ducts.last().map_or(0.0, |d| d.1);
+        let span = width.max(SPAN_OF_DUCT * rho_now);
+        // the partition itself, where it shows, for a lamina tip predicted at `pl`
+        let look = |pl: Edge| {
+            let width = pg.r - pl.r;
+            let span = width.max(SPAN_OF_DUCT * rho_now);
+            if width < 3.0 * vmax {
+                return Err(format!("the predicted partition is under three voxels wide ({:.3} mm)", width));
+            }
             let cut = Cut::around(stack, &frame, &slab(&lam, &lig, angle, step_deg, vmax), pl, pg, span, vmax, pitch);
             find(&cut, pl, pg, span, vmax, true).and_then(|(l, g, conf)| {
                 // a point far from its prediction is less sure; one over a fifth of the span off
@@ -378,6 +387,23 @@ pub fn trace(stack: &Stack, seeds: &[Landmark], step_deg: f64) -> Result<Trace> 
                 }
             })
         };
+        let mut fine = look(pl);
+        // A narrow basal membrane widens toward the apex (REFERENCES.md) faster than the steps
+        // so far predict, and its tip is then lost inward of the prediction: there the tip is
+        // looked for farther in, a quarter of the span a step, up to a partition 1.4 ρ wide
+        // (seven tenths of the duct's equivalent diameter); the first found with a confidence of
+        // 0.3 or more is taken.
+        if narrow && fine.is_err() {
+            let mut w = if width < 3.0 * vmax { 3.0 * vmax } else { width + 0.25 * span };
+            while w <= 1.4 * rho_now {
+                let found = look(Edge { r: pg.r - w, ..pl });
+                if found.as_ref().is_ok_and(|f| f.2 >= 0.3) {
+                    fine = found;
+                    break;
+                }
+                w += 0.25 * span;
+            }
+        }
         // the duct's blob, near where the last ones predict it and apart from the turns below
         // (traced one and two turns back in the same plane)
         // (the size expected: the median of the last nine; the duct narrows slowly toward the

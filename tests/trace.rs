@@ -93,20 +93,32 @@ fn clinical_resolution_follows_the_lumen() {
 
 /// A basal basilar membrane as narrow as a real cochlea's (REFERENCES.md: about 0.08–0.16 mm at
 /// the base, widening toward the apex): the default phantom with the bony shelf spanning 91 %
-/// of the duct's width at the base and 40 % at the apex (partition 0.16 → 0.5 mm), at 40 and
-/// 80 µm. The seeds' partition is then two to four voxels wide and its midpoint lies by the
-/// lateral wall; the first search for the duct's blob took the partition's width for the duct's
-/// size and found a sliver, so at 80 µm, where the partition does not show, the trace stopped at
-/// 25° (3 % of the depth). Now both reach at least 90 % of the depth (103 %: the duct runs 25°
-/// on). At 40 µm the partition is followed (0.12 / 0.26 voxel off the true edges, median / p95);
-/// at 80 µm the guesses keep the seeds' place relative to the duct and do not follow the
-/// membrane's widening (1.1 / 5.3 voxels: printed, not held).
+/// of the duct's width at the base and 40 % at the apex (partition 0.16 → 0.5 mm). The seeds'
+/// partition is then two to four voxels wide and its midpoint lies by the lateral wall; the first
+/// search for the duct's blob took the partition's width for the duct's size and found a sliver,
+/// so at 80 µm, where the partition does not show, the trace stopped at 25° (3 % of the depth);
+/// now it reaches at least 90 % (103 %: the duct runs 25° on).
+///
+/// At 40 µm with scanner noise (contrast to noise 12, blur one voxel; also with a duct as wide as
+/// a human basal turn's, half-width 0.85 mm, and a 0.05 mm shelf) the partition is followed: the
+/// proposals lie within 1 voxel (median) and 2 voxels (p95) of the true edges. Before, the
+/// search windows scaled with the predicted partition (a voxel or two to read the shelf's level
+/// inside its tip), the lamina tip was lost inward as the membrane widened faster than predicted,
+/// and the guesses that stood in kept the seeds' place relative to the duct: both cases 1.3 and
+/// 1.1 voxels off (median), 11 (p95); the lamina tips alone 7.3 and 8.4 (median). At 80 µm the
+/// 0.03 mm shelf is a third of a voxel thick and often guessed (printed, not held).
 #[test]
 fn a_narrow_basal_membrane() {
-    for v in [40.0, 80.0] {
-        let spec = PhantomSpec { voxel_um: [v; 3], shelf_fraction: [0.91, 0.4], truth_step_deg: 30.0, ..Default::default() };
-        let (_, _, depth) = run(spec);
-        assert!(depth >= 0.9, "{v} µm: reached {:.0} % of the depth", 100.0 * depth);
+    let narrow = PhantomSpec { shelf_fraction: [0.91, 0.4], truth_step_deg: 30.0, ..Default::default() };
+    let mut noisy = PhantomSpec { voxel_um: [40.0; 3], blur_vox: 1.0, ..narrow.clone() };
+    noisy.scanner.cnr = Some(12.0);
+    let wide_duct = PhantomSpec { half_width_mm: [0.85, 0.42], shelf_thickness_mm: 0.05, ..noisy.clone() };
+    for (name, spec, follows) in
+        [("40 µm, noisy", noisy, true), ("40 µm, noisy, a wide duct", wide_duct, true), ("80 µm", PhantomSpec { voxel_um: [80.0; 3], ..narrow }, false)]
+    {
+        let (med, p95, depth) = run(spec);
+        assert!(depth >= 0.9, "{name}: reached {:.0} % of the depth", 100.0 * depth);
+        assert!(!follows || (med <= 1.0 && p95 <= 2.0), "{name}: off the edges median {med:.2}, p95 {p95:.2} voxels");
     }
 }
 
