@@ -107,6 +107,7 @@ impl Cut {
     /// of the width and a voxel either side, and the fluid it samples 4.5 voxels off the
     /// partition), sampled every `pitch` mm; the mean of the slab of cuts `slab` (see
     /// [`Cut::mean`]; its first angle is the cut's own).
+    #[allow(clippy::too_many_arguments)]
     fn around(stack: &Stack, f: &Frame, slab: &[(f64, f64, f64)], pl: Edge, pg: Edge, width: f64, vmax: f64, pitch: f64) -> Cut {
         let hp = 0.5 * (pl.h + pg.h);
         let half_h = 0.1 * width + 7.0 * vmax;
