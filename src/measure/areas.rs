@@ -183,9 +183,20 @@ pub(super) fn fraction_area(img: &Img, r: &Region, side: f64, lv: &Levels, band:
             }
         }
     }
+    // The bony shelf's blur reaches about three blur widths past it: within that of the
+    // partition line over the shelf (the modiolar side of the lamina tip), where `by_partition`
+    // holds, a pixel counts against bone whatever its ray says. Under a blur of 1.5 voxels the
+    // shelf's crest sits near the soft-tissue level and its rays took it for soft tissue, each
+    // taking most of a voxel of lumen off scala tympani along the shelf — most of its roof where
+    // the basilar membrane is as narrow as a real one (member 13 at 40 µm: ST −7.6 → −0.9 %
+    // signed median). In chamfer units (three a pixel); `blur` is σ in pixels.
+    let shelf_reach = (1.5 * vox3 as f64).max(9.0 * blur.unwrap_or(0.0));
     let on_bone_edge = chamfer(w, h, |k| mask[at(k)] && lined[k].map_or(4 * d_bone[k] <= 7 * vox3, |r| r == Ref::Bone));
     let reference = |i: usize| {
         let k = (i / n - reach.b0) * w + i % n - reach.a0;
+        if (d_part[k] as f64) <= shelf_reach && part.along(img.uv(i)) < 0.0 && by_partition(i) {
+            return Ref::Bone;
+        }
         if let Some(r) = by_ray[k] {
             return r;
         }

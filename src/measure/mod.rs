@@ -28,7 +28,8 @@
 //!    fraction (ref − v)/(ref − lumen). Beyond stretches of edge that meet bone directly, ref is
 //!    the bone level, out to a band of 4.5 voxels; next to the partition (the bony shelf seen from
 //!    scala tympani, and from scala vestibuli too where `bare_shelf` is set; the membrane beyond
-//!    the lamina tip) bone too; elsewhere ref is the
+//!    the lamina tip) bone too — over the shelf out to three blur widths from the partition line,
+//!    whatever the edge's rays say, as far as the shelf's blur reaches; elsewhere ref is the
 //!    soft-tissue level (taken a little higher where the pixel's own surroundings are), and only
 //!    within 1.5 voxels of the lumen — soft tissue beyond the lumen's blur holds no lumen, and a
 //!    thin layer on bone is not half fluid. A stretch of edge is lined with soft tissue where its rays climb from the
