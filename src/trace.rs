@@ -102,11 +102,10 @@ impl Cut {
     }
     /// The cut the tracer reads for predicted lamina and ligament points `pl`, `pg` with windows
     /// scaled by `width` (the partition's, or more; see [`SPAN_OF_DUCT`]): from the lamina's
-    /// inner side (1.2 widths in) to beyond the
-    /// ligament, and as high as [`find`] reads about their mean height (its search band of a tenth
-    /// of the width and a voxel either side, and the fluid it samples 4.5 voxels off the
-    /// partition), sampled every `pitch` mm; the mean of the slab of cuts `slab` (see
-    /// [`Cut::mean`]; its first angle is the cut's own).
+    /// inner side (1.2 widths in) to beyond the ligament, and as high as [`find`] reads about
+    /// their mean height (its search band of a tenth of the width and a voxel either side, and
+    /// the fluid it samples 4.5 voxels off the partition), sampled every `pitch` mm; the mean of
+    /// the slab of cuts `slab` (see [`Cut::mean`]; its first angle is the cut's own).
     #[allow(clippy::too_many_arguments)]
     fn around(stack: &Stack, f: &Frame, slab: &[(f64, f64, f64)], pl: Edge, pg: Edge, width: f64, vmax: f64, pitch: f64) -> Cut {
         let hp = 0.5 * (pl.h + pg.h);
