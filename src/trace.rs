@@ -738,7 +738,13 @@ fn find(cut: &Cut, pl: Edge, pg: Edge, width: f64, vmax: f64, crests: bool) -> s
     if lb <= la + 2 {
         return Err("the lamina and the ligament run together".into());
     }
-    let mut inner: Vec<f64> = shelf[la..=cut.col(pl.r - 0.05 * width).max(la)].iter().cloned().filter(|x| x.is_finite()).collect();
+    // (beside a narrow membrane, whose tip moves inward as it widens, the shelf's level is read
+    // farther in, half the span to a tenth: a window reaching the tip reads it low, and the
+    // crossing then lags toward the prediction step after step — family member 12 lost the
+    // partition at 450° and stopped at 530° of 925°)
+    let narrow = pg.r - pl.r < width;
+    let (ia, ib) = if narrow { (cut.col(pl.r - 0.5 * width), cut.col(pl.r - 0.1 * width)) } else { (la, cut.col(pl.r - 0.05 * width).max(la)) };
+    let mut inner: Vec<f64> = shelf[ia..=ib].iter().cloned().filter(|x| x.is_finite()).collect();
     let mut outer: Vec<f64> =
         shelf[cut.col(pl.r + 0.15 * width).min(lb)..=cut.col(rg - 0.1 * width).max(lb)].iter().cloned().filter(|x| x.is_finite()).collect();
     let (s_in, s_out) = (median(&mut inner), median(&mut outer));
