@@ -366,15 +366,19 @@ pub fn trace(stack: &Stack, seeds: &[Landmark], step_deg: f64) -> Result<Trace> 
         let (pl, pg) = (predict(&lam, angle), predict(&lig, angle));
         let width = pg.r - pl.r;
         let rho_now = ducts.last().map_or(0.0, |d| d.1);
-        let span = width.max(SPAN_OF_DUCT * rho_now);
+        // the scale of the search windows for a partition `w` mm wide
+        let span_of = |w: f64| w.max(SPAN_OF_DUCT * rho_now);
+        let span = span_of(width);
+        // (the slab's cuts follow the predicted partition, whatever lamina tip is tried in it)
+        let cuts = slab(&lam, &lig, angle, step_deg, vmax);
         // the partition itself, where it shows, for a lamina tip predicted at `pl`
         let look = |pl: Edge| {
             let width = pg.r - pl.r;
-            let span = width.max(SPAN_OF_DUCT * rho_now);
+            let span = span_of(width);
             if width < 3.0 * vmax {
                 return Err(format!("the predicted partition is under three voxels wide ({:.3} mm)", width));
             }
-            let cut = Cut::around(stack, &frame, &slab(&lam, &lig, angle, step_deg, vmax), pl, pg, span, vmax, pitch);
+            let cut = Cut::around(stack, &frame, &cuts, pl, pg, span, vmax, pitch);
             find(&cut, pl, pg, span, vmax, true).and_then(|(l, g, conf)| {
                 // a point far from its prediction is less sure; one over a fifth of the span off
                 // is not taken (the spiral changes slowly between steps)

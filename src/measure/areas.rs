@@ -96,10 +96,8 @@ pub(super) fn fraction_area(img: &Img, r: &Region, side: f64, lv: &Levels, band:
     // the shelf, where the spiral limbus sits (unless the settings say the shelf is bare), nor
     // within two voxels of the ligament.
     let vox_mm = erode as f64 * img.pitch;
-    let by_partition = |i: usize| {
-        let along = part.along(img.uv(i));
-        along < part.width() - 2.0 * vox_mm && (side < 0.0 || along > 0.0 || !part.limbus)
-    };
+    // (`along`: the pixel's distance along the partition from the lamina tip, `Partition::along`)
+    let by_partition = |along: f64| along < part.width() - 2.0 * vox_mm && (side < 0.0 || along > 0.0 || !part.limbus);
     // one voxel in chamfer units (thirds of a pixel)
     let vox3 = 3 * erode as u32;
     // a pixel a voxel or more outside the lumen whose value sits at the soft-tissue level is soft
@@ -194,7 +192,8 @@ pub(super) fn fraction_area(img: &Img, r: &Region, side: f64, lv: &Levels, band:
     let on_bone_edge = chamfer(w, h, |k| mask[at(k)] && lined[k].map_or(4 * d_bone[k] <= 7 * vox3, |r| r == Ref::Bone));
     let reference = |i: usize| {
         let k = (i / n - reach.b0) * w + i % n - reach.a0;
-        if (d_part[k] as f64) <= shelf_reach && part.along(img.uv(i)) < 0.0 && by_partition(i) {
+        let along = part.along(img.uv(i));
+        if (d_part[k] as f64) <= shelf_reach && along < 0.0 && by_partition(along) {
             return Ref::Bone;
         }
         if let Some(r) = by_ray[k] {
@@ -203,7 +202,7 @@ pub(super) fn fraction_area(img: &Img, r: &Region, side: f64, lv: &Levels, band:
         let x = img.sm[i];
         let tissue = d_lumen[k] >= vox3 && x >= tissue_band.0 && x <= tissue_band.1;
         let bone_edge = on_bone_edge[k] <= d_lumen[k] + 3 && !tissue;
-        let partition = 2 * d_part[k] <= 3 * vox3 && by_partition(i);
+        let partition = 2 * d_part[k] <= 3 * vox3 && by_partition(along);
         if !two_tissues || bone_edge || partition {
             Ref::Bone
         } else if 2 * d_lumen[k] <= 3 * vox3 {

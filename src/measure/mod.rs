@@ -256,7 +256,7 @@ pub fn measure(
     };
     // each section's partition and the spaces around it, found once (the other turns' crossings
     // take a few root searches on the centreline)
-    let parts: Vec<Partition> = geoms.par_iter().map(|g| Partition { limbus: !s.bare_shelf, ..Partition::of(cl, g) }).collect();
+    let parts: Vec<Partition> = geoms.par_iter().map(|g| Partition::of(cl, g, !s.bare_shelf)).collect();
     // first pass: each section's first square, and the histograms that give the levels
     let first: Vec<Img> = geoms
         .par_iter()
@@ -454,7 +454,8 @@ struct Partition {
 const BEYOND_WALL_MM: [f64; 5] = [0.6, 1.0, 1.5, 2.0, 3.0];
 
 impl Partition {
-    fn of(cl: &Centreline, g: &SectionGeom) -> Partition {
+    /// `limbus`: whether a spiral limbus is expected on the shelf (see [`Partition::limbus`]).
+    fn of(cl: &Centreline, g: &SectionGeom, limbus: bool) -> Partition {
         let (lam, lig) = (g.to_plane(g.lamina), g.to_plane(g.ligament));
         let d = [lig[0] - lam[0], lig[1] - lam[1]];
         let dn = d[0].hypot(d[1]).max(1e-12);
@@ -469,7 +470,7 @@ impl Partition {
         let foot = v3::axpy(f.origin, v3::dot(v3::sub(g.centre, f.origin), f.ez), f.ez);
         others.extend((-30..=30).map(|k| g.to_plane(v3::axpy(foot, 0.1 * k as f64, f.ez))));
         others.extend(BEYOND_WALL_MM.iter().map(|d| [lig[0] + d * dir[0], lig[1] + d * dir[1]]));
-        Partition { line: Line { p: lam, n }, mid, dir, others, limbus: true }
+        Partition { line: Line { p: lam, n }, mid, dir, others, limbus }
     }
 
     /// Distance (mm) of section point `q` along the partition from the lamina tip toward the
