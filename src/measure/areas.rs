@@ -45,7 +45,8 @@ pub(super) fn near(n: usize, rect: Rect, k: usize, set: impl Fn(usize) -> bool) 
 /// pixel's ray fitted a soft-tissue layer (`levels::Layer`), the pixels that ray passes count
 /// (tissue + (bone − tissue)·β − v)/(tissue − lumen), β = Φ((t − bone edge)/σ) the blurred bone
 /// share at their distance t along it: exact for the blurred three-material model whatever the
-/// layer's thickness. No pixel over four blur widths from the region holds lumen. The fractions
+/// layer's thickness. No pixel over four blur widths from the region holds lumen, nor one past
+/// the crest of a bony wall thinner than that ([`past_crest`]). The fractions
 /// are not clipped, so noise averages out instead of biasing the sum. `part` is the section's
 /// partition: next to it the material beyond is known from the anatomy where no ray says.
 #[allow(clippy::too_many_arguments)]
@@ -190,8 +191,25 @@ pub(super) fn fraction_area(img: &Img, r: &Region, side: f64, lv: &Levels, band:
     // signed median). In chamfer units (three a pixel); `blur` is σ in pixels.
     let shelf_reach = (1.5 * vox3 as f64).max(9.0 * blur.unwrap_or(0.0));
     let on_bone_edge = chamfer(w, h, |k| mask[at(k)] && lined[k].map_or(4 * d_bone[k] <= 7 * vox3, |r| r == Ref::Bone));
+    // A pixel beyond the crest of a bony wall, seen from the nearest edge pixel of the lumen,
+    // holds no lumen (see [`past_crest`]).
+    let edge_of = nearest_edge(w, h, band + erode, |k| mask[at(k)], |k| k);
+    let beyond_wall = |i: usize, k: usize| -> bool {
+        let Some(e) = edge_of[k] else { return false };
+        let (ax, ay) = ((i % n) as f64, (i / n) as f64);
+        let (bx, by) = ((at(e) % n) as f64, (at(e) / n) as f64);
+        let steps = (2.0 * (bx - ax).hypot(by - ay)).ceil() as usize;
+        let path = (1..steps).map(|j| {
+            let t = j as f64 / steps as f64;
+            img.sm[(ay + t * (by - ay)).round() as usize * n + (ax + t * (bx - ax)).round() as usize]
+        });
+        past_crest(img.sm[i], path, lv)
+    };
     let reference = |i: usize| {
         let k = (i / n - reach.b0) * w + i % n - reach.a0;
+        if !mask[i] && beyond_wall(i, k) {
+            return Ref::None;
+        }
         let along = part.along(img.uv(i));
         if (d_part[k] as f64) <= shelf_reach && along < 0.0 && by_partition(along) {
             return Ref::Bone;
@@ -256,6 +274,20 @@ pub(super) fn fraction_area(img: &Img, r: &Region, side: f64, lv: &Levels, band:
     }
     let c = if sum > 0.0 { [cu / sum, cv / sum] } else { [0.0, 0.0] };
     (sum * p2, field, c)
+}
+
+/// Whether a pixel of smoothed value `x` lies past the crest of a bony wall, given the smoothed
+/// values on the straight path from it to the nearest edge pixel of the lumen: the path rises
+/// above the soft-tissue/bone midpoint and stands 0.08 of the lumen–bone step above the pixel,
+/// which itself lies a quarter of the step below bone. Such a pixel holds no lumen: beyond a
+/// wall thinner than the lumen's blur reach lies something darker than bone (porous bone,
+/// marrow, a nerve core), and counted against bone it passed for lumen (the outside phantom with
+/// 0.12 mm shells in porous bone at 80 µm: 66 pixels beyond the wall added 5 % to a scala
+/// tympani). Thick bone's noise does not pass: its pixels lie near bone, not a quarter below.
+fn past_crest(x: f32, path: impl Iterator<Item = f32>, lv: &Levels) -> bool {
+    let step = lv.bone - lv.lumen;
+    let top = path.fold(f32::NEG_INFINITY, f32::max);
+    x < lv.bone - 0.25 * step && top >= lv.bone_cut() && top - x >= 0.08 * step
 }
 
 /// For each pixel of a w×h window within `reach` steps (8-connected) of an edge pixel of the
@@ -330,4 +362,56 @@ pub(super) fn outline(img: &Img, field: &[f32], c: [f64; 2]) -> Vec<[f64; 2]> {
             }
         })
         .collect()
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+    use crate::measure::phi;
+
+    /// A lumen (0.15) against a bony wall (0.9) 0.12 mm thick with porous bone (0.45) beyond,
+    /// blurred by σ = 0.08 mm: the closed form of a Gaussian-blurred box (handbook erf),
+    /// v(x) = L + (B − L)·Φ(x/σ) − (B − O)·Φ((x − w)/σ), sampled every 0.02 mm. Pixels from the
+    /// lumen's edge up to the crest are not past it; those more than one blur width past the
+    /// wall are. On thick bone (O = B) with noise of contrast-to-noise 8 (a fixed pseudo-random
+    /// sequence, smoothed over three samples) at most one in a thousand is.
+    #[test]
+    fn past_the_crest_of_a_thin_wall_only() {
+        let lv = Levels { lumen: 0.15, tissue: 0.35, bone: 0.9 };
+        let (sigma, w, h) = (0.08, 0.12, 0.02);
+        let xs: Vec<f64> = (0..40).map(|i| -0.2 + i as f64 * h).collect();
+        let model = |o: f64, x: f64| 0.15 + 0.75 * phi(x / sigma) - (0.9 - o) * phi((x - w) / sigma);
+        // the lumen's edge pixel: the last sample below the lumen/soft-tissue midpoint
+        let v: Vec<f32> = xs.iter().map(|&x| model(0.45, x) as f32).collect();
+        let edge = v.iter().rposition(|&y| y < lv.lumen_cut()).unwrap();
+        let crest = (0..v.len()).max_by(|&a, &b| v[a].total_cmp(&v[b])).unwrap();
+        for i in edge + 1..v.len() {
+            let past = past_crest(v[i], v[edge + 1..i].iter().copied(), &lv);
+            if i <= crest {
+                assert!(!past, "x = {:.2} mm, before the crest at {:.2}", xs[i], xs[crest]);
+            }
+            if xs[i] > w + sigma {
+                assert!(past, "x = {:.2} mm, a blur width past the wall", xs[i]);
+            }
+        }
+        // thick bone with noise: σ_noise = 0.75/8, smoothed over three samples
+        let mut seed = 12345u64;
+        let mut noise = || {
+            seed = seed.wrapping_mul(6364136223846793005).wrapping_add(1442695040888963407);
+            // the sum of 12 uniforms less 6: near-normal, unit variance
+            (0..12).map(|k| ((seed >> (16 + 4 * k)) & 0xf) as f64 / 15.0).sum::<f64>() - 6.0
+        };
+        let (mut bone, mut past) = (0, 0);
+        for _ in 0..200 {
+            let raw: Vec<f64> = xs.iter().map(|&x| model(0.9, x) + 0.75 / 8.0 * noise()).collect();
+            let v: Vec<f32> = (0..raw.len()).map(|i| ((raw[i.saturating_sub(1)] + raw[i] + raw[(i + 1).min(raw.len() - 1)]) / 3.0) as f32).collect();
+            let Some(edge) = v.iter().rposition(|&y| y < lv.lumen_cut()) else { continue };
+            for i in (edge + 1..v.len()).filter(|&i| xs[i] > 0.1) {
+                bone += 1;
+                past += past_crest(v[i], v[edge + 1..i].iter().copied(), &lv) as usize;
+            }
+        }
+        // (a 3.5σ dip of the smoothed noise passes: about 2 in 10 000)
+        assert!(past * 1000 <= bone, "{past} of {bone} thick-bone samples taken as past a crest");
+    }
 }
