@@ -444,10 +444,19 @@ pub fn trace(stack: &Stack, seeds: &[Landmark], step_deg: f64) -> Result<Trace> 
             // the partition does not show: kept where it lay relative to the lumen, as a guess
             // past the apex the blob found is something else: the spiral never turns outward
             (Err(why), Some(d), Some(_)) if d.r > r_min + 0.5 * d.rho => Err(format!("{why}; the lumen turns outward (past the apex?)")),
-            (Err(_), Some(d), Some(o)) if d.rho >= 1.5 * vmax => {
+            (Err(why), Some(d), Some(o)) if d.rho >= 1.5 * vmax => {
                 let l = Edge { angle, r: d.r + o[0] * d.rho, h: d.h + o[1] * d.rho };
                 let g = Edge { angle, r: d.r + o[2] * d.rho, h: d.h + o[3] * d.rho };
-                Ok((l, g, 0.45 * (d.snr / 12.0).min(1.0)))
+                // Past the apex a guess follows whatever dark blob lies near the axis (the
+                // helicotrema's cap, the apical modiolus): the outside phantom at 200 µm, all
+                // guesses, ran on 360° past its 900° with the lamina tip 0.15–0.3 mm from the
+                // axis. A duct whose lamina tip comes within half its radius of the axis is past
+                // its end (a lamina tip lies a shelf's width or more out from the axis).
+                if l.r < 0.5 * d.rho {
+                    Err(format!("{why}; the guessed lamina tip reaches the modiolar axis (past the apex?)"))
+                } else {
+                    Ok((l, g, 0.45 * (d.snr / 12.0).min(1.0)))
+                }
             }
             (Err(why), Some(d), Some(_)) if d.rho < 1.5 * vmax => Err(format!("{why}; the lumen is under 1.5 voxels across ({:.3} mm) to follow", 2.0 * d.rho)),
             (Err(why), None, Some(_)) => Err(format!("{why}, and the lumen is lost (no dark duct near its prediction)")),

@@ -129,3 +129,38 @@ fn a_phantom_built_elsewhere() {
     assert!(tot <= 5.0 && sv <= 9.0 && st <= 9.0, "SV+ST {tot} %, SV {sv} %, ST {st} %");
     assert!((length / t.length_mm - 1.0).abs() <= 0.01, "traced length {length} for {}", t.length_mm);
 }
+
+/// The same script at clinical resolution: 200 µm voxels, a solid bony capsule (`--wall-mm 0`),
+/// blur 1.2 voxels. No step of the trace finds the partition (a 0.05 mm shelf and a membrane in
+/// 0.2 mm voxels): every point is a guess kept where the partition lay relative to the duct's
+/// dark blob. The trace must still stop at the duct's end, not follow some other dark blob near
+/// the axis: before the guard past the apex it ran on to 1260° of 900°. Held: stopped within
+/// 90–105 % of the depth, and the midline length from the traced points within 5 % (the
+/// tracing issue's bound for real CT; +2.7 %). 85 % of the rows or more have both areas (91 %;
+/// the measures issue asks 60 % on real CT: the others are `no_seed`, a scala under the blur)
+/// and none is negative; their values are not held here (a 0.15 mm ligament in 0.2 mm voxels cannot be told from
+/// fluid, see the README's limits).
+#[test]
+fn a_trace_at_clinical_resolution_stops_at_the_apex() {
+    let dir = common::fixture("outside_200um");
+    let stack = ductline::stack::load(&dir.join("stack.tif"), &Default::default()).unwrap();
+    assert_eq!(stack.voxel().unwrap().max(), 0.2, "voxel size from the ImageJ spacing");
+    let t = truth(&dir);
+    let seeds = ductline::landmarks::read_csv(&dir.join("seeds.csv"), Some(&stack)).unwrap();
+    let traced = ductline::trace::trace(&stack, &seeds, 10.0).unwrap();
+    eprintln!("trace: to {:.0}° of {:.0}°: {}", traced.stopped_deg, t.depth_deg, traced.reason);
+    let depth = traced.stopped_deg / t.depth_deg;
+    assert!((0.9..=1.05).contains(&depth), "trace reached {:.0}° of {:.0}°", traced.stopped_deg, t.depth_deg);
+    let lm = ductline::landmarks::parse_csv(&ductline::trace::to_csv(&seeds, &traced), Path::new("traced.csv"), Some(&stack)).unwrap();
+    let ms = MeasureSettings { step_mm: 0.25, ..Default::default() };
+    let gw = Greenwood::preset("human").unwrap();
+    let out = ductline::pipeline::run(&stack, &lm, &FitSettings::default(), &ms, &[], &gw, &Progress::new()).unwrap();
+    let length = out.centreline.length;
+    eprintln!("traced length {length:.3} mm, truth {:.3} mm", t.length_mm);
+    assert!((length / t.length_mm - 1.0).abs() <= 0.05, "traced length {length} for {}", t.length_mm);
+    let inner: Vec<&Row> = out.rows.iter().filter(|r| r.angle_deg >= 30.0 && r.angle_deg <= t.depth_deg - 30.0).collect();
+    let both = inner.iter().filter(|r| r.sv.area.is_some() && r.st.area.is_some()).count();
+    eprintln!("{both} of {} rows with both areas", inner.len());
+    assert!(both * 100 >= 85 * inner.len(), "{both} of {} rows with both areas", inner.len());
+    assert!(out.rows.iter().flat_map(|r| [r.sv.area, r.st.area]).flatten().all(|a| a > 0.0), "a negative or zero area");
+}
