@@ -50,14 +50,15 @@ fn interp(x: &[f64], y: &[f64], at: f64) -> f64 {
 }
 
 /// Share of sound rows 30° or more from either end, and the median |error| (%) of SV, ST and
-/// SV+ST there, printed with the signed medians.
+/// SV+ST over those of them with both areas (a row flagged only for its wall keeps them),
+/// printed with the signed medians.
 fn score(label: &str, rows: &[Row], t: &Truth) -> (f64, f64, f64, f64) {
     let inner: Vec<&Row> = rows.iter().filter(|r| r.angle_deg >= 30.0 && r.angle_deg <= t.depth_deg - 30.0).collect();
     let sound = inner.iter().filter(|r| r.sound()).count() as f64 / inner.len() as f64;
     let (mut sv, mut st, mut tot) = (vec![], vec![], vec![]);
-    for r in inner.iter().filter(|r| r.sound()) {
+    for r in inner.iter() {
+        let (Some(a), Some(b)) = (r.sv.area, r.st.area) else { continue };
         let (tsv, tst) = (interp(&t.angle, &t.sv, r.angle_deg), interp(&t.angle, &t.st, r.angle_deg));
-        let (a, b) = (r.sv.area.unwrap(), r.st.area.unwrap());
         sv.push(100.0 * (a / tsv - 1.0));
         st.push(100.0 * (b / tst - 1.0));
         tot.push(100.0 * ((a + b) / (tsv + tst) - 1.0));
@@ -138,8 +139,11 @@ fn a_phantom_built_elsewhere() {
 /// 90–105 % of the depth, and the midline length from the traced points within 5 % (the
 /// tracing issue's bound for real CT; +2.7 %). 85 % of the rows or more have both areas (91 %;
 /// the measures issue asks 60 % on real CT: the others are `no_seed`, a scala under the blur)
-/// and none is negative; their values are not held here (a 0.15 mm ligament in 0.2 mm voxels cannot be told from
-/// fluid, see the README's limits).
+/// and none is negative. SV+ST within 20 % median (13.5 % from the landmarks, 16.2 % traced;
+/// the measures issue asks 15 % on real CT): the 0.15 mm ligament cannot be resolved in 0.2 mm
+/// voxels, and before a bare-looking wall stopped being taken for bare bone at such voxels
+/// (`levels::BARE_WALL_BELOW_MM`) it counted as two-thirds lumen: 41 % high. Few rows are
+/// sound: against a solid capsule no wall thickness can be read (`no_wall`).
 #[test]
 fn a_trace_at_clinical_resolution_stops_at_the_apex() {
     let dir = common::fixture("outside_200um");
@@ -158,6 +162,11 @@ fn a_trace_at_clinical_resolution_stops_at_the_apex() {
     let length = out.centreline.length;
     eprintln!("traced length {length:.3} mm, truth {:.3} mm", t.length_mm);
     assert!((length / t.length_mm - 1.0).abs() <= 0.05, "traced length {length} for {}", t.length_mm);
+    let (_, _, _, tot) = score("traced", &out.rows, &t);
+    let landmarks = ductline::landmarks::read_csv(&dir.join("landmarks.csv"), Some(&stack)).unwrap();
+    let placed = ductline::pipeline::run(&stack, &landmarks, &FitSettings::default(), &ms, &[], &gw, &Progress::new()).unwrap();
+    let (_, _, _, tot_placed) = score("from the landmarks", &placed.rows, &t);
+    assert!(tot <= 20.0 && tot_placed <= 20.0, "SV+ST {tot:.1} % traced, {tot_placed:.1} % from the landmarks");
     let inner: Vec<&Row> = out.rows.iter().filter(|r| r.angle_deg >= 30.0 && r.angle_deg <= t.depth_deg - 30.0).collect();
     let both = inner.iter().filter(|r| r.sv.area.is_some() && r.st.area.is_some()).count();
     eprintln!("{both} of {} rows with both areas", inner.len());
