@@ -77,17 +77,34 @@ fn proposals_follow_the_true_edges() {
 /// kept where they lay relative to it at the seeds) and marks those points as guesses (confidence
 /// under 0.5). Members 0, 1 (a left ear, whose seeds on the window's own line used to turn the
 /// frame the wrong way), 5 and 11 (air-filled): before, no proposal at all; now at least 95 % of
-/// the true depth, proposals within 1.5 voxels of the true edges (median), no more than 40° past
+/// the true depth, proposals within 1.5 voxels of the true edges (median), no more than 45° past
 /// the last landmark (the phantom's duct runs 25° past it; beyond, the tracer used to follow the
-/// apical cap or the modiolus for up to 60° more, lengthening the midline by up to 10 %).
+/// apical cap or the modiolus for up to 60° more, lengthening the midline by up to 10 %; member 1
+/// runs 43° past since ducts under five voxels in radius are cut nearer the lumen, `FEW_VOXELS`
+/// in src/trace.rs, with its length from the proposals +1.9 % where it was +2.9 %).
 #[test]
 fn clinical_resolution_follows_the_lumen() {
     for n in [0, 1, 5, 11] {
         let spec = PhantomSpec { truth_step_deg: 30.0, ..PhantomSpec::variant(n, [150.0; 3]) };
         let tmax = spec.theta_max().to_degrees();
         let (med, _, depth) = run(spec);
-        assert!(depth >= 0.95 && depth * tmax <= tmax + 40.0, "member {n}: reached {:.0} % of the depth", 100.0 * depth);
+        assert!(depth >= 0.95 && depth * tmax <= tmax + 45.0, "member {n}: reached {:.0} % of the depth", 100.0 * depth);
         assert!(med <= 1.5, "member {n}: off the edges median {med:.2} voxels");
+    }
+}
+
+/// At 200 µm (clinical CT) members 6, 8 and 9 lost the duct in the basal turn: its blob, cut
+/// 40 % of the way from the lumen to the bright surroundings, took in the soft tissue beside it,
+/// swelled and drifted, and the trace stopped at 190–420° (40–51 % of the depth). Ducts under
+/// five voxels in radius are now cut at 30 % (`FEW_VOXELS` in src/trace.rs): each reaches at
+/// least 90 % of the depth (99–103 %) and no more than 45° past it.
+#[test]
+fn clinical_resolution_200um_keeps_the_duct() {
+    for n in [6, 8, 9] {
+        let spec = PhantomSpec { truth_step_deg: 30.0, ..PhantomSpec::variant(n, [200.0; 3]) };
+        let tmax = spec.theta_max().to_degrees();
+        let (_, _, depth) = run(spec);
+        assert!(depth >= 0.9 && depth * tmax <= tmax + 45.0, "member {n}: reached {:.0} % of the depth", 100.0 * depth);
     }
 }
 
