@@ -195,7 +195,8 @@ pub(super) fn fraction_area(img: &Img, r: &Region, side: f64, lv: &Levels, band:
     // holds no lumen (see [`past_crest`]).
     let edge_of = nearest_edge(w, h, band + erode, |k| mask[at(k)], |k| k);
     let beyond_wall = |i: usize, k: usize| -> bool {
-        let Some(e) = edge_of[k] else { return false };
+        // (bone itself is never past a crest: the path is not read for it)
+        let Some(e) = edge_of[k].filter(|_| img.sm[i] < lv.bone - 0.25 * (lv.bone - lv.lumen)) else { return false };
         let (ax, ay) = ((i % n) as f64, (i / n) as f64);
         let (bx, by) = ((at(e) % n) as f64, (at(e) / n) as f64);
         let steps = (2.0 * (bx - ax).hypot(by - ay)).ceil() as usize;
