@@ -49,6 +49,22 @@ fn interp(x: &[f64], y: &[f64], at: f64) -> f64 {
     y[k - 1] + (at - x[k - 1]) / (x[k] - x[k - 1]) * (y[k] - y[k - 1])
 }
 
+/// A committed fixture's folder, stack (its voxel side, mm, checked as read from the ImageJ
+/// spacing) and truth.
+fn open(name: &str, voxel_mm: f64) -> (std::path::PathBuf, ductline::stack::Stack, Truth) {
+    let dir = common::fixture(name);
+    let stack = ductline::stack::load(&dir.join("stack.tif"), &Default::default()).unwrap();
+    assert_eq!(stack.voxel().unwrap().max(), voxel_mm, "voxel size from the ImageJ spacing");
+    let t = truth(&dir);
+    (dir, stack, t)
+}
+
+/// The whole pipeline on `lm` with the settings `ms`.
+fn run(stack: &ductline::stack::Stack, lm: &[ductline::landmarks::Landmark], ms: &MeasureSettings) -> ductline::pipeline::Outcome {
+    let gw = Greenwood::preset("human").unwrap();
+    ductline::pipeline::run(stack, lm, &FitSettings::default(), ms, &[], &gw, &Progress::new()).unwrap()
+}
+
 /// Share of sound rows 30° or more from either end, and the median |error| (%) of SV, ST and
 /// SV+ST over those of them with both areas (a row flagged only for its wall keeps them),
 /// printed with the signed medians.
@@ -89,16 +105,10 @@ fn score(label: &str, rows: &[Row], t: &Truth) -> (f64, f64, f64, f64) {
 /// traced: the known gap above); with `bare_shelf` set, SV within 4.5 % (4.2 %) and ST as before.
 #[test]
 fn a_phantom_built_elsewhere() {
-    let dir = common::fixture("outside");
-    let stack = ductline::stack::load(&dir.join("stack.tif"), &Default::default()).unwrap();
-    assert_eq!(stack.voxel().unwrap().max(), 0.08, "voxel size from the ImageJ spacing");
-    let t = truth(&dir);
+    let (dir, stack, t) = open("outside", 0.08);
     let landmarks = ductline::landmarks::read_csv(&dir.join("landmarks.csv"), Some(&stack)).unwrap();
     let ms = MeasureSettings { step_mm: 0.25, ..Default::default() };
-    let gw = Greenwood::preset("human").unwrap();
-    let run = |lm: &[ductline::landmarks::Landmark], ms: &MeasureSettings| {
-        ductline::pipeline::run(&stack, lm, &FitSettings::default(), ms, &[], &gw, &Progress::new()).unwrap()
-    };
+    let run = |lm: &[ductline::landmarks::Landmark], ms: &MeasureSettings| run(&stack, lm, ms);
 
     let placed = run(&landmarks, &ms);
     let length = placed.centreline.length;
@@ -146,10 +156,7 @@ fn a_phantom_built_elsewhere() {
 /// sound: against a solid capsule no wall thickness can be read (`no_wall`).
 #[test]
 fn a_trace_at_clinical_resolution_stops_at_the_apex() {
-    let dir = common::fixture("outside_200um");
-    let stack = ductline::stack::load(&dir.join("stack.tif"), &Default::default()).unwrap();
-    assert_eq!(stack.voxel().unwrap().max(), 0.2, "voxel size from the ImageJ spacing");
-    let t = truth(&dir);
+    let (dir, stack, t) = open("outside_200um", 0.2);
     let seeds = ductline::landmarks::read_csv(&dir.join("seeds.csv"), Some(&stack)).unwrap();
     let traced = ductline::trace::trace(&stack, &seeds, 10.0).unwrap();
     eprintln!("trace: to {:.0}° of {:.0}°: {}", traced.stopped_deg, t.depth_deg, traced.reason);
@@ -157,14 +164,13 @@ fn a_trace_at_clinical_resolution_stops_at_the_apex() {
     assert!((0.9..=1.05).contains(&depth), "trace reached {:.0}° of {:.0}°", traced.stopped_deg, t.depth_deg);
     let lm = ductline::landmarks::parse_csv(&ductline::trace::to_csv(&seeds, &traced), Path::new("traced.csv"), Some(&stack)).unwrap();
     let ms = MeasureSettings { step_mm: 0.25, ..Default::default() };
-    let gw = Greenwood::preset("human").unwrap();
-    let out = ductline::pipeline::run(&stack, &lm, &FitSettings::default(), &ms, &[], &gw, &Progress::new()).unwrap();
+    let out = run(&stack, &lm, &ms);
     let length = out.centreline.length;
     eprintln!("traced length {length:.3} mm, truth {:.3} mm", t.length_mm);
     assert!((length / t.length_mm - 1.0).abs() <= 0.05, "traced length {length} for {}", t.length_mm);
     let (_, _, _, tot) = score("traced", &out.rows, &t);
     let landmarks = ductline::landmarks::read_csv(&dir.join("landmarks.csv"), Some(&stack)).unwrap();
-    let placed = ductline::pipeline::run(&stack, &landmarks, &FitSettings::default(), &ms, &[], &gw, &Progress::new()).unwrap();
+    let placed = run(&stack, &landmarks, &ms);
     let (_, _, _, tot_placed) = score("from the landmarks", &placed.rows, &t);
     assert!(tot <= 20.0 && tot_placed <= 20.0, "SV+ST {tot:.1} % traced, {tot_placed:.1} % from the landmarks");
     let inner: Vec<&Row> = out.rows.iter().filter(|r| r.angle_deg >= 30.0 && r.angle_deg <= t.depth_deg - 30.0).collect();
