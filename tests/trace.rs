@@ -95,7 +95,7 @@ fn clinical_resolution_follows_the_lumen() {
 
 /// At 200 µm (clinical CT) members 6, 8 and 9 lost the duct in the basal turn: its blob, cut
 /// 40 % of the way from the lumen to the bright surroundings, took in the soft tissue beside it,
-/// swelled and drifted, and the trace stopped at 190–420° (40–51 % of the depth). Ducts under
+/// swelled and drifted, and the trace stopped at 190–420° (21–48 % of the depth). Ducts under
 /// five voxels in radius are now cut at 30 % (`FEW_VOXELS` in src/trace.rs): each reaches at
 /// least 90 % of the depth (99–103 %) and no more than 45° past it.
 #[test]
