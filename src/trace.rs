@@ -27,7 +27,10 @@
 //! thinner than a voxel, or a stretch where the steps above fail — the lumen is followed instead:
 //! the duct's dark blob in the cut (its centroid and size, [`duct`]), with the lamina and ligament
 //! points kept where they lay relative to it (offsets in units of the blob's size, the median of
-//! the last nine steps that found the partition, the seeds first). Such points carry a confidence
+//! the last nine steps that found the partition, the seeds first); in a duct under
+//! [`FEW_VOXELS`] in radius the ligament is put instead on the lumen's outer edge at the
+//! partition's height, as far past it as at the seeds ([`outer_edge`]: the blob's size does not
+//! follow a duct so few voxels across). Such points carry a confidence
 //! under 0.5, so the review shows them as guesses. Tracing stops where the duct is lost — too
 //! small to follow, too little contrast three steps running, or the cut leaves the stack — and
 //! says at what angle and why. Last, each edge's proposals are smoothed along the spiral
@@ -221,6 +224,25 @@ fn duct(stack: &Stack, f: &Frame, angle_deg: f64, c: (f64, f64), rho: f64, pitch
     Some(Duct { r: sr / n, h: sh / n, rho: (n * pitch * pitch / std::f64::consts::PI).sqrt(), snr })
 }
 
+/// The lumen's outer edge (cochlear r, mm) at height `h` mm in the slab of cuts `slab` (see
+/// [`Cut::mean`]) about a duct centred at radius `r` mm, `rho` mm in equivalent radius: along r,
+/// in the mean over ±one voxel of height, the first crossing outward of half the way from the
+/// lumen (the darkest within ρ/2 of `r`) to the brightest within 2.5 ρ of it. Half the way up a
+/// blurred step is where the step lies, whatever the blur, for a duct a few blur widths across;
+/// where soft tissue lines the wall the crossing lies a little out in it, by about as much at
+/// every turn. None where the profile never rises half way or leaves the stack first.
+#[allow(clippy::too_many_arguments)]
+fn outer_edge(stack: &Stack, f: &Frame, slab: &[(f64, f64, f64)], r: f64, h: f64, rho: f64, vmax: f64, pitch: f64) -> Option<f64> {
+    let cut = Cut::mean(stack, f, slab, [(r - 0.5 * rho).max(0.0), r + 2.5 * rho], [h - vmax, h + vmax], pitch);
+    let prof: Vec<f64> = (0..cut.nr).map(|i| (0..cut.nh).map(|j| cut.at(i, j) as f64).sum::<f64>() / cut.nh as f64).collect();
+    let m = (0..=cut.col(r + 0.5 * rho)).filter(|&i| prof[i].is_finite()).min_by(|&x, &y| prof[x].total_cmp(&prof[y]))?;
+    let top = prof[m..].iter().copied().take_while(|x| x.is_finite()).fold(f64::NEG_INFINITY, f64::max);
+    let half = prof[m] + 0.5 * (top - prof[m]);
+    let i = (m + 1..cut.nr).take_while(|&i| prof[i].is_finite()).find(|&i| prof[i] >= half)?;
+    let t = ((half - prof[i - 1]) / (prof[i] - prof[i - 1])).clamp(0.0, 1.0);
+    Some(cut.r0 + (i as f64 - 1.0 + t) * cut.pitch)
+}
+
 /// The duct's equivalent radius (voxels) under which its blob is cut at 30 % of the way from the
 /// lumen to the surroundings instead of 40 %: the soft tissue round the duct (spiral ligament,
 /// limbus, nerve core; a quarter to a third of the way to bone) then blurs into the cut and joins
@@ -365,6 +387,9 @@ pub fn trace(stack: &Stack, seeds: &[Landmark], step_deg: f64) -> Result<Trace> 
     // nine is used, so one step misread in the noise does not move the guesses that follow)
     let mut cals: Vec<Offsets> = first.map(|d| offsets(&d, l0, g0)).into_iter().collect();
     let mut cal: Option<Offsets> = cals.first().copied();
+    // (how far the seeds' ligament lies past the lumen's outer edge, mm: see the guesses below)
+    let past_edge =
+        first.and_then(|d| outer_edge(stack, &frame, &slab(&lam, &lig, start, step_deg, vmax), d.r, 0.5 * (l0.h + g0.h), d.rho, vmax, pitch)).map(|e| g0.r - e);
     let mut ducts: Vec<(Edge, f64)> = first.map(|d| (Edge { angle: start, r: d.r, h: d.h }, d.rho)).into_iter().collect();
     let mut r_min = ducts.first().map_or(f64::INFINITY, |d| d.0.r);
     let mut angle = start;
@@ -461,7 +486,21 @@ pub fn trace(stack: &Stack, seeds: &[Landmark], step_deg: f64) -> Result<Trace> 
             (Err(why), Some(d), Some(_)) if d.r > r_min + 0.5 * d.rho => Err(format!("{why}; the lumen turns outward (past the apex?)")),
             (Err(why), Some(d), Some(o)) if d.rho >= 1.5 * vmax => {
                 let l = Edge { angle, r: d.r + o[0] * d.rho, h: d.h + o[1] * d.rho };
-                let g = Edge { angle, r: d.r + o[2] * d.rho, h: d.h + o[3] * d.rho };
+                let mut g = Edge { angle, r: d.r + o[2] * d.rho, h: d.h + o[3] * d.rho };
+                // The ligament lies on the lateral wall: the lumen's outer edge at the
+                // partition's height, as far past it as at the seeds. Kept in units of the blob's
+                // size it drifted outward turn by turn: at 200 µm the blob (cut 30 % of the way
+                // to the surroundings) is about as large at the apex as at the base, while the
+                // duct halves (the family's members at 200 µm, all guesses past the seeds: the
+                // ligament 0.2–0.6 mm out by the apex, midline lengths +3 to +11 %).
+                // (only for ducts under `FEW_VOXELS` in radius: finer, the partition shows often
+                // enough to keep the offsets current, and along its height the profile runs on the
+                // bony shelf, whose rise is taken for the wall: member 12 at 45 µm stopped at 63 %)
+                if d.rho < FEW_VOXELS * vmax
+                    && let Some(e) = past_edge.and_then(|p| outer_edge(stack, &frame, &cuts, d.r, 0.5 * (l.h + g.h), d.rho, vmax, pitch).map(|e| e + p))
+                {
+                    g.r = e;
+                }
                 // Past the apex a guess follows whatever dark blob lies near the axis (the
                 // helicotrema's cap, the apical modiolus): the outside phantom at 200 µm, all
                 // guesses, ran on 360° past its 900° with the lamina tip 0.15–0.3 mm from the
