@@ -147,13 +147,16 @@ fn a_phantom_built_elsewhere() {
 /// dark blob. The trace must still stop at the duct's end, not follow some other dark blob near
 /// the axis: before the guard past the apex it ran on to 1260° of 900°. Held: stopped within
 /// 90–105 % of the depth, and the midline length from the traced points within 5 % (the
-/// tracing issue's bound for real CT; +3.9 %). 85 % of the rows or more have both areas (91 %;
+/// tracing issue's bound for real CT; +4.5 %, +3.9 % with the ligament guessed from the blob;
+/// the lamina tip is guessed 0.15 mm out). 85 % of the rows or more have both areas (91 %;
 /// the measures issue asks 60 % on real CT: the others are `no_seed`, a scala under the blur)
-/// and none is negative. SV+ST within 20 % median (13.5 % from the landmarks, 13.8 % traced;
-/// the measures issue asks 15 % on real CT): the 0.15 mm ligament cannot be resolved in 0.2 mm
-/// voxels, and before a bare-looking wall stopped being taken for bare bone at such voxels
-/// (`levels::BARE_WALL_BELOW_MM`) it counted as two-thirds lumen: 41 % high. Few rows are
-/// sound: against a solid capsule no wall thickness can be read (`no_wall`).
+/// and none is negative. SV+ST within 12 % median from the landmarks and 15 % traced (9.4 and
+/// 12.4 %; the measures issue asks 15 % on real CT): the 0.15 mm ligament cannot be resolved in
+/// 0.2 mm voxels, and before a bare-looking wall stopped being taken for bare bone at such voxels
+/// (`levels::BARE_WALL_BELOW_MM`) it counted as two-thirds lumen: 41 % high; before the duct's
+/// lumen level could come from the values at the centreline points (src/measure/mod.rs) 13.5 and
+/// 13.8 %. Few rows are sound: against a solid capsule no wall thickness can be read
+/// (`no_wall`).
 #[test]
 fn a_trace_at_clinical_resolution_stops_at_the_apex() {
     let (dir, stack, t) = open("outside_200um", 0.2);
@@ -172,7 +175,7 @@ fn a_trace_at_clinical_resolution_stops_at_the_apex() {
     let landmarks = ductline::landmarks::read_csv(&dir.join("landmarks.csv"), Some(&stack)).unwrap();
     let placed = run(&stack, &landmarks, &ms);
     let (_, _, _, tot_placed) = score("from the landmarks", &placed.rows, &t);
-    assert!(tot <= 20.0 && tot_placed <= 20.0, "SV+ST {tot:.1} % traced, {tot_placed:.1} % from the landmarks");
+    assert!(tot <= 15.0 && tot_placed <= 12.0, "SV+ST {tot:.1} % traced, {tot_placed:.1} % from the landmarks");
     let inner: Vec<&Row> = out.rows.iter().filter(|r| r.angle_deg >= 30.0 && r.angle_deg <= t.depth_deg - 30.0).collect();
     let both = inner.iter().filter(|r| r.sv.area.is_some() && r.st.area.is_some()).count();
     eprintln!("{both} of {} rows with both areas", inner.len());
