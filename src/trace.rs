@@ -237,6 +237,9 @@ fn outer_edge(stack: &Stack, f: &Frame, slab: &[(f64, f64, f64)], r: f64, h: f64
     let prof: Vec<f64> = (0..cut.nr).map(|i| (0..cut.nh).map(|j| cut.at(i, j) as f64).sum::<f64>() / cut.nh as f64).collect();
     let m = (0..=cut.col(r + 0.5 * rho)).filter(|&i| prof[i].is_finite()).min_by(|&x, &y| prof[x].total_cmp(&prof[y]))?;
     let top = prof[m..].iter().copied().take_while(|x| x.is_finite()).fold(f64::NEG_INFINITY, f64::max);
+    if top <= prof[m] {
+        return None; // a flat profile: no edge (and no 0/0 below)
+    }
     let half = prof[m] + 0.5 * (top - prof[m]);
     let i = (m + 1..cut.nr).take_while(|&i| prof[i].is_finite()).find(|&i| prof[i] >= half)?;
     let t = ((half - prof[i - 1]) / (prof[i] - prof[i - 1])).clamp(0.0, 1.0);
