@@ -278,6 +278,29 @@ type Offsets = [f64; 4];
 /// level inside its tip or to take the step-to-step change of a membrane that widens apically.
 const SPAN_OF_DUCT: f64 = 0.5;
 
+/// How fast the bony lamina's share of the duct's width (from its inner wall to the ligament, at
+/// the partition) falls toward the apex, per unit of ln(ligament radius): the share about halves
+/// (× 0.55) while the radius falls about 3.5-fold from base to apex. The basilar membrane widens
+/// from 0.08–0.16 mm at the base to 0.42–0.65 mm at the apex (REFERENCES.md, secondary) while
+/// the duct narrows; the 3.5-fold fall of the radius is from memory.
+const LAMINA_SHARE_PER_LN_R: f64 = 0.45 / 1.252_763; // ln 3.5
+
+/// The guessed lamina tip's radius (mm) on a duct whose centroid lies at radius `r` and whose
+/// ligament lies at `lig` (mm), from where it lay at the last steps that showed the partition:
+/// `q` = (tip − centroid) / (ligament − centroid) there, at a ligament radius `cal_r` (mm).
+/// The lamina's share of the width, (q + 1)/2 on a duct symmetric about its centroid, falls
+/// apically by [`LAMINA_SHARE_PER_LN_R`]. Kept at the calibration's q, the tip drifted outward
+/// turn by turn: the family's members at 200 µm, all guesses past the seeds, had it
+/// 0.06–0.18 mm out (median per half turn) by the apex.
+/// None where the ligament does not lie outward of the centroid or `q` is not a number.
+fn lamina_tip(r: f64, lig: f64, q: f64, cal_r: f64) -> Option<f64> {
+    if !(lig > r && q.is_finite() && cal_r > 0.0) {
+        return None;
+    }
+    let share = 0.5 * (q + 1.0) * (1.0 - LAMINA_SHARE_PER_LN_R * (cal_r / lig).ln().max(0.0)).max(0.2);
+    Some(r + (lig - r) * (2.0 * share - 1.0))
+}
+
 fn offsets(d: &Duct, l: Edge, g: Edge) -> Offsets {
     [(l.r - d.r) / d.rho, (l.h - d.h) / d.rho, (g.r - d.r) / d.rho, (g.h - d.h) / d.rho]
 }
@@ -390,6 +413,9 @@ pub fn trace(stack: &Stack, seeds: &[Landmark], step_deg: f64) -> Result<Trace> 
     // nine is used, so one step misread in the noise does not move the guesses that follow)
     let mut cals: Vec<Offsets> = first.map(|d| offsets(&d, l0, g0)).into_iter().collect();
     let mut cal: Option<Offsets> = cals.first().copied();
+    // (the ligament's radius at those steps, mm, and its median over the same nine)
+    let mut cal_radii: Vec<f64> = first.map(|_| g0.r).into_iter().collect();
+    let mut cal_r = g0.r;
     // (how far the seeds' ligament lies past the lumen's outer edge, mm: see the guesses below)
     let past_edge =
         first.and_then(|d| outer_edge(stack, &frame, &slab(&lam, &lig, start, step_deg, vmax), d.r, 0.5 * (l0.h + g0.h), d.rho, vmax, pitch)).map(|e| g0.r - e);
@@ -479,8 +505,10 @@ pub fn trace(stack: &Stack, seeds: &[Landmark], step_deg: f64) -> Result<Trace> 
                 if let Some(d) = &lumen {
                     let o = offsets(d, l, g);
                     cals.push(o);
+                    cal_radii.push(g.r);
                     let tail = &cals[cals.len().saturating_sub(9)..];
                     cal = Some(std::array::from_fn(|k| median(&mut tail.iter().map(|c| c[k]).collect::<Vec<_>>())));
+                    cal_r = median(&mut cal_radii[cal_radii.len().saturating_sub(9)..].to_vec());
                 }
                 Ok((l, g, conf))
             }
@@ -488,7 +516,7 @@ pub fn trace(stack: &Stack, seeds: &[Landmark], step_deg: f64) -> Result<Trace> 
             // past the apex the blob found is something else: the spiral never turns outward
             (Err(why), Some(d), Some(_)) if d.r > r_min + 0.5 * d.rho => Err(format!("{why}; the lumen turns outward (past the apex?)")),
             (Err(why), Some(d), Some(o)) if d.rho >= 1.5 * vmax => {
-                let l = Edge { angle, r: d.r + o[0] * d.rho, h: d.h + o[1] * d.rho };
+                let mut l = Edge { angle, r: d.r + o[0] * d.rho, h: d.h + o[1] * d.rho };
                 let mut g = Edge { angle, r: d.r + o[2] * d.rho, h: d.h + o[3] * d.rho };
                 // The ligament lies on the lateral wall: the lumen's outer edge at the
                 // partition's height, as far past it as at the seeds. Kept in units of the blob's
@@ -503,6 +531,7 @@ pub fn trace(stack: &Stack, seeds: &[Landmark], step_deg: f64) -> Result<Trace> 
                     && let Some(e) = past_edge.and_then(|p| outer_edge(stack, &frame, &cuts, d.r, 0.5 * (l.h + g.h), d.rho, vmax, pitch).map(|e| e + p))
                 {
                     g.r = e;
+                    l.r = lamina_tip(d.r, g.r, o[0] / o[2], cal_r).unwrap_or(l.r);
                 }
                 // Past the apex a guess follows whatever dark blob lies near the axis (the
                 // helicotrema's cap, the apical modiolus): the outside phantom at 200 µm, all
@@ -758,6 +787,9 @@ fn find(cut: &Cut, pl: Edge, pg: Edge, width: f64, vmax: f64, crests: bool) -> s
     let steep = (gi..(gi + 3 * vox_n).min(cut.nr)).map(grad).fold(0.0, f64::max);
     let flat = (gi..(gi + 3 * vox_n).min(cut.nr)).find(|&i| i > gi && grad(i) < 0.25 * steep).unwrap_or((gi + 3 * vox_n).min(cut.nr - 1));
     let top = prof[flat];
+    if !top.is_finite() {
+        return Err("the lateral wall leaves the stack".into());
+    }
     // the half level from the profile's own floor in the duct's middle (the membrane along the
     // partition lifts it a little above the fluid's level off the partition: read from there, the
     // edge came out 0.1–0.15 voxel inward)
