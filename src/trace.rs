@@ -30,7 +30,9 @@
 //! the last nine steps that found the partition, the seeds first); in a duct under
 //! [`FEW_VOXELS`] in radius the ligament is put instead on the lumen's outer edge at the
 //! partition's height, as far past it as at the seeds ([`outer_edge`]: the blob's size does not
-//! follow a duct so few voxels across). Such points carry a confidence
+//! follow a duct so few voxels across), and the lamina tip at the share of the width from the
+//! centroid to it where the partition last showed, less the share a lamina loses toward the apex
+//! ([`lamina_tip`]). Such points carry a confidence
 //! under 0.5, so the review shows them as guesses. Tracing stops where the duct is lost — too
 //! small to follow, too little contrast three steps running, or the cut leaves the stack — and
 //! says at what angle and why. Last, each edge's proposals are smoothed along the spiral
