@@ -292,8 +292,8 @@ const LAMINA_SHARE_PER_LN_R: f64 = 0.45 / 1.252_763; // ln 3.5
 /// `q` = (tip − centroid) / (ligament − centroid) there, at a ligament radius `cal_r` (mm).
 /// The lamina's share of the width, (q + 1)/2 on a duct symmetric about its centroid, falls
 /// apically by [`LAMINA_SHARE_PER_LN_R`]. Kept at the calibration's q, the tip drifted outward
-/// turn by turn: the family's members at 200 µm, all guesses past the seeds, had it
-/// 0.06–0.18 mm out (median per half turn) by the apex.
+/// turn by turn: on the family's members at 200 µm, all guesses past the seeds, it lay
+/// 0.16–0.33 mm out over the trace's last fifth (median; now 0.02–0.17 mm).
 /// None where the ligament does not lie outward of the centroid or `q` is not a number.
 fn lamina_tip(r: f64, lig: f64, q: f64, cal_r: f64) -> Option<f64> {
     if !(lig > r && q.is_finite() && cal_r > 0.0) {

@@ -87,12 +87,13 @@ fn measure_traced(spec: &PhantomSpec) -> (phantom::Phantom, ductline::pipeline::
 /// At clinical resolution (200 µm) the partition never shows past the seeds and the lamina tip is
 /// guessed from the lumen all the way. A real osseous lamina's share of the duct's width falls
 /// toward the apex (the basilar membrane widens from 0.08–0.16 mm to 0.42–0.65 mm, REFERENCES.md)
-/// as does the family's (its shelf spans 45–60 % of the duct at the base, 25–35 % at the apex);
-/// kept at the seeds' share, the tip drifted 0.1–0.3 mm outward by the apex and the midlines of
-/// the twelve members came out +1.9 to +4.8 % long and member 9, its ligament guessed 0.1–0.2 mm
-/// out, +6.7 % (3.6 % on average). Now +0.7 to +3.4 % and +5.7 % (1.8 % on average). The
-/// midline traced from seven points is held within 6 % of the phantom's length on every member
-/// and 2 % on average (the real-CT check asks for 5 %).
+/// as does the family's (its shelf spans 45–60 % of the duct at the base, 25–35 % at the apex).
+/// Kept at the seeds' share, the tip drifted 0.16–0.33 mm outward over the trace's last fifth
+/// (median; now 0.02–0.17 mm), and the midlines of the twelve members came out +1.9 to +4.8 %
+/// long and member 9, its ligament guessed 0.1–0.2 mm out, +6.7 % (3.6 % on average). Now +0.7
+/// to +3.4 % and +5.7 % (1.8 % on average). The midline traced from seven points is held within
+/// 6 % of the phantom's length on every member and 2 % on average (the real-CT check
+/// asks for 5 %).
 #[test]
 fn clinical_resolution_200um_midline_length() {
     let mut errs = vec![];
