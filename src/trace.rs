@@ -279,8 +279,9 @@ const NARROW_MM: f64 = 0.3;
 const DUCT_RHO_MM: f64 = 0.45;
 
 /// Where the partition's ends lie relative to the duct, in units of its equivalent radius:
-/// (lamina r, lamina h, ligament r, ligament h) minus the centroid, over ρ.
-type Offsets = [f64; 4];
+/// (lamina r, lamina h, ligament r, ligament h) minus the centroid, over ρ; and last the
+/// ligament's radius itself (mm), where they were read (see [`lamina_tip`]).
+type Offsets = [f64; 5];
 
 /// The tracer's windows about the partition's ends scale with the partition's width, but with
 /// at least this share of the duct's equivalent radius: a basal membrane of a fifth of the
@@ -312,7 +313,7 @@ fn lamina_tip(r: f64, lig: f64, q: f64, cal_r: f64) -> Option<f64> {
 }
 
 fn offsets(d: &Duct, l: Edge, g: Edge) -> Offsets {
-    [(l.r - d.r) / d.rho, (l.h - d.h) / d.rho, (g.r - d.r) / d.rho, (g.h - d.h) / d.rho]
+    [(l.r - d.r) / d.rho, (l.h - d.h) / d.rho, (g.r - d.r) / d.rho, (g.h - d.h) / d.rho, g.r]
 }
 
 /// Straight-line prediction at `a` from the last four points (least squares in θ; radius on a log scale).
@@ -423,9 +424,6 @@ pub fn trace(stack: &Stack, seeds: &[Landmark], step_deg: f64) -> Result<Trace> 
     // nine is used, so one step misread in the noise does not move the guesses that follow)
     let mut cals: Vec<Offsets> = first.map(|d| offsets(&d, l0, g0)).into_iter().collect();
     let mut cal: Option<Offsets> = cals.first().copied();
-    // (the ligament's radius at those steps, mm, and its median over the same nine)
-    let mut cal_radii: Vec<f64> = first.map(|_| g0.r).into_iter().collect();
-    let mut cal_r = g0.r;
     // (how far the seeds' ligament lies past the lumen's outer edge, mm: see the guesses below)
     let past_edge =
         first.and_then(|d| outer_edge(stack, &frame, &slab(&lam, &lig, start, step_deg, vmax), d.r, 0.5 * (l0.h + g0.h), d.rho, vmax, pitch)).map(|e| g0.r - e);
@@ -515,10 +513,8 @@ pub fn trace(stack: &Stack, seeds: &[Landmark], step_deg: f64) -> Result<Trace> 
                 if let Some(d) = &lumen {
                     let o = offsets(d, l, g);
                     cals.push(o);
-                    cal_radii.push(g.r);
                     let tail = &cals[cals.len().saturating_sub(9)..];
                     cal = Some(std::array::from_fn(|k| median(&mut tail.iter().map(|c| c[k]).collect::<Vec<_>>())));
-                    cal_r = median(&mut cal_radii[cal_radii.len().saturating_sub(9)..].to_vec());
                 }
                 Ok((l, g, conf))
             }
@@ -541,7 +537,7 @@ pub fn trace(stack: &Stack, seeds: &[Landmark], step_deg: f64) -> Result<Trace> 
                     && let Some(e) = past_edge.and_then(|p| outer_edge(stack, &frame, &cuts, d.r, 0.5 * (l.h + g.h), d.rho, vmax, pitch).map(|e| e + p))
                 {
                     g.r = e;
-                    l.r = lamina_tip(d.r, g.r, o[0] / o[2], cal_r).unwrap_or(l.r);
+                    l.r = lamina_tip(d.r, g.r, o[0] / o[2], o[4]).unwrap_or(l.r);
                 }
                 // Past the apex a guess follows whatever dark blob lies near the axis (the
                 // helicotrema's cap, the apical modiolus): the outside phantom at 200 µm, all
