@@ -6,6 +6,8 @@ use ductline::landmarks::{Kind, Landmark};
 use ductline::phantom::{self, Phantom, PhantomSpec};
 use ductline::progress::Progress;
 
+mod common;
+
 /// The seven seeds: the axis and window, and the first two lamina and ligament landmarks.
 fn seeds(ph: &Phantom) -> Vec<Landmark> {
     let mut out: Vec<Landmark> = ph.landmarks.iter().filter(|l| matches!(l.kind, Kind::AxisBase | Kind::AxisApex | Kind::Window)).copied().collect();
@@ -21,11 +23,6 @@ fn off_curve(ph: &Phantom, kind: Kind, p: [f64; 3], near_deg: f64) -> f64 {
     (-400..=400).map(|k| (near_deg + k as f64 * 0.05).to_radians()).map(|t| ductline::frame::v3::dist(q, ph.spec.edge(kind, t))).fold(f64::INFINITY, f64::min)
 }
 
-fn quantile(v: &mut [f64], q: f64) -> f64 {
-    v.sort_by(f64::total_cmp);
-    v[((v.len() - 1) as f64 * q).round() as usize]
-}
-
 /// Prints and returns (median, p95 distance in voxels, depth reached as a share of the truth).
 fn run(spec: PhantomSpec) -> (f64, f64, f64) {
     let (med, p95, depth, _) = run_kinds(spec);
@@ -37,9 +34,9 @@ fn run_kinds(spec: PhantomSpec) -> (f64, f64, f64, f64) {
     let ph = phantom::generate(&spec, &Progress::new()).unwrap();
     let t = ductline::trace::trace(&ph.stack, &seeds(&ph), 10.0).unwrap();
     let vmax = ph.stack.voxel.as_ref().unwrap().max();
-    let mut d: Vec<f64> = t.proposed.iter().map(|p| off_curve(&ph, p.lm.kind, p.lm.p, p.angle_deg) / vmax).collect();
-    let mut lig: Vec<f64> = t.proposed.iter().filter(|p| p.lm.kind == Kind::Ligament).map(|p| off_curve(&ph, p.lm.kind, p.lm.p, p.angle_deg) / vmax).collect();
-    let (med, p95, lig) = (quantile(&mut d, 0.5), quantile(&mut d, 0.95), quantile(&mut lig, 0.5));
+    let d: Vec<f64> = t.proposed.iter().map(|p| off_curve(&ph, p.lm.kind, p.lm.p, p.angle_deg) / vmax).collect();
+    let lig: Vec<f64> = t.proposed.iter().filter(|p| p.lm.kind == Kind::Ligament).map(|p| off_curve(&ph, p.lm.kind, p.lm.p, p.angle_deg) / vmax).collect();
+    let (med, p95, lig) = (common::quantile(&d, 0.5), common::quantile(&d, 0.95), common::quantile(&lig, 0.5));
     let depth = t.stopped_deg / spec.theta_max().to_degrees();
     eprintln!(
         "voxel {:?}: {} proposals, off the true edges median {med:.2} / p95 {p95:.2} voxels, to {:.0}° of {:.0}° ({:.0} %): {}",
@@ -51,13 +48,6 @@ fn run_kinds(spec: PhantomSpec) -> (f64, f64, f64, f64) {
         t.reason
     );
     (med, p95, depth, lig)
-}
-
-/// The truth's value `f` at angle `a` (°), linear between its rows.
-fn truth_at(tr: &[phantom::TruthRow], a: f64, f: &dyn Fn(&phantom::TruthRow) -> f64) -> f64 {
-    let k = tr.partition_point(|r| r.angle_deg < a).clamp(1, tr.len() - 1);
-    let (p, q) = (&tr[k - 1], &tr[k]);
-    f(p) + (a - p.angle_deg) / (q.angle_deg - p.angle_deg) * (f(q) - f(p))
 }
 
 /// A phantom traced from its seven seeds and measured from the proposals at 0.25 mm steps, with
@@ -79,7 +69,7 @@ fn measure_traced(spec: &PhantomSpec) -> (phantom::Phantom, ductline::pipeline::
     let tmax = spec.theta_max().to_degrees();
     let at = out.rows.iter().min_by(|a, b| (a.angle_deg - tmax).abs().total_cmp(&(b.angle_deg - tmax).abs())).unwrap();
     let len = at.s_mm - out.rows[0].s_mm;
-    let want = truth_at(&ph.truth, at.angle_deg, &|r| r.s_mm) - truth_at(&ph.truth, out.rows[0].angle_deg, &|r| r.s_mm);
+    let want = common::truth_at(&ph.truth, at.angle_deg, |r| r.s_mm) - common::truth_at(&ph.truth, out.rows[0].angle_deg, |r| r.s_mm);
     let angle = at.angle_deg;
     (ph, out, (len, want, angle, t.stopped_deg))
 }
@@ -263,7 +253,7 @@ fn proposals_measure_like_the_truth() {
         }
         let (ph, out, (len, want, at, _)) = measure_traced(&spec);
         let tmax = spec.theta_max().to_degrees();
-        let truth_at = |a: f64, f: &dyn Fn(&phantom::TruthRow) -> f64| truth_at(&ph.truth, a, f);
+        let truth_at = |a: f64, f: fn(&phantom::TruthRow) -> f64| common::truth_at(&ph.truth, a, f);
         eprintln!("member {n:?}: traced length to {at:.0}°: {len:.3} mm, phantom {want:.3} mm");
         assert!((len / want - 1.0).abs() < 0.005, "member {n:?}: length {len} vs {want}");
         for (name, get, truth) in [
@@ -274,13 +264,13 @@ fn proposals_measure_like_the_truth() {
             ),
             ("ST", |r| r.st.area, |t| t.st_area_mm2),
         ] {
-            let mut e: Vec<f64> = out
+            let e: Vec<f64> = out
                 .rows
                 .iter()
                 .filter(|r| r.angle_deg >= 30.0 && r.angle_deg <= tmax - 30.0)
-                .filter_map(|r| get(r).map(|a| (a / truth_at(r.angle_deg, &truth) - 1.0).abs()))
+                .filter_map(|r| get(r).map(|a| (a / truth_at(r.angle_deg, truth) - 1.0).abs()))
                 .collect();
-            let (med, p95) = (quantile(&mut e, 0.5), quantile(&mut e, 0.95));
+            let (med, p95) = (common::quantile(&e, 0.5), common::quantile(&e, 0.95));
             eprintln!("member {n:?} {name}: area error median {:.2} %, p95 {:.2} % over {} sections", 100.0 * med, 100.0 * p95, e.len());
             assert!(e.len() > 100 && med <= 0.015 && p95 <= 0.04, "member {n:?} {name}: median {med}, p95 {p95}");
         }
@@ -319,7 +309,7 @@ fn snap_lands_on_the_edges() {
             off.push(off_curve(&ph, Kind::Ligament, g, a as f64) / vmax);
         }
         let n = off.len() / 2;
-        let (med, p95) = (quantile(&mut off, 0.5), quantile(&mut off, 0.95));
+        let (med, p95) = (common::quantile(&off, 0.5), common::quantile(&off, 0.95));
         eprintln!("voxel {:?}: {n} snaps ({missed} not clear), off the true edges median {med:.2} / p95 {p95:.2} voxels", spec.voxel_um);
         assert!(n >= 15 && missed * 5 <= n, "{n} snapped, {missed} not");
         assert!(med <= 1.0 && p95 <= 1.5, "median {med:.2}, p95 {p95:.2} voxels");
@@ -381,8 +371,8 @@ fn a_trace_resumes_from_many_points() {
         let t = ductline::trace::trace(&ph.stack, &seeds, 10.0).unwrap();
         let vmax = ph.stack.voxel.as_ref().unwrap().max();
         let first = t.proposed.iter().map(|p| p.angle_deg).fold(f64::INFINITY, f64::min);
-        let mut d: Vec<f64> = t.proposed.iter().map(|p| off_curve(&ph, p.lm.kind, p.lm.p, p.angle_deg) / vmax).collect();
-        let med = quantile(&mut d, 0.5);
+        let d: Vec<f64> = t.proposed.iter().map(|p| off_curve(&ph, p.lm.kind, p.lm.p, p.angle_deg) / vmax).collect();
+        let med = common::quantile(&d, 0.5);
         let depth = t.stopped_deg / spec.theta_max().to_degrees();
         eprintln!(
             "member {n} at {vox} µm from 41 + 41 seeds: first proposal at {first:.0}°, {} proposals, median {med:.2} voxels off, {:.0} % of the depth",
