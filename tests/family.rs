@@ -45,14 +45,6 @@ fn run_member(n: u64, voxel: [f64; 3]) -> (PhantomSpec, Vec<ductline::measure::R
     (spec, out.rows, ph.truth)
 }
 
-/// A truth column at angle `a` (°), linear between truth rows.
-fn truth_at(t: &[phantom::TruthRow], a: f64, f: &dyn Fn(&phantom::TruthRow) -> f64) -> f64 {
-    let k = t.partition_point(|r| r.angle_deg < a).clamp(1, t.len() - 1);
-    let (p, q) = (&t[k - 1], &t[k]);
-    let w = (a - p.angle_deg) / (q.angle_deg - p.angle_deg);
-    f(p) + w * (f(q) - f(p))
-}
-
 /// Share of the sections ≥ 30° from either end that have both areas, the median SV+ST error
 /// against truth and the largest area / truth, of member n at `voxel` µm.
 fn clinical(n: u64, voxel: f64) -> (f64, f64, f64) {
@@ -62,7 +54,7 @@ fn clinical(n: u64, voxel: f64) -> (f64, f64, f64) {
     let (mut worst, mut sum) = (0.0f64, vec![]);
     for r in inner.iter().filter(|r| r.sv.area.is_some() && r.st.area.is_some()) {
         let (sv, st) = (r.sv.area.unwrap(), r.st.area.unwrap());
-        let (tsv, tst) = (truth_at(&truth, r.angle_deg, &|t| t.sv_area_mm2), truth_at(&truth, r.angle_deg, &|t| t.st_area_mm2));
+        let (tsv, tst) = (common::truth_at(&truth, r.angle_deg, |t| t.sv_area_mm2), common::truth_at(&truth, r.angle_deg, |t| t.st_area_mm2));
         worst = worst.max(sv / tsv).max(st / tst);
         sum.push(((sv + st) / (tsv + tst) - 1.0).abs());
     }
@@ -131,7 +123,7 @@ fn family_sweep() {
     for m in &members {
         let (spec, rows, truth) = run_member(m.n, m.voxel);
         let tmax = spec.theta_max().to_degrees();
-        let truth_at = |a: f64, f: &dyn Fn(&phantom::TruthRow) -> f64| truth_at(&truth, a, f);
+        let truth_at = |a: f64, f: fn(&phantom::TruthRow) -> f64| common::truth_at(&truth, a, f);
         let inner: Vec<_> = rows.iter().filter(|r| r.angle_deg >= 30.0 && r.angle_deg <= tmax - 30.0).collect();
         let (mut sv, mut st, mut width, mut wall) = (vec![], vec![], vec![], vec![]);
         for r in &inner {
@@ -139,16 +131,16 @@ fn family_sweep() {
                 assert!(a > 0.0, "member {}: a non-positive area {a} at s = {} mm", m.n, r.s_mm);
             }
             if let Some(a) = r.sv.area {
-                sv.push((a / truth_at(r.angle_deg, &|t| t.sv_area_mm2) - 1.0).abs());
+                sv.push((a / truth_at(r.angle_deg, |t| t.sv_area_mm2) - 1.0).abs());
             }
             if let Some(a) = r.st.area {
-                st.push((a / truth_at(r.angle_deg, &|t| t.st_area_mm2) - 1.0).abs());
+                st.push((a / truth_at(r.angle_deg, |t| t.st_area_mm2) - 1.0).abs());
             }
             if let Some(x) = r.partition_width_mm {
-                width.push((x - truth_at(r.angle_deg, &|t| t.partition_width_mm)).abs());
+                width.push((x - truth_at(r.angle_deg, |t| t.partition_width_mm)).abs());
             }
             if let Some(x) = r.wall_mm {
-                wall.push((x - truth_at(r.angle_deg, &|t| t.wall_mm)).abs());
+                wall.push((x - truth_at(r.angle_deg, |t| t.wall_mm)).abs());
             }
         }
         let sound = inner.iter().filter(|r| r.sound()).count() as f64 / inner.len() as f64;
