@@ -35,7 +35,7 @@ fn run_kinds(spec: PhantomSpec) -> (f64, f64, f64, f64) {
     let t = ductline::trace::trace(&ph.stack, &seeds(&ph), 10.0).unwrap();
     let vmax = ph.stack.voxel.as_ref().unwrap().max();
     let d: Vec<f64> = t.proposed.iter().map(|p| off_curve(&ph, p.lm.kind, p.lm.p, p.angle_deg) / vmax).collect();
-    let lig: Vec<f64> = t.proposed.iter().filter(|p| p.lm.kind == Kind::Ligament).map(|p| off_curve(&ph, p.lm.kind, p.lm.p, p.angle_deg) / vmax).collect();
+    let lig: Vec<f64> = t.proposed.iter().zip(&d).filter(|(p, _)| p.lm.kind == Kind::Ligament).map(|(_, &x)| x).collect();
     let (med, p95, lig) = (common::quantile(&d, 0.5), common::quantile(&d, 0.95), common::quantile(&lig, 0.5));
     let depth = t.stopped_deg / spec.theta_max().to_degrees();
     eprintln!(
