@@ -83,9 +83,13 @@ fn clinical(n: u64, voxel: f64) -> (f64, f64, f64) {
 /// and SV+ST within 30 % median (members run 4–26 % off, mean 11 %: with a blur of 1.3 voxels no
 /// pixel of a scala is pure lumen; 3–24 %, mean 13 %, before the duct's lumen level could come
 /// from the values at the centreline points, member 8 then 24 % → 26 % with its signed median
-/// +22 → +9 %).
+/// +22 → +9 %). A scala whose blurred pixels nowhere reach the lumen/soft-tissue midpoint was
+/// then grown against bone alone, its ligament and limbus counted 60–80 % lumen; it now grows
+/// below 0.7 of the way to soft tissue first (`measure::DEEP_CUT`): members 1 and 8 14.5 → 8.7 %
+/// and 26.3 → 9.2 %, mean 11.0 → 8.8 %; held here at 20 % each and 10 % mean.
 #[test]
 fn clinical_resolution_keeps_turns_apart() {
+    let mut at200 = vec![];
     for n in 0..12 {
         let (measured, med, worst) = clinical(n, 150.0);
         assert!(measured >= 0.95, "member {n}: areas on {:.0} % of sections", 100.0 * measured);
@@ -95,8 +99,11 @@ fn clinical_resolution_keeps_turns_apart() {
         // (it was up to 28 % with such walls read as bare bone)
         assert!(med < 0.15, "member {n}: SV+ST median error {:.1} %", 100.0 * med);
         let (measured, med, _) = clinical(n, 200.0);
-        assert!(measured >= 0.6 && med < 0.3, "member {n} at 200 µm: areas on {:.0} %, SV+ST median error {:.1} %", 100.0 * measured, 100.0 * med);
+        assert!(measured >= 0.6 && med < 0.2, "member {n} at 200 µm: areas on {:.0} %, SV+ST median error {:.1} %", 100.0 * measured, 100.0 * med);
+        at200.push(med);
     }
+    let mean = at200.iter().sum::<f64>() / at200.len() as f64;
+    assert!(mean < 0.1, "family at 200 µm: SV+ST median error {:.1} % (mean of the members')", 100.0 * mean);
 }
 
 #[test]
