@@ -357,13 +357,13 @@ pub(super) fn scala(
     Some((seed, cut_necks(img, grow(img, seed, side, thr), seed, erode)))
 }
 
-/// Which pixels of an n×n image belong to the first of several seeds: a seeded watershed
+/// Which pixels of an n×n image belong to the first `own` of several seeds (one label): a seeded watershed
 /// (flooding in order of value, each pixel taken by the first label to reach it through its
 /// 4-neighbours), so the boundaries between labels run along the ridges between their basins —
 /// the septa between turns, however blurred. Values are binned into 1024 levels; within a bin
 /// flooding goes first come, first served (a geodesic split where the image is flat). NaN pixels
-/// belong to no one. Seeds past the first that fall on an earlier seed are ignored.
-pub(super) fn territory(v: &[f32], n: usize, seeds: &[usize]) -> Vec<bool> {
+/// belong to no one. A seed that falls on an earlier seed is ignored.
+pub(super) fn territory(v: &[f32], n: usize, seeds: &[usize], own: usize) -> Vec<bool> {
     // on 2×2 blocks (the section pitch is at most half a voxel, so a block is at most a voxel:
     // a septum's ridge survives), a quarter of the work; the blocks' labels go back to their pixels
     let m = n.div_ceil(2);
@@ -379,7 +379,7 @@ pub(super) fn territory(v: &[f32], n: usize, seeds: &[usize]) -> Vec<bool> {
     }
     coarse.iter_mut().zip(&count).for_each(|(c, &k)| *c /= k as f32);
     let seeds: Vec<usize> = seeds.iter().map(|&s| block(s)).collect();
-    let own = watershed(&coarse, m, &seeds);
+    let own = watershed(&coarse, m, &seeds, own);
     let mut out = Vec::with_capacity(n * n);
     for y in 0..n {
         out.extend((0..n).map(|x| own[y / 2 * m + x / 2]));
@@ -387,8 +387,8 @@ pub(super) fn territory(v: &[f32], n: usize, seeds: &[usize]) -> Vec<bool> {
     out
 }
 
-/// The seeded watershed of [`territory`] on an m×m image: whether each pixel goes to the first seed.
-fn watershed(v: &[f32], n: usize, seeds: &[usize]) -> Vec<bool> {
+/// The seeded watershed of [`territory`] on an m×m image: whether each pixel goes to the first `own` seeds.
+fn watershed(v: &[f32], n: usize, seeds: &[usize], own: usize) -> Vec<bool> {
     const BINS: usize = 1024;
     let (lo, hi) = v.iter().filter(|x| x.is_finite()).fold((f32::INFINITY, f32::NEG_INFINITY), |(a, b), &x| (a.min(x), b.max(x)));
     let scale = if hi > lo { (BINS - 1) as f32 / (hi - lo) } else { 0.0 };
@@ -398,7 +398,7 @@ fn watershed(v: &[f32], n: usize, seeds: &[usize]) -> Vec<bool> {
     let mut queue: Vec<Vec<usize>> = vec![vec![]; BINS];
     for (k, &s) in seeds.iter().enumerate() {
         if label[s] == 0 && v[s].is_finite() {
-            label[s] = k as u16 + 1;
+            label[s] = if k < own { 1 } else { k as u16 + 1 };
             queue[bin(s)].push(s);
         }
     }
@@ -445,7 +445,7 @@ mod tests {
             })
             .collect();
         let v = smooth(&v, n);
-        let own = territory(&v, n, &[32 * n + 18, 32 * n + 38]);
+        let own = territory(&v, n, &[32 * n + 18, 32 * n + 38], 1);
         // the seeds' midpoint is x = 28; the ridge at 32 decides
         for x in 5..=30 {
             assert!(own[32 * n + x], "x = {x} on the own side of the ridge");
@@ -455,7 +455,7 @@ mod tests {
         }
         // a plain geodesic split without the ridge would cut near the midpoint (on 2×2 blocks)
         let flat: Vec<f32> = vec![0.5; n * n];
-        let own = territory(&flat, n, &[32 * n + 18, 32 * n + 38]);
+        let own = territory(&flat, n, &[32 * n + 18, 32 * n + 38], 1);
         assert!(own[32 * n + 27] && !own[32 * n + 31]);
     }
 }
