@@ -110,6 +110,10 @@ pub struct PhantomArgs {
     /// Air-filled labyrinth (lumen far darker than soft tissue).
     #[arg(long)]
     pub air: bool,
+    /// Soft tissue (ligament, limbus, nerve) as a share of the lumen–bone step, 0–0.6 (the family
+    /// draws 0.2–0.35 fluid-filled; on clinical CT of a fluid-filled ear it is a few per cent).
+    #[arg(long)]
+    pub tissue: Option<f64>,
     /// Ring artefacts (count), cupping (fraction, 0–0.2) and drift along z (± fraction, 0–0.1).
     #[arg(long)]
     pub rings: Option<u32>,
@@ -277,6 +281,9 @@ pub fn make_phantom(a: PhantomArgs) -> Result<()> {
         spec.levels[0] = 0.03;
         spec.anatomy.iac_level = 0.03;
     }
+    if let Some(share) = a.tissue {
+        spec.set_tissue_share(share);
+    }
     spec.left |= a.left;
     spec.bits = a.bits;
     if let Some(s) = a.seed {
@@ -289,6 +296,7 @@ pub fn make_phantom(a: PhantomArgs) -> Result<()> {
         (spec.scanner.cupping, 0.0, 0.5, "--cupping"),
         (spec.scanner.drift, 0.0, 0.5, "--drift"),
         (spec.scanner.cnr.unwrap_or(10.0), 1.0, 1000.0, "--cnr"),
+        (a.tissue.unwrap_or(0.3), 0.0, 0.6, "--tissue"),
     ];
     for (x, lo, hi, name) in checks {
         if !(x >= lo && x <= hi) {

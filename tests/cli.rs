@@ -545,3 +545,19 @@ fn one_phantom_every_format_one_table() {
         }
     }
 }
+
+/// `phantom --tissue SHARE` puts soft tissue that share of the way from the lumen to bone, as
+/// truth.json records (levels: lumen, soft tissue, bone, outside); a share past 0.6 is refused
+/// with the option named.
+#[test]
+fn phantom_tissue_share() {
+    let dir = tempfile::tempdir().unwrap();
+    let d = dir.path().join("faint");
+    let o = ductline(&["phantom", s(&d), "--variant", "0", "--voxel-um", "200", "--tissue", "0.1"]);
+    assert!(o.status.success(), "{}", stderr(&o));
+    let truth: serde_json::Value = serde_json::from_str(&std::fs::read_to_string(d.join("truth.json")).unwrap()).unwrap();
+    let l: Vec<f64> = truth["spec"]["levels"].as_array().unwrap().iter().map(|x| x.as_f64().unwrap()).collect();
+    assert!((l[1] - (l[0] + 0.1 * (l[2] - l[0]))).abs() < 1e-12, "levels {l:?}");
+    let o = ductline(&["phantom", s(&dir.path().join("bad")), "--variant", "0", "--voxel-um", "200", "--tissue", "0.9"]);
+    assert!(!o.status.success() && stderr(&o).contains("--tissue"), "{}", stderr(&o));
+}

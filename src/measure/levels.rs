@@ -226,6 +226,15 @@ pub(super) fn bone_nearby(levels: &mut [Option<Levels>], centres: &[[f64; 3]], r
     }
 }
 
+/// The noise of a (smoothed) section image about the lumen level `lumen`, in stack units: 1.4826
+/// times the median distance below it of the values under it (the lumen's lower half: a normal
+/// distribution's median absolute deviation scaled to its standard deviation, common practice).
+/// None with fewer than 20 such values.
+pub(super) fn noise_below(v: &[f32], lumen: f32) -> Option<f32> {
+    let mut dev: Vec<f32> = v.iter().filter(|&&x| x < lumen).map(|&x| lumen - x).collect();
+    (dev.len() >= 20).then(|| 1.4826 * median_f32(&mut dev))
+}
+
 pub(super) fn median_f32(v: &mut [f32]) -> f32 {
     let m = v.len() / 2;
     *v.select_nth_unstable_by(m, f32::total_cmp).1
