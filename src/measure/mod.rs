@@ -293,45 +293,29 @@ pub fn measure(
         })
         .collect();
     let mut auto = levels::pooled(&first, &centre, pool);
-    // soft tissue from the lateral wall next to the partition's outer end: the scalae grown in
+    // Soft tissue from the lateral wall next to the partition's outer end: the scalae grown in
     // each first square, the mean profile of rays across the wall there summed over the tube of
     // neighbouring sections, fitted by a blurred lumen | soft tissue | bone model
-    // (`levels::wall_level`) every 2·`pool` sections; a section takes the nearest fit
-    // Two profiles per section: from scalae grown below 15 % of the lumen–bone step (under the
-    // soft tissue of most specimens), and below three noise deviations above the lumen where that
-    // is lower ([`WALL_CUT_NOISE`]; none where it is not); the second's fit stands where both read
-    // a soft-tissue layer
-    let profiles: Vec<[(Vec<f64>, usize); 2]> = first
-        .par_iter()
-        .zip(geoms.par_iter())
-        .zip(auto.par_iter())
-        .zip(parts.par_iter())
-        .map(|(((img, g), lv), part)| {
-            let Some(lv) = lv.filter(|l| l.lumen < l.bone) else { return [(vec![], 0), (vec![], 0)] };
-            let erode = (vmax / pitch).ceil() as usize;
-            let step = lv.bone - lv.lumen;
-            let profile = |cut: f32| {
-                let found: Vec<regions::Region> = [1.0f64, -1.0]
-                    .into_iter()
-                    .filter_map(|side| regions::scala(img, &part.line, part.mid, side, cut, vmax, g.width(), erode, None))
-                    .map(|(_, r)| r)
-                    .collect();
-                levels::wall_profile(img, &found, &lv, g.to_plane(g.ligament), part.dir, (0.3f64).max(3.0 * vmax))
-            };
-            let cut = lv.lumen_cut().min(lv.lumen + 0.15 * step);
-            let low = levels::noise_below(&img.sm, lv.lumen).map_or(cut, |sd| cut.min(lv.lumen + (WALL_CUT_NOISE * sd).max(0.03 * step)));
-            [profile(cut), if low < cut { profile(low) } else { (vec![], 0) }]
-        })
-        .collect();
-    // the wall read from profile k (0: 15 % cut, 1: the noise's; where a section has none from
-    // the latter, the former's) summed over the tube around section i
-    let fit = |i: usize, k: usize| -> Option<levels::Wall> {
+    // (`levels::wall_level`) every 2·`pool` sections; a section takes the nearest fit.
+    // The profile of section k from scalae grown below `cut` (None where it has no levels).
+    let profile = |k: usize, cut: &dyn Fn(&Levels, &Img) -> f32| -> Option<(Vec<f64>, usize)> {
+        let (img, g, part) = (&first[k], &geoms[k], &parts[k]);
+        let lv = auto[k].filter(|l| l.lumen < l.bone)?;
+        let erode = (vmax / pitch).ceil() as usize;
+        let cut = cut(&lv, img);
+        let found: Vec<regions::Region> = [1.0f64, -1.0]
+            .into_iter()
+            .filter_map(|side| regions::scala(img, &part.line, part.mid, side, cut, vmax, g.width(), erode, None))
+            .map(|(_, r)| r)
+            .collect();
+        Some(levels::wall_profile(img, &found, &lv, g.to_plane(g.ligament), part.dir, (0.3f64).max(3.0 * vmax)))
+    };
+    // The wall read from the profiles summed over the tube of sections around section i.
+    let fit = |profiles: &[Option<(Vec<f64>, usize)>], i: usize| -> Option<levels::Wall> {
         let tube = &profiles[i.saturating_sub(2 * pool)..(i + 2 * pool + 1).min(profiles.len())];
-        let pick = |p: &'_ [(Vec<f64>, usize); 2]| if p[k].1 > 0 || k == 0 { p[k].clone() } else { p[0].clone() };
-        let tube: Vec<(Vec<f64>, usize)> = tube.iter().map(pick).collect();
-        let len = tube.iter().map(|p| p.0.len()).max()?;
+        let len = tube.iter().flatten().map(|p| p.0.len()).max()?;
         let (mut sum, mut rays) = (vec![0.0; len], 0);
-        for (p, k) in tube.iter().filter(|p| p.0.len() == len) {
+        for (p, k) in tube.iter().flatten().filter(|p| p.0.len() == len) {
             sum.iter_mut().zip(p).for_each(|(a, b)| *a += b);
             rays += k;
         }
@@ -341,13 +325,31 @@ pub fn measure(
         sum.iter_mut().for_each(|a| *a /= rays as f64);
         levels::wall_level(&sum, pitch, vmax)
     };
-    let fitted: Vec<(usize, levels::Wall)> = (0..profiles.len())
+    // First from scalae grown below 15 % of the lumen–bone step (under the soft tissue of most
+    // specimens). Where that reads a soft-tissue layer, again from scalae grown below three noise
+    // deviations above the lumen where that is lower ([`WALL_CUT_NOISE`]), and where the second
+    // also reads a layer, its level stands.
+    let at15 = |lv: &Levels, _: &Img| lv.lumen_cut().min(lv.lumen + 0.15 * (lv.bone - lv.lumen));
+    let low = |lv: &Levels, img: &Img| {
+        let step = lv.bone - lv.lumen;
+        let cut = at15(lv, img);
+        levels::noise_below(&img.sm, lv.lumen).map_or(cut, |sd| cut.min(lv.lumen + (WALL_CUT_NOISE * sd).max(0.03 * step)))
+    };
+    let profiles: Vec<Option<(Vec<f64>, usize)>> = (0..first.len()).into_par_iter().map(|k| profile(k, &at15)).collect();
+    let fitted: Vec<(usize, levels::Wall)> = (0..profiles.len()).into_par_iter().step_by(2 * pool).filter_map(|i| fit(&profiles, i).map(|w| (i, w))).collect();
+    let layer_near = |k: usize| fitted.iter().any(|(i, w)| matches!(w, levels::Wall::Layer(_)) && i.abs_diff(k) <= 2 * pool);
+    let second: Vec<Option<(Vec<f64>, usize)>> = (0..first.len())
         .into_par_iter()
-        .step_by(2 * pool)
-        .filter_map(|i| {
-            let wall = fit(i, 0)?;
-            let low = profiles.iter().any(|p| p[1].1 > 0).then(|| fit(i, 1)).flatten();
-            Some((i, if let (levels::Wall::Layer(_), Some(levels::Wall::Layer(q))) = (wall, low) { levels::Wall::Layer(q) } else { wall }))
+        .map(|k| {
+            let lower = auto[k].is_some_and(|lv| low(&lv, &first[k]) < at15(&lv, &first[k]));
+            if layer_near(k) && lower { profile(k, &low) } else { profiles[k].clone() }
+        })
+        .collect();
+    let fitted: Vec<(usize, levels::Wall)> = fitted
+        .par_iter()
+        .map(|&(i, wall)| match (wall, fit(&second, i)) {
+            (levels::Wall::Layer(_), Some(levels::Wall::Layer(q))) => (i, levels::Wall::Layer(q)),
+            _ => (i, wall),
         })
         .collect();
     // Where a third or more of the stretches of the duct show a soft-tissue layer, every section
