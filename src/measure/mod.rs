@@ -338,18 +338,17 @@ pub fn measure(
     let profiles: Vec<Option<(Vec<f64>, usize)>> = (0..first.len()).into_par_iter().map(|k| profile(k, &at15)).collect();
     let fitted: Vec<(usize, levels::Wall)> = (0..profiles.len()).into_par_iter().step_by(2 * pool).filter_map(|i| fit(&profiles, i).map(|w| (i, w))).collect();
     let layer_near = |k: usize| fitted.iter().any(|(i, w)| matches!(w, levels::Wall::Layer(_)) && i.abs_diff(k) <= 2 * pool);
-    let second: Vec<Option<(Vec<f64>, usize)>> = (0..first.len())
-        .into_par_iter()
-        .map(|k| {
-            let lower = auto[k].is_some_and(|lv| low(&lv, &first[k]) < at15(&lv, &first[k]));
-            if layer_near(k) && lower { profile(k, &low) } else { profiles[k].clone() }
-        })
-        .collect();
+    let redo: Vec<bool> = (0..first.len()).map(|k| layer_near(k) && auto[k].is_some_and(|lv| low(&lv, &first[k]) < at15(&lv, &first[k]))).collect();
+    let second: Vec<Option<(Vec<f64>, usize)>> =
+        (0..first.len()).into_par_iter().map(|k| if redo[k] { profile(k, &low) } else { profiles[k].clone() }).collect();
     let fitted: Vec<(usize, levels::Wall)> = fitted
         .par_iter()
-        .map(|&(i, wall)| match (wall, fit(&second, i)) {
-            (levels::Wall::Layer(_), Some(levels::Wall::Layer(q))) => (i, levels::Wall::Layer(q)),
-            _ => (i, wall),
+        .map(|&(i, wall)| {
+            let redone = redo[i.saturating_sub(2 * pool)..(i + 2 * pool + 1).min(redo.len())].iter().any(|&r| r);
+            match (wall, if redone { fit(&second, i) } else { None }) {
+                (levels::Wall::Layer(_), Some(levels::Wall::Layer(q))) => (i, levels::Wall::Layer(q)),
+                _ => (i, wall),
+            }
         })
         .collect();
     // Where a third or more of the stretches of the duct show a soft-tissue layer, every section
@@ -726,8 +725,9 @@ fn section_row(
 /// The duct's own territory is flooded from its centreline point and from a point on either side
 /// of the partition, this many partition widths off its midpoint along the normal: inside both
 /// scalae. From the centreline point alone, at 300 µm (the duct a blob a few voxels across) the
-/// other seeds' floods often reached one side of the partition first and took it whole, and the family's members had areas on 56–99 % of their sections
-/// (`no_seed`); now 74–100 %. 25–200 µm: unchanged but for a section or two more measured.
+/// other seeds' floods often reached one side of the partition first and took it whole, and the
+/// family's members had areas on 56–99 % of their sections (`no_seed`); now 74–100 %. 25–200 µm:
+/// unchanged but for a section or two more measured.
 const OWN_SEEDS_WIDTHS: f64 = 0.2;
 
 /// Resamples the section square of half-size `half`; samples an earlier, smaller square `old`
