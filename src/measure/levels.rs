@@ -568,6 +568,24 @@ pub(super) fn wall_profile(img: &Img, found: &[super::regions::Region], lv: &Lev
     (sum, rays.len())
 }
 
+/// The wall read from the lateral-wall profiles of a tube of sections ([`wall_profile`]: each a
+/// sum of rays and their count): the profiles of the longest length summed, divided by their
+/// rays and fitted by [`wall_level`]; None with under ten rays.
+pub(super) fn tube_wall<'a>(profiles: impl Iterator<Item = &'a (Vec<f64>, usize)>, pitch: f64, vox: f64) -> Option<Wall> {
+    let tube: Vec<&(Vec<f64>, usize)> = profiles.collect();
+    let len = tube.iter().map(|p| p.0.len()).max()?;
+    let (mut sum, mut rays) = (vec![0.0; len], 0);
+    for (p, k) in tube.into_iter().filter(|p| p.0.len() == len) {
+        sum.iter_mut().zip(p).for_each(|(a, b)| *a += b);
+        rays += k;
+    }
+    if rays < 10 {
+        return None;
+    }
+    sum.iter_mut().for_each(|a| *a /= rays as f64);
+    wall_level(&sum, pitch, vox)
+}
+
 /// The soft-tissue level, as q = (v − lumen)/(bone − lumen), from a mean lateral-wall profile
 /// `p` (q every half pixel of `pitch` mm, voxels of `vox` mm at their largest; see
 /// [`wall_profile`]), or None where the profile does not show a layer between lumen and bone.

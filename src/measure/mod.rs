@@ -298,11 +298,10 @@ pub fn measure(
     // neighbouring sections, fitted by a blurred lumen | soft tissue | bone model
     // (`levels::wall_level`) every 2·`pool` sections; a section takes the nearest fit.
     // The profile of section k from scalae grown below `cut` (None where it has no levels).
-    let profile = |k: usize, cut: &dyn Fn(&Levels, &Img) -> f32| -> Option<(Vec<f64>, usize)> {
+    let profile = |k: usize, cut: f32| -> Option<(Vec<f64>, usize)> {
         let (img, g, part) = (&first[k], &geoms[k], &parts[k]);
         let lv = auto[k].filter(|l| l.lumen < l.bone)?;
         let erode = (vmax / pitch).ceil() as usize;
-        let cut = cut(&lv, img);
         let found: Vec<regions::Region> = [1.0f64, -1.0]
             .into_iter()
             .filter_map(|side| regions::scala(img, &part.line, part.mid, side, cut, vmax, g.width(), erode, None))
@@ -310,43 +309,38 @@ pub fn measure(
             .collect();
         Some(levels::wall_profile(img, &found, &lv, g.to_plane(g.ligament), part.dir, (0.3f64).max(3.0 * vmax)))
     };
-    // The wall read from the profiles summed over the tube of sections around section i.
-    let fit = |profiles: &[Option<(Vec<f64>, usize)>], i: usize| -> Option<levels::Wall> {
-        let tube = &profiles[i.saturating_sub(2 * pool)..(i + 2 * pool + 1).min(profiles.len())];
-        let len = tube.iter().flatten().map(|p| p.0.len()).max()?;
-        let (mut sum, mut rays) = (vec![0.0; len], 0);
-        for (p, k) in tube.iter().flatten().filter(|p| p.0.len() == len) {
-            sum.iter_mut().zip(p).for_each(|(a, b)| *a += b);
-            rays += k;
-        }
-        if rays < 10 {
-            return None;
-        }
-        sum.iter_mut().for_each(|a| *a /= rays as f64);
-        levels::wall_level(&sum, pitch, vmax)
-    };
+    // The sections of the tube around section i.
+    let tube = |i: usize| i.saturating_sub(2 * pool)..(i + 2 * pool + 1).min(first.len());
     // First from scalae grown below 15 % of the lumen–bone step (under the soft tissue of most
     // specimens). Where that reads a soft-tissue layer, again from scalae grown below three noise
     // deviations above the lumen where that is lower ([`WALL_CUT_NOISE`]), and where the second
     // also reads a layer, its level stands.
-    let at15 = |lv: &Levels, _: &Img| lv.lumen_cut().min(lv.lumen + 0.15 * (lv.bone - lv.lumen));
-    let low = |lv: &Levels, img: &Img| {
-        let step = lv.bone - lv.lumen;
-        let cut = at15(lv, img);
-        levels::noise_below(&img.sm, lv.lumen).map_or(cut, |sd| cut.min(lv.lumen + (WALL_CUT_NOISE * sd).max(0.03 * step)))
-    };
-    let profiles: Vec<Option<(Vec<f64>, usize)>> = (0..first.len()).into_par_iter().map(|k| profile(k, &at15)).collect();
-    let fitted: Vec<(usize, levels::Wall)> = (0..profiles.len()).into_par_iter().step_by(2 * pool).filter_map(|i| fit(&profiles, i).map(|w| (i, w))).collect();
-    let layer_near = |k: usize| fitted.iter().any(|(i, w)| matches!(w, levels::Wall::Layer(_)) && i.abs_diff(k) <= 2 * pool);
-    let redo: Vec<bool> = (0..first.len()).map(|k| layer_near(k) && auto[k].is_some_and(|lv| low(&lv, &first[k]) < at15(&lv, &first[k]))).collect();
-    let second: Vec<Option<(Vec<f64>, usize)>> =
-        (0..first.len()).into_par_iter().map(|k| if redo[k] { profile(k, &low) } else { profiles[k].clone() }).collect();
+    let cut15 = |lv: &Levels| lv.lumen_cut().min(lv.lumen + 0.15 * (lv.bone - lv.lumen));
+    let profiles: Vec<Option<(Vec<f64>, usize)>> = (0..first.len()).into_par_iter().map(|k| auto[k].and_then(|lv| profile(k, cut15(&lv)))).collect();
+    let fitted: Vec<(usize, levels::Wall)> = (0..first.len())
+        .into_par_iter()
+        .step_by(2 * pool)
+        .filter_map(|i| levels::tube_wall(tube(i).filter_map(|k| profiles[k].as_ref()), pitch, vmax).map(|w| (i, w)))
+        .collect();
+    let layer_near = |k: usize| fitted.iter().any(|(i, w)| matches!(w, levels::Wall::Layer(_)) && tube(*i).contains(&k));
+    let second: Vec<Option<(Vec<f64>, usize)>> = (0..first.len())
+        .into_par_iter()
+        .map(|k| {
+            let lv = auto[k].filter(|_| layer_near(k))?;
+            let (cut, step) = (cut15(&lv), lv.bone - lv.lumen);
+            let low = lv.lumen + (WALL_CUT_NOISE * levels::noise_below(&first[k].sm, lv.lumen)?).max(0.03 * step);
+            if low < cut { profile(k, low) } else { None }
+        })
+        .collect();
     let fitted: Vec<(usize, levels::Wall)> = fitted
         .par_iter()
         .map(|&(i, wall)| {
-            let redone = redo[i.saturating_sub(2 * pool)..(i + 2 * pool + 1).min(redo.len())].iter().any(|&r| r);
-            match (wall, if redone { fit(&second, i) } else { None }) {
-                (levels::Wall::Layer(_), Some(levels::Wall::Layer(q))) => (i, levels::Wall::Layer(q)),
+            let redone = tube(i).any(|k| second[k].is_some());
+            match wall {
+                levels::Wall::Layer(_) if redone => match levels::tube_wall(tube(i).filter_map(|k| second[k].as_ref().or(profiles[k].as_ref())), pitch, vmax) {
+                    Some(levels::Wall::Layer(q)) => (i, levels::Wall::Layer(q)),
+                    _ => (i, wall),
+                },
                 _ => (i, wall),
             }
         })
