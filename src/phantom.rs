@@ -173,6 +173,20 @@ pub struct Duct {
 }
 
 impl PhantomSpec {
+    /// Puts soft tissue (and the nerve and canal where they were at its level) `share` of the way
+    /// from the lumen to bone: 0.2–0.35 in the fluid-filled members, a few per cent on clinical
+    /// CT of a fluid-filled ear, where soft tissue is hardly brighter than fluid.
+    pub fn set_tissue_share(&mut self, share: f64) {
+        let [lumen, old, bone, _] = self.levels;
+        let tissue = lumen + share * (bone - lumen);
+        self.levels[1] = tissue;
+        for level in [&mut self.anatomy.nerve_level, &mut self.anatomy.iac_level] {
+            if *level == old {
+                *level = tissue;
+            }
+        }
+    }
+
     /// Angular extent of the landmarks (rad).
     pub fn theta_max(&self) -> f64 {
         self.turns * TAU
@@ -427,20 +441,6 @@ impl PhantomSpec {
     /// basilar membrane is as narrow as a real one (the shelf 88–93 % at the base, 40–50 % at the
     /// apex: 0.1–0.25 mm widening to half the duct; REFERENCES.md). Every draw is printed in the
     /// spec.
-    /// Puts soft tissue (and the nerve and canal where they were at its level) `share` of the way
-    /// from the lumen to bone: 0.2–0.35 in the fluid-filled members, a few per cent on clinical
-    /// CT of a fluid-filled ear, where soft tissue is hardly brighter than fluid.
-    pub fn set_tissue_share(&mut self, share: f64) {
-        let [lumen, old, bone, _] = self.levels;
-        let tissue = lumen + share * (bone - lumen);
-        self.levels[1] = tissue;
-        for level in [&mut self.anatomy.nerve_level, &mut self.anatomy.iac_level] {
-            if *level == old {
-                *level = tissue;
-            }
-        }
-    }
-
     pub fn variant(n: u64, voxel_um: [f64; 3]) -> PhantomSpec {
         let mut g = Rng(0xC0C1_EA00 ^ n.wrapping_mul(0x9E37_79B9_7F4A_7C15));
         let mut u = |a: f64, b: f64| a + (b - a) * g.next();
