@@ -37,11 +37,18 @@ fn stats(v: &mut [f64]) -> (f64, f64) {
 
 /// A member measured from its own landmarks at 0.25 mm steps: rows, truth, truth's last angle (°).
 fn run_member(n: u64, voxel: [f64; 3]) -> (PhantomSpec, Vec<ductline::measure::Row>, Vec<phantom::TruthRow>) {
-    let spec = PhantomSpec { truth_step_deg: 5.0, ..PhantomSpec::variant(n, voxel) };
+    run_spec(PhantomSpec { truth_step_deg: 5.0, ..PhantomSpec::variant(n, voxel) })
+}
+
+/// The phantom of `spec` measured from its landmarks every 0.25 mm: its rows, none with a
+/// negative area anywhere, and its truth.
+fn run_spec(spec: PhantomSpec) -> (PhantomSpec, Vec<ductline::measure::Row>, Vec<phantom::TruthRow>) {
     let ph = phantom::generate(&spec, &Progress::new()).unwrap();
     let ms = MeasureSettings { step_mm: 0.25, ..Default::default() };
     let gw = Greenwood::preset("human").unwrap();
     let out = ductline::pipeline::run(&ph.stack, &ph.landmarks, &FitSettings::default(), &ms, &[], &gw, &Progress::new()).unwrap();
+    let negative = out.rows.iter().find(|r| r.sv.area.is_some_and(|a| a < 0.0) || r.st.area.is_some_and(|a| a < 0.0));
+    assert!(negative.is_none(), "phantom seed {} at {:?} µm: a negative area at {:.0}°", spec.seed, spec.voxel_um, negative.map_or(0.0, |r| r.angle_deg));
     (spec, out.rows, ph.truth)
 }
 
@@ -50,8 +57,6 @@ fn run_member(n: u64, voxel: [f64; 3]) -> (PhantomSpec, Vec<ductline::measure::R
 fn clinical(n: u64, voxel: f64) -> (f64, f64, f64) {
     let (spec, rows, truth) = run_member(n, [voxel; 3]);
     let tmax = spec.theta_max().to_degrees();
-    let negative = rows.iter().find(|r| r.sv.area.is_some_and(|a| a < 0.0) || r.st.area.is_some_and(|a| a < 0.0));
-    assert!(negative.is_none(), "member {n} at {voxel} µm: a negative area at {:.0}°", negative.map_or(0.0, |r| r.angle_deg));
     let inner: Vec<_> = rows.iter().filter(|r| r.angle_deg >= 30.0 && r.angle_deg <= tmax - 30.0).collect();
     let (mut worst, mut sum) = (0.0f64, vec![]);
     for r in inner.iter().filter(|r| r.sv.area.is_some() && r.st.area.is_some()) {
@@ -136,16 +141,13 @@ fn faint_soft_tissue() {
     for n in [0u64, 5] {
         let mut spec = PhantomSpec { truth_step_deg: 5.0, ..PhantomSpec::variant(n, [40.0; 3]) };
         spec.set_tissue_share(0.1);
-        let ph = phantom::generate(&spec, &Progress::new()).unwrap();
-        let ms = MeasureSettings { step_mm: 0.25, ..Default::default() };
-        let gw = Greenwood::preset("human").unwrap();
-        let rows = ductline::pipeline::run(&ph.stack, &ph.landmarks, &FitSettings::default(), &ms, &[], &gw, &Progress::new()).unwrap().rows;
+        let (spec, rows, truth) = run_spec(spec);
         let tmax = spec.theta_max().to_degrees();
         let (mut sv, mut st) = (vec![], vec![]);
         for r in rows.iter().filter(|r| r.angle_deg >= 30.0 && r.angle_deg <= tmax - 30.0) {
             let (Some(a), Some(b)) = (r.sv.area, r.st.area) else { panic!("member {n}: no areas at {:.0}° ({})", r.angle_deg, r.flag_words()) };
-            sv.push((a / common::truth_at(&ph.truth, r.angle_deg, |t| t.sv_area_mm2) - 1.0).abs());
-            st.push((b / common::truth_at(&ph.truth, r.angle_deg, |t| t.st_area_mm2) - 1.0).abs());
+            sv.push((a / common::truth_at(&truth, r.angle_deg, |t| t.sv_area_mm2) - 1.0).abs());
+            st.push((b / common::truth_at(&truth, r.angle_deg, |t| t.st_area_mm2) - 1.0).abs());
         }
         let ((sv, _), (st, _)) = (stats(&mut sv), stats(&mut st));
         eprintln!("member {n} at 40 µm, soft tissue 0.1 of the step: SV/ST median error {:.1}/{:.1} %", 100.0 * sv, 100.0 * st);
@@ -178,8 +180,6 @@ fn family_sweep() {
         let (spec, rows, truth) = run_member(m.n, m.voxel);
         let tmax = spec.theta_max().to_degrees();
         let truth_at = |a: f64, f: fn(&phantom::TruthRow) -> f64| common::truth_at(&truth, a, f);
-        let negative = rows.iter().find(|r| r.sv.area.is_some_and(|a| a < 0.0) || r.st.area.is_some_and(|a| a < 0.0));
-        assert!(negative.is_none(), "member {} at {:?} µm: a negative area at {:.0}°", m.n, m.voxel, negative.map_or(0.0, |r| r.angle_deg));
         let inner: Vec<_> = rows.iter().filter(|r| r.angle_deg >= 30.0 && r.angle_deg <= tmax - 30.0).collect();
         let (mut sv, mut st, mut width, mut wall) = (vec![], vec![], vec![], vec![]);
         for r in &inner {
