@@ -141,17 +141,40 @@ fn faint_soft_tissue() {
     for n in [0u64, 5] {
         let mut spec = PhantomSpec { truth_step_deg: 5.0, ..PhantomSpec::variant(n, [40.0; 3]) };
         spec.set_tissue_share(0.1);
-        let (spec, rows, truth) = run_spec(spec);
-        let tmax = spec.theta_max().to_degrees();
-        let (mut sv, mut st) = (vec![], vec![]);
-        for r in rows.iter().filter(|r| r.angle_deg >= 30.0 && r.angle_deg <= tmax - 30.0) {
-            let (Some(a), Some(b)) = (r.sv.area, r.st.area) else { panic!("member {n}: no areas at {:.0}° ({})", r.angle_deg, r.flag_words()) };
-            sv.push((a / common::truth_at(&truth, r.angle_deg, |t| t.sv_area_mm2) - 1.0).abs());
-            st.push((b / common::truth_at(&truth, r.angle_deg, |t| t.st_area_mm2) - 1.0).abs());
-        }
-        let ((sv, _), (st, _)) = (stats(&mut sv), stats(&mut st));
+        let ((sv, _), (st, _)) = area_errors(spec);
         eprintln!("member {n} at 40 µm, soft tissue 0.1 of the step: SV/ST median error {:.1}/{:.1} %", 100.0 * sv, 100.0 * st);
         assert!(sv < 0.03 && st < 0.02, "member {n}: SV/ST median error {:.1}/{:.1} %", 100.0 * sv, 100.0 * st);
+    }
+}
+
+/// The median and p95 of the SV and of the ST area errors against truth over the sections ≥ 30°
+/// from either end of the phantom of `spec`, every one of which must have both areas.
+fn area_errors(spec: PhantomSpec) -> ((f64, f64), (f64, f64)) {
+    let n = spec.seed;
+    let (spec, rows, truth) = run_spec(spec);
+    let tmax = spec.theta_max().to_degrees();
+    let (mut sv, mut st) = (vec![], vec![]);
+    for r in rows.iter().filter(|r| r.angle_deg >= 30.0 && r.angle_deg <= tmax - 30.0) {
+        let (Some(a), Some(b)) = (r.sv.area, r.st.area) else { panic!("seed {n}: no areas at {:.0}° ({})", r.angle_deg, r.flag_words()) };
+        sv.push((a / common::truth_at(&truth, r.angle_deg, |t| t.sv_area_mm2) - 1.0).abs());
+        st.push((b / common::truth_at(&truth, r.angle_deg, |t| t.st_area_mm2) - 1.0).abs());
+    }
+    (stats(&mut sv), stats(&mut st))
+}
+
+/// The family's two most blurred members at 40 µm (member 8: blur 1.30 voxels, contrast-to-noise
+/// 13; member 13: 1.47 voxels): scala tympani within the targets, median ≤ 1.5 % and p95
+/// ≤ 4 % against truth by rasterising the analytic sections (the phantom's own truth). Where the
+/// lumen's blurred corner by the modiolus climbed slowly, the rays read a soft-tissue layer on
+/// bare bone and took up to 0.7 of a pixel of lumen off each pixel there; with bone walling scala
+/// tympani modiolar of the lamina tip (`measure::areas`), 2.4/5.2 → 1.0/3.4 % (member 8) and
+/// 1.4/4.9 → 1.0/2.6 % (member 13).
+#[test]
+fn heavy_blur_scala_tympani() {
+    for n in [8u64, 13] {
+        let (_, (st, st95)) = area_errors(PhantomSpec { truth_step_deg: 5.0, ..PhantomSpec::variant(n, [40.0; 3]) });
+        eprintln!("member {n} at 40 µm: ST median/p95 error {:.1}/{:.1} %", 100.0 * st, 100.0 * st95);
+        assert!(st <= 0.015 && st95 <= 0.04, "member {n}: ST median/p95 error {:.1}/{:.1} %", 100.0 * st, 100.0 * st95);
     }
 }
 

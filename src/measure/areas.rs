@@ -190,6 +190,17 @@ pub(super) fn fraction_area(img: &Img, r: &Region, side: f64, lv: &Levels, band:
     // the basilar membrane is as narrow as a real one (member 13 at 40 µm: ST −7.6 → −0.9 %
     // signed median). In chamfer units (three a pixel); `blur` is σ in pixels.
     let shelf_reach = (1.5 * vox3 as f64).max(9.0 * blur.unwrap_or(0.0));
+    // Scala tympani modiolar of the lamina tip is walled by bone: the shelf's tympanic side is
+    // bare and the modiolar wall is bone (the nerve behind it lies past the wall's crest, see
+    // `past_crest`). Within two blur widths of the grown lumen there (at least a voxel) a pixel
+    // counts against bone whatever its ray says: under a blur over a voxel the lumen's corner by
+    // the modiolus climbs slowly, its rays took it for a soft-tissue layer on bone, and each pixel
+    // there lost up to 0.7 of its lumen (member 8 at 40 µm, blur 1.3 voxels: ST signed median
+    // −2.4 → −0.8 %; member 13, blur 1.47: −1.3 → +0.3 %; the family at 200 µm within half a
+    // point per member but member 9's ST, 6.8 → 8.1 %). Farther out the rays still decide: at
+    // 200 µm the modiolus's nerve core lies within the band, and counted against bone it read
+    // scala tympani 3–8 points high.
+    let modiolar_reach = (vox3 as f64).max(6.0 * blur.unwrap_or(0.0));
     let on_bone_edge = chamfer(w, h, |k| mask[at(k)] && lined[k].map_or(4 * d_bone[k] <= 7 * vox3, |r| r == Ref::Bone));
     // A pixel beyond the crest of a bony wall, seen from the nearest edge pixel of the lumen,
     // holds no lumen (see [`past_crest`]).
@@ -212,6 +223,9 @@ pub(super) fn fraction_area(img: &Img, r: &Region, side: f64, lv: &Levels, band:
         }
         let along = part.along(img.uv(i));
         if (d_part[k] as f64) <= shelf_reach && along < 0.0 && by_partition(along) {
+            return Ref::Bone;
+        }
+        if side < 0.0 && along < 0.0 && (d_lumen[k] as f64) <= modiolar_reach {
             return Ref::Bone;
         }
         if let Some(r) = by_ray[k] {
