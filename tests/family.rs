@@ -167,8 +167,8 @@ fn area_errors(spec: PhantomSpec) -> ((f64, f64), (f64, f64)) {
 /// ≤ 4 % against truth by rasterising the analytic sections (the phantom's own truth). Where the
 /// lumen's blurred corner by the modiolus climbed slowly, the rays read a soft-tissue layer on
 /// bare bone and took up to 0.7 of a pixel of lumen off each pixel there; with bone walling scala
-/// tympani modiolar of the lamina tip (`measure::areas`), 2.4/5.2 → 1.0/3.4 % (member 8) and
-/// 1.4/4.9 → 1.0/2.6 % (member 13).
+/// tympani modiolar of the lamina tip (`measure::areas`), 2.4/5.1 → 1.0/3.3 % (member 8) and
+/// 1.4/4.7 → 1.0/2.6 % (member 13).
 #[test]
 fn heavy_blur_scala_tympani() {
     for n in [8u64, 13] {
