@@ -335,14 +335,9 @@ pub fn measure(
     let fitted: Vec<(usize, levels::Wall)> = fitted
         .par_iter()
         .map(|&(i, wall)| {
-            let redone = tube(i).any(|k| second[k].is_some());
-            match wall {
-                levels::Wall::Layer(_) if redone => match levels::tube_wall(tube(i).filter_map(|k| second[k].as_ref().or(profiles[k].as_ref())), pitch, vmax) {
-                    Some(levels::Wall::Layer(q)) => (i, levels::Wall::Layer(q)),
-                    _ => (i, wall),
-                },
-                _ => (i, wall),
-            }
+            let redo = matches!(wall, levels::Wall::Layer(_)) && tube(i).any(|k| second[k].is_some());
+            let again = redo.then(|| levels::tube_wall(tube(i).filter_map(|k| second[k].as_ref().or(profiles[k].as_ref())), pitch, vmax)).flatten();
+            (i, again.filter(|w| matches!(w, levels::Wall::Layer(_))).unwrap_or(wall))
         })
         .collect();
     // Where a third or more of the stretches of the duct show a soft-tissue layer, every section
