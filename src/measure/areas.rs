@@ -133,7 +133,7 @@ pub(super) fn fraction_area(img: &Img, r: &Region, side: f64, lv: &Levels, band:
             inside.then(|| (y as usize - reach.b0) * w + x as usize - reach.a0)
         };
         let plateaus;
-        (plateaus, blur) = super::levels::plateaus(img, &[mask], r.bounds, lv, erode, (side > 0.0 && part.limbus).then_some(part));
+        (plateaus, blur) = super::levels::plateaus(img, &[mask], r.bounds, lv, erode, part, side);
         for p in plateaus.iter().filter(|p| p.layer.is_none()) {
             let (a, b) = ((p.pixel % n) as f64, (p.pixel / n) as f64);
             let kind = if p.value < lv.bone_cut() { Ref::Tissue } else { Ref::Bone };

@@ -514,12 +514,12 @@ impl Partition {
 
     /// Distance (mm) of section point `q` along the partition from the lamina tip toward the
     /// ligament: negative over the bony shelf, past [`Partition::width`] beyond the ligament.
-    fn along(&self, q: [f64; 2]) -> f64 {
+    pub(super) fn along(&self, q: [f64; 2]) -> f64 {
         (q[0] - self.line.p[0]) * self.dir[0] + (q[1] - self.line.p[1]) * self.dir[1]
     }
 
     /// Lamina tip to ligament (mm).
-    fn width(&self) -> f64 {
+    pub(super) fn width(&self) -> f64 {
         2.0 * (self.mid[0] - self.line.p[0]).hypot(self.mid[1] - self.line.p[1])
     }
 }
