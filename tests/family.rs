@@ -193,6 +193,43 @@ fn thin_ligament_scala_tympani_80um() {
     }
 }
 
+/// Contrast-to-noise 6 (the anatomy notes reach down to 5; the family's members 0–13 happen to
+/// draw 9–29): members 1, 3 (air-filled) and 7 at 80 µm, against truth by rasterising the analytic
+/// sections (the phantom's own truth). Noise leaves specks above the growth threshold inside a
+/// scala; as holes they made necks that were cut, and the piece cut off counted as another dark
+/// space. With the grown region's holes filled (`measure::regions`), member 3's SV/ST median
+/// 8.9/6.8 → 6.9/5.3 % and p95 51.2/45.0 → 22.9/21.6 %, member 1's ST p95 28.7 → 18.7 %. Held: 95 % of the
+/// sections sound, SV and ST within 8 % median and 30 % p95 (at contrast-to-noise 6 a pixel's
+/// noise is a sixth of the lumen–bone step, so single rows scatter by 10–20 %).
+#[test]
+fn low_contrast_to_noise_80um() {
+    for n in [1u64, 3, 7] {
+        let mut spec = PhantomSpec { truth_step_deg: 5.0, ..PhantomSpec::variant(n, [80.0; 3]) };
+        spec.scanner.cnr = Some(6.0);
+        let (spec, rows, truth) = run_spec(spec);
+        let tmax = spec.theta_max().to_degrees();
+        let inner: Vec<_> = rows.iter().filter(|r| r.angle_deg >= 30.0 && r.angle_deg <= tmax - 30.0).collect();
+        let sound = inner.iter().filter(|r| r.sound()).count() as f64 / inner.len() as f64;
+        let (mut sv, mut st) = (vec![], vec![]);
+        for r in &inner {
+            let (Some(a), Some(b)) = (r.sv.area, r.st.area) else { panic!("member {n}: no areas at {:.0}° ({})", r.angle_deg, r.flag_words()) };
+            sv.push((a / common::truth_at(&truth, r.angle_deg, |t| t.sv_area_mm2) - 1.0).abs());
+            st.push((b / common::truth_at(&truth, r.angle_deg, |t| t.st_area_mm2) - 1.0).abs());
+        }
+        let ((svm, sv95), (stm, st95)) = (stats(&mut sv), stats(&mut st));
+        eprintln!(
+            "member {n} at 80 µm, contrast-to-noise 6: {:.0} % sound, SV {:.1}/{:.1} %, ST {:.1}/{:.1} % (median/p95)",
+            100.0 * sound,
+            100.0 * svm,
+            100.0 * sv95,
+            100.0 * stm,
+            100.0 * st95
+        );
+        assert!(sound >= 0.95, "member {n}: {:.0} % sound", 100.0 * sound);
+        assert!(svm <= 0.08 && stm <= 0.08 && sv95 <= 0.3 && st95 <= 0.3, "member {n}: SV {svm:.3}/{sv95:.3}, ST {stm:.3}/{st95:.3}");
+    }
+}
+
 #[test]
 fn family_sweep() {
     let members = [
