@@ -141,25 +141,28 @@ fn faint_soft_tissue() {
     for n in [0u64, 5] {
         let mut spec = PhantomSpec { truth_step_deg: 5.0, ..PhantomSpec::variant(n, [40.0; 3]) };
         spec.set_tissue_share(0.1);
-        let ((sv, _), (st, _)) = area_errors(spec);
+        let ((sv, _), (st, _), _) = area_errors(spec);
         eprintln!("member {n} at 40 µm, soft tissue 0.1 of the step: SV/ST median error {:.1}/{:.1} %", 100.0 * sv, 100.0 * st);
         assert!(sv < 0.03 && st < 0.02, "member {n}: SV/ST median error {:.1}/{:.1} %", 100.0 * sv, 100.0 * st);
     }
 }
 
 /// The median and p95 of the SV and of the ST area errors against truth over the sections ≥ 30°
-/// from either end of the phantom of `spec`, every one of which must have both areas.
-fn area_errors(spec: PhantomSpec) -> ((f64, f64), (f64, f64)) {
+/// from either end of the phantom of `spec`, every one of which must have both areas, and the
+/// share of those sections that are sound.
+fn area_errors(spec: PhantomSpec) -> ((f64, f64), (f64, f64), f64) {
     let n = spec.seed;
     let (spec, rows, truth) = run_spec(spec);
     let tmax = spec.theta_max().to_degrees();
+    let inner: Vec<_> = rows.iter().filter(|r| r.angle_deg >= 30.0 && r.angle_deg <= tmax - 30.0).collect();
     let (mut sv, mut st) = (vec![], vec![]);
-    for r in rows.iter().filter(|r| r.angle_deg >= 30.0 && r.angle_deg <= tmax - 30.0) {
+    for r in &inner {
         let (Some(a), Some(b)) = (r.sv.area, r.st.area) else { panic!("seed {n}: no areas at {:.0}° ({})", r.angle_deg, r.flag_words()) };
         sv.push((a / common::truth_at(&truth, r.angle_deg, |t| t.sv_area_mm2) - 1.0).abs());
         st.push((b / common::truth_at(&truth, r.angle_deg, |t| t.st_area_mm2) - 1.0).abs());
     }
-    (stats(&mut sv), stats(&mut st))
+    let sound = inner.iter().filter(|r| r.sound()).count() as f64 / inner.len() as f64;
+    (stats(&mut sv), stats(&mut st), sound)
 }
 
 /// The family's two most blurred members at 40 µm (member 8: blur 1.30 voxels, contrast-to-noise
@@ -172,7 +175,7 @@ fn area_errors(spec: PhantomSpec) -> ((f64, f64), (f64, f64)) {
 #[test]
 fn heavy_blur_scala_tympani() {
     for n in [8u64, 13] {
-        let (_, (st, st95)) = area_errors(PhantomSpec { truth_step_deg: 5.0, ..PhantomSpec::variant(n, [40.0; 3]) });
+        let (_, (st, st95), _) = area_errors(PhantomSpec { truth_step_deg: 5.0, ..PhantomSpec::variant(n, [40.0; 3]) });
         eprintln!("member {n} at 40 µm: ST median/p95 error {:.1}/{:.1} %", 100.0 * st, 100.0 * st95);
         assert!(st <= 0.015 && st95 <= 0.04, "member {n}: ST median/p95 error {:.1}/{:.1} %", 100.0 * st, 100.0 * st95);
     }
@@ -187,7 +190,7 @@ fn heavy_blur_scala_tympani() {
 #[test]
 fn thin_ligament_scala_tympani_80um() {
     for n in [4u64, 9, 10] {
-        let (_, (st, st95)) = area_errors(PhantomSpec { truth_step_deg: 5.0, ..PhantomSpec::variant(n, [80.0; 3]) });
+        let (_, (st, st95), _) = area_errors(PhantomSpec { truth_step_deg: 5.0, ..PhantomSpec::variant(n, [80.0; 3]) });
         eprintln!("member {n} at 80 µm: ST median/p95 error {:.1}/{:.1} %", 100.0 * st, 100.0 * st95);
         assert!(st <= 0.04, "member {n}: ST median/p95 error {:.1}/{:.1} %", 100.0 * st, 100.0 * st95);
     }
@@ -206,17 +209,7 @@ fn low_contrast_to_noise_80um() {
     for n in [1u64, 3, 7] {
         let mut spec = PhantomSpec { truth_step_deg: 5.0, ..PhantomSpec::variant(n, [80.0; 3]) };
         spec.scanner.cnr = Some(6.0);
-        let (spec, rows, truth) = run_spec(spec);
-        let tmax = spec.theta_max().to_degrees();
-        let inner: Vec<_> = rows.iter().filter(|r| r.angle_deg >= 30.0 && r.angle_deg <= tmax - 30.0).collect();
-        let sound = inner.iter().filter(|r| r.sound()).count() as f64 / inner.len() as f64;
-        let (mut sv, mut st) = (vec![], vec![]);
-        for r in &inner {
-            let (Some(a), Some(b)) = (r.sv.area, r.st.area) else { panic!("member {n}: no areas at {:.0}° ({})", r.angle_deg, r.flag_words()) };
-            sv.push((a / common::truth_at(&truth, r.angle_deg, |t| t.sv_area_mm2) - 1.0).abs());
-            st.push((b / common::truth_at(&truth, r.angle_deg, |t| t.st_area_mm2) - 1.0).abs());
-        }
-        let ((svm, sv95), (stm, st95)) = (stats(&mut sv), stats(&mut st));
+        let ((svm, sv95), (stm, st95), sound) = area_errors(spec);
         eprintln!(
             "member {n} at 80 µm, contrast-to-noise 6: {:.0} % sound, SV {:.1}/{:.1} %, ST {:.1}/{:.1} % (median/p95)",
             100.0 * sound,
