@@ -822,39 +822,41 @@ const THIN_LAYER_VOX: [f64; 2] = [1.6, 1.75];
 /// Linear least squares of y ≈ c₀·f₀(i) + c₁·f₁(i) over the samples y (Σy² = `yy` given):
 /// (the residual sum of squares, [c₀, c₁]), or None where the two bases are (nearly) collinear.
 pub(crate) fn two_basis_fit(y: &[f64], yy: f64, basis: impl Fn(usize) -> [f64; 2]) -> Option<(f64, [f64; 2])> {
-    let (mut m, mut r) = ([[0.0f64; 2]; 2], [0.0f64; 2]);
-    for (i, &v) in y.iter().enumerate() {
-        let f = basis(i);
-        for u in 0..2 {
-            r[u] += f[u] * v;
-            for t in 0..2 {
-                m[u][t] += f[u] * f[t];
-            }
-        }
-    }
+    let (m, r) = normal_equations(y, basis);
     let det = m[0][0] * m[1][1] - m[0][1] * m[1][0];
     if !(det.abs() > 1e-9 * (m[0][0] * m[1][1]).abs().max(1e-300)) {
         return None;
     }
     let c = [(r[0] * m[1][1] - r[1] * m[0][1]) / det, (m[0][0] * r[1] - m[1][0] * r[0]) / det];
-    // Σ(model − y)² = Σy² − 2c·r + cᵀMc
-    let fitted: f64 = (0..2).map(|u| c[u] * (0..2).map(|t| m[u][t] * c[t]).sum::<f64>()).sum();
-    Some((yy - 2.0 * (c[0] * r[0] + c[1] * r[1]) + fitted, c))
+    Some((residual(yy, &m, &r, &c), c))
+}
+
+/// The normal equations of y ≈ Σ cₖ·fₖ(i) over the samples y: (M, r) with M = Σ f fᵀ, r = Σ f·y.
+fn normal_equations<const N: usize>(y: &[f64], basis: impl Fn(usize) -> [f64; N]) -> ([[f64; N]; N], [f64; N]) {
+    let (mut m, mut r) = ([[0.0f64; N]; N], [0.0f64; N]);
+    for (i, &v) in y.iter().enumerate() {
+        let f = basis(i);
+        for u in 0..N {
+            r[u] += f[u] * v;
+            for t in 0..N {
+                m[u][t] += f[u] * f[t];
+            }
+        }
+    }
+    (m, r)
+}
+
+/// The residual sum of squares Σ(model − y)² = Σy² − 2c·r + cᵀMc of coefficients c, given Σy² =
+/// `yy` and the normal equations (M, r) ([`normal_equations`]).
+fn residual<const N: usize>(yy: f64, m: &[[f64; N]; N], r: &[f64; N], c: &[f64; N]) -> f64 {
+    let fitted: f64 = (0..N).map(|u| c[u] * (0..N).map(|t| m[u][t] * c[t]).sum::<f64>()).sum();
+    yy - 2.0 * (0..N).map(|u| c[u] * r[u]).sum::<f64>() + fitted
 }
 
 /// Linear least squares of y ≈ Σ cₖ·fₖ(i) over three bases (Σy² = `yy` given), by Cramer's
 /// rule: (the residual sum of squares, c), or None where the bases are (nearly) dependent.
 fn three_basis_fit(y: &[f64], yy: f64, basis: impl Fn(usize) -> [f64; 3]) -> Option<(f64, [f64; 3])> {
-    let (mut m, mut r) = ([[0.0f64; 3]; 3], [0.0f64; 3]);
-    for (i, &v) in y.iter().enumerate() {
-        let f = basis(i);
-        for u in 0..3 {
-            r[u] += f[u] * v;
-            for t in 0..3 {
-                m[u][t] += f[u] * f[t];
-            }
-        }
-    }
+    let (m, r) = normal_equations(y, basis);
     let det3 = |m: &[[f64; 3]; 3]| {
         m[0][0] * (m[1][1] * m[2][2] - m[1][2] * m[2][1]) - m[0][1] * (m[1][0] * m[2][2] - m[1][2] * m[2][0])
             + m[0][2] * (m[1][0] * m[2][1] - m[1][1] * m[2][0])
@@ -869,9 +871,7 @@ fn three_basis_fit(y: &[f64], yy: f64, basis: impl Fn(usize) -> [f64; 3]) -> Opt
         (0..3).for_each(|u| mk[u][k] = r[u]);
         *ck = det3(&mk) / det;
     }
-    // Σ(model − y)² = Σy² − 2c·r + cᵀMc
-    let fitted: f64 = (0..3).map(|u| c[u] * (0..3).map(|t| m[u][t] * c[t]).sum::<f64>()).sum();
-    Some((yy - 2.0 * (0..3).map(|u| c[u] * r[u]).sum::<f64>() + fitted, c))
+    Some((residual(yy, &m, &r, &c), c))
 }
 
 /// What the lateral wall shows between lumen and bone (see [`wall_level`]).
