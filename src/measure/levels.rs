@@ -748,8 +748,8 @@ pub(super) fn wall_level(p: &[f64], pitch: f64, vox: f64) -> Option<Wall> {
 /// q(x) = t·(Φ₁ − Φ₂) + b·(Φ₂ − Φ₃) + e·Φ₃ with Φₖ = Φ((x − edgeₖ)/σ) at edges a, a + w and
 /// a + w + d: t, b and e by linear least squares, a, w, d and σ by a pattern search from the
 /// three-region fit (the shell d from 1 to 16 pixels). The refit stands where its level lies
-/// within 0.06 of the first (a thinner layer's refit is ill-posed: at 50–65 µm, ligaments of
-/// 2–2.5 voxels, it read 0.02–0.25 for 0.30) and below 55 % of its bone; else None.
+/// within 0.06 of the first (a thinner layer's refit is ill-posed: member 4 at 50 µm, a ligament
+/// fitted 2.2–2.4 voxels thick, read 0.02–0.25 for 0.30) and below 55 % of its bone; else None.
 fn behind_thin_wall(p: &[f64], top: usize, aws: (f64, f64, f64), tb: (f64, f64), pitch: f64, vox: f64) -> Option<(f64, f64, f64)> {
     let ((a, w, sigma), (t, b)) = (aws, tb);
     let falls = p.last().is_some_and(|&end| end < p[top] - 0.1);
@@ -794,9 +794,11 @@ fn behind_thin_wall(p: &[f64], top: usize, aws: (f64, f64, f64), tb: (f64, f64),
 }
 
 /// Fitted soft-tissue layers at least this thick (voxels, largest side) are refitted behind a thin
-/// bony wall ([`behind_thin_wall`]). The family's ligaments fit 4.2–4.7 voxels thick where that
-/// helps (members 8 and 13 at 40 µm) and 2–2.5 voxels where the refit is ill-posed (members 0, 4
-/// and 9 at 50–80 µm).
+/// bony wall ([`behind_thin_wall`]). The family's ligaments fit 3.9–4.7 voxels thick where the
+/// refit helps (members 8 and 13, 0.22–0.23 mm at 35×35×50 and 40 µm) and 2.1–2.7 voxels on
+/// members 0, 4 and 9 (50–80 µm). Refitted at any thickness, member 4's level read 0.02–0.25 for
+/// 0.30 in places (SV p95 7 → 79 %) and members 1, 6 and 9 lost 5–42 points of p95, though member
+/// 0 read better (SV 1.9 → 1.4 % median).
 const THICK_LAYER_VOX: f64 = 3.0;
 
 /// Voxel side (mm, largest) from which a lateral wall that fits as bare bone is not taken for one:
