@@ -152,17 +152,11 @@ fn faint_soft_tissue() {
 /// share of those sections that are sound.
 fn area_errors(spec: PhantomSpec) -> ((f64, f64), (f64, f64), f64) {
     let n = spec.seed;
-    let (spec, rows, truth) = run_spec(spec);
-    let tmax = spec.theta_max().to_degrees();
-    let inner: Vec<_> = rows.iter().filter(|r| r.angle_deg >= 30.0 && r.angle_deg <= tmax - 30.0).collect();
-    let (mut sv, mut st) = (vec![], vec![]);
-    for r in &inner {
-        let (Some(a), Some(b)) = (r.sv.area, r.st.area) else { panic!("seed {n}: no areas at {:.0}° ({})", r.angle_deg, r.flag_words()) };
-        sv.push((a / common::truth_at(&truth, r.angle_deg, |t| t.sv_area_mm2) - 1.0).abs());
-        st.push((b / common::truth_at(&truth, r.angle_deg, |t| t.st_area_mm2) - 1.0).abs());
-    }
-    let sound = inner.iter().filter(|r| r.sound()).count() as f64 / inner.len() as f64;
-    (stats(&mut sv), stats(&mut st), sound)
+    let (_, rows, truth) = run_spec(spec);
+    let mut e = common::errors(&rows, &truth, 30.0);
+    assert!(e.sv.len() == e.rows && e.st.len() == e.rows, "seed {n}: SV on {}, ST on {} of {} sections", e.sv.len(), e.st.len(), e.rows);
+    let sound = 1.0 - e.flagged as f64 / e.rows as f64;
+    (stats(&mut e.sv), stats(&mut e.st), sound)
 }
 
 /// The family's two most blurred members at 40 µm (member 8: blur 1.30 voxels, contrast-to-noise
