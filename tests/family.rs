@@ -57,7 +57,7 @@ fn run_spec(spec: PhantomSpec) -> (PhantomSpec, Vec<ductline::measure::Row>, Vec
 fn clinical(n: u64, voxel: f64) -> (f64, f64, f64) {
     let (spec, rows, truth) = run_member(n, [voxel; 3]);
     let tmax = spec.theta_max().to_degrees();
-    let inner: Vec<_> = rows.iter().filter(|r| r.angle_deg >= 30.0 && r.angle_deg <= tmax - 30.0).collect();
+    let inner: Vec<_> = common::inner_rows(&rows, tmax, 30.0).collect();
     let (mut worst, mut sum) = (0.0f64, vec![]);
     for r in inner.iter().filter(|r| r.sv.area.is_some() && r.st.area.is_some()) {
         let (sv, st) = (r.sv.area.unwrap(), r.st.area.unwrap());
@@ -242,7 +242,7 @@ fn family_sweep() {
         let (spec, rows, truth) = run_member(m.n, m.voxel);
         let tmax = spec.theta_max().to_degrees();
         let truth_at = |a: f64, f: fn(&phantom::TruthRow) -> f64| common::truth_at(&truth, a, f);
-        let inner: Vec<_> = rows.iter().filter(|r| r.angle_deg >= 30.0 && r.angle_deg <= tmax - 30.0).collect();
+        let inner: Vec<_> = common::inner_rows(&rows, tmax, 30.0).collect();
         let (mut sv, mut st, mut width, mut wall) = (vec![], vec![], vec![], vec![]);
         for r in &inner {
             for a in [r.sv.area, r.st.area].into_iter().flatten() {

@@ -69,7 +69,7 @@ fn run(stack: &ductline::stack::Stack, lm: &[ductline::landmarks::Landmark], ms:
 /// SV+ST over those of them with both areas (a row flagged only for its wall keeps them),
 /// printed with the signed medians.
 fn score(label: &str, rows: &[Row], t: &Truth) -> (f64, f64, f64, f64) {
-    let inner: Vec<&Row> = rows.iter().filter(|r| r.angle_deg >= 30.0 && r.angle_deg <= t.depth_deg - 30.0).collect();
+    let inner: Vec<&Row> = common::inner_rows(rows, t.depth_deg, 30.0).collect();
     let sound = inner.iter().filter(|r| r.sound()).count() as f64 / inner.len() as f64;
     let (mut sv, mut st, mut tot) = (vec![], vec![], vec![]);
     for r in inner.iter() {
@@ -177,7 +177,7 @@ fn a_trace_at_clinical_resolution_stops_at_the_apex() {
     let placed = run(&stack, &landmarks, &ms);
     let (_, _, _, tot_placed) = score("from the landmarks", &placed.rows, &t);
     assert!(tot <= 15.0 && tot_placed <= 12.0, "SV+ST {tot:.1} % traced, {tot_placed:.1} % from the landmarks");
-    let inner: Vec<&Row> = out.rows.iter().filter(|r| r.angle_deg >= 30.0 && r.angle_deg <= t.depth_deg - 30.0).collect();
+    let inner: Vec<&Row> = common::inner_rows(&out.rows, t.depth_deg, 30.0).collect();
     let both = inner.iter().filter(|r| r.sv.area.is_some() && r.st.area.is_some()).count();
     eprintln!("{both} of {} rows with both areas", inner.len());
     assert!(both * 100 >= 85 * inner.len(), "{both} of {} rows with both areas", inner.len());

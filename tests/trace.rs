@@ -264,12 +264,8 @@ fn proposals_measure_like_the_truth() {
             ),
             ("ST", |r| r.st.area, |t| t.st_area_mm2),
         ] {
-            let e: Vec<f64> = out
-                .rows
-                .iter()
-                .filter(|r| r.angle_deg >= 30.0 && r.angle_deg <= tmax - 30.0)
-                .filter_map(|r| get(r).map(|a| (a / truth_at(r.angle_deg, truth) - 1.0).abs()))
-                .collect();
+            let e: Vec<f64> =
+                common::inner_rows(&out.rows, tmax, 30.0).filter_map(|r| get(r).map(|a| (a / truth_at(r.angle_deg, truth) - 1.0).abs())).collect();
             let (med, p95) = (common::quantile(&e, 0.5), common::quantile(&e, 0.95));
             eprintln!("member {n:?} {name}: area error median {:.2} %, p95 {:.2} % over {} sections", 100.0 * med, 100.0 * p95, e.len());
             assert!(e.len() > 100 && med <= 0.015 && p95 <= 0.04, "member {n:?} {name}: median {med}, p95 {p95}");

@@ -21,6 +21,12 @@ pub fn truth_at(truth: &[TruthRow], angle_deg: f64, col: fn(&TruthRow) -> f64) -
     col(a) * (1.0 - f) + col(b) * f
 }
 
+/// The rows at least `margin_deg` from either end of a duct traced to `depth_deg` (the checks'
+/// window: the ends of a centreline are extrapolated and its sections cut the end caps).
+pub fn inner_rows(rows: &[Row], depth_deg: f64, margin_deg: f64) -> impl Iterator<Item = &Row> {
+    rows.iter().filter(move |r| r.angle_deg >= margin_deg && r.angle_deg <= depth_deg - margin_deg)
+}
+
 /// Errors of measured rows against the phantom truth, rows at least `margin_deg` from both ends:
 /// (relative SV area, relative ST area, width mm, wall mm) per row, and how many rows were flagged.
 pub struct Errors {
@@ -35,7 +41,7 @@ pub struct Errors {
 pub fn errors(rows: &[Row], truth: &[TruthRow], margin_deg: f64) -> Errors {
     let tmax = truth.last().unwrap().angle_deg;
     let mut e = Errors { sv: vec![], st: vec![], width: vec![], wall: vec![], flagged: 0, rows: 0 };
-    for r in rows.iter().filter(|r| r.angle_deg >= margin_deg && r.angle_deg <= tmax - margin_deg) {
+    for r in inner_rows(rows, tmax, margin_deg) {
         e.rows += 1;
         if !r.sound() {
             e.flagged += 1;
