@@ -241,27 +241,15 @@ fn family_sweep() {
     for m in &members {
         let (spec, rows, truth) = run_member(m.n, m.voxel);
         let tmax = spec.theta_max().to_degrees();
-        let truth_at = |a: f64, f: fn(&phantom::TruthRow) -> f64| common::truth_at(&truth, a, f);
         let inner: Vec<_> = common::inner_rows(&rows, tmax, 30.0).collect();
-        let (mut sv, mut st, mut width, mut wall) = (vec![], vec![], vec![], vec![]);
         for r in &inner {
             for a in [r.sv.area, r.st.area].into_iter().flatten() {
                 assert!(a > 0.0, "member {}: a non-positive area {a} at s = {} mm", m.n, r.s_mm);
             }
-            if let Some(a) = r.sv.area {
-                sv.push((a / truth_at(r.angle_deg, |t| t.sv_area_mm2) - 1.0).abs());
-            }
-            if let Some(a) = r.st.area {
-                st.push((a / truth_at(r.angle_deg, |t| t.st_area_mm2) - 1.0).abs());
-            }
-            if let Some(x) = r.partition_width_mm {
-                width.push((x - truth_at(r.angle_deg, |t| t.partition_width_mm)).abs());
-            }
-            if let Some(x) = r.wall_mm {
-                wall.push((x - truth_at(r.angle_deg, |t| t.wall_mm)).abs());
-            }
         }
-        let sound = inner.iter().filter(|r| r.sound()).count() as f64 / inner.len() as f64;
+        let common::Errors { mut sv, mut st, mut width, mut wall, flagged, rows: counted } = common::errors(&rows, &truth, 30.0);
+        assert_eq!(counted, inner.len(), "member {}: the truth ends at θmax", m.n);
+        let sound = 1.0 - flagged as f64 / counted as f64;
         let measured = inner.iter().filter(|r| r.sv.area.is_some() && r.st.area.is_some()).count() as f64 / inner.len() as f64;
         let leaks = inner.iter().filter(|r| r.flags.iter().any(|f| matches!(f, Flag::Open | Flag::LowContrast))).count();
         let ((svm, sv95), (stm, st95)) = (stats(&mut sv), stats(&mut st));
