@@ -183,7 +183,7 @@ pub fn polygon_area(q: &[[f64; 2]]) -> f64 {
 /// ```
 /// use ductline::measure::Scala;
 /// // a square outline of area 4 mm² around (1, 0), measured as 1 mm²: halved in size
-/// let sc = Scala { area: Some(1.0), outline: vec![[0.0, -1.0], [2.0, -1.0], [2.0, 1.0], [0.0, 1.0]], centroid: [1.0, 0.0], seed: None };
+/// let sc = Scala { area: Some(1.0), own_area: Some(1.0), outline: vec![[0.0, -1.0], [2.0, -1.0], [2.0, 1.0], [0.0, 1.0]], centroid: [1.0, 0.0], seed: None };
 /// let q = ductline::export::outline(&sc).unwrap();
 /// assert!((ductline::export::polygon_area(&q) - 1.0).abs() < 1e-12);
 /// assert_eq!(q[0], [0.5, -0.5]);

@@ -154,8 +154,12 @@ impl Flag {
 /// One scala found in a section.
 #[derive(Clone, Debug, Default, Serialize, Deserialize)]
 pub struct Scala {
-    /// mm²; None when it cannot be trusted (see the row's flags).
+    /// mm²: the median of the section's own areas along s (see `areas_along`); None when it
+    /// cannot be trusted (see the row's flags).
     pub area: Option<f64>,
+    /// mm²: this section's own area, before the median along s.
+    #[serde(default)]
+    pub own_area: Option<f64>,
     /// Closed outline at the half-fluid level, section coordinates (mm), star-sampled from the centroid.
     pub outline: Vec<[f64; 2]>,
     /// Fraction-weighted centroid (section coordinates, mm).
@@ -416,6 +420,7 @@ pub fn measure(
         .collect::<Result<Vec<Row>>>()?;
     let mut rows = rows;
     walls_along(&mut rows, vmax);
+    areas_along(&mut rows, vmax);
     Ok((geoms, rows))
 }
 
@@ -468,6 +473,41 @@ fn walls_along(rows: &mut [Row], vmax: f64) {
             if !r.flags.contains(&Flag::BelowResolution) {
                 r.flags.push(Flag::BelowResolution);
             }
+        }
+    }
+}
+
+/// Half-length of the stretch whose median area a row reports, in voxels (largest side).
+const AREA_WINDOW_VOX: f64 = 3.0;
+
+/// Each scala's area becomes the median of the sound areas of the rows within
+/// ±[`AREA_WINDOW_VOX`] voxels (`vmax`, mm) of it along s, taking as many rows on either side (its
+/// own included): a section's area decides a ring of edge pixels between materials, and at
+/// coarse voxels a few of those pixels more or less move it by several per cent from one section
+/// to the next, while the duct's cross-section changes over millimetres, not voxels. The window
+/// is the same on both sides, so an area that rises or falls steadily keeps its value; near a
+/// blank row or the duct's ends it narrows. Rows with no area keep none. Each scala keeps its own
+/// area (`Scala::own_area`). The family at its own resolution, scala vestibuli median error
+/// summed over the fourteen members: 28.8 → 25.5 points (member 1 3.4 → 2.6 %, member 9 3.5 →
+/// 3.0 %, member 12 p95 4.6 → 3.7 %); members whose error is a bias do not change.
+fn areas_along(rows: &mut [Row], vmax: f64) {
+    let h = AREA_WINDOW_VOX * vmax + 1e-9;
+    let scalae: [fn(&mut Row) -> &mut Scala; 2] = [|r| &mut r.sv, |r| &mut r.st];
+    for pick in scalae {
+        let own: Vec<(f64, f64)> = rows.iter_mut().filter_map(|r| Some((r.s_mm, pick(r).area?))).collect();
+        let mut at = 0;
+        for r in rows.iter_mut() {
+            if pick(r).area.is_none() {
+                continue;
+            }
+            // own[at] is this row's area; the window takes k rows on either side
+            let below = own[..at].iter().rev().take_while(|x| r.s_mm - x.0 <= h).count();
+            let above = own[at + 1..].iter().take_while(|x| x.0 - r.s_mm <= h).count();
+            let k = below.min(above);
+            let mut near: Vec<f64> = own[at - k..=at + k].iter().map(|x| x.1).collect();
+            near.sort_by(f64::total_cmp);
+            pick(r).area = Some(near[k]);
+            at += 1;
         }
     }
 }
@@ -668,7 +708,7 @@ fn section_row(
             }
             open |= r.touches_border || r.touches_nan;
             let (area, field, centroid) = areas::fraction_area(&img, &r, side, &row.levels, band, erode, part);
-            scalae[k] = Scala { area: Some(area), outline: areas::outline(&img, &field, centroid), centroid, seed: Some(img.uv(seed)) };
+            scalae[k] = Scala { area: Some(area), own_area: Some(area), outline: areas::outline(&img, &field, centroid), centroid, seed: Some(img.uv(seed)) };
         }
         if grow_more {
             img = regrow(img, &mut half);
