@@ -103,6 +103,7 @@ pub fn table_json(out: &Outcome, prov: &Provenance) -> serde_json::Value {
                 "s_mm": r.s_mm, "angle_deg": r.angle_deg, "x_mm": r.point[0], "y_mm": r.point[1], "z_mm": r.point[2],
                 "radius_mm": r.radius_mm, "height_mm": r.height_mm, "curvature_radius_mm": opt(Some(r.curvature_radius_mm)),
                 "cf_hz": r.cf_hz, "sv_area_mm2": opt(r.sv.area), "st_area_mm2": opt(r.st.area),
+                "sv_section_area_mm2": opt(r.sv.own_area), "st_section_area_mm2": opt(r.st.own_area),
                 "partition_width_mm": opt(r.partition_width_mm), "wall_mm": opt(r.wall_mm), "flags": r.flag_words(),
                 "levels": { "lumen": opt(Some(r.levels.lumen as f64)), "soft_tissue": opt(Some(r.levels.tissue as f64)), "bone": opt(Some(r.levels.bone as f64)) },
                 "sv_centroid_mm": sv.as_ref().map(|x| x.1), "st_centroid_mm": st.as_ref().map(|x| x.1),
@@ -139,6 +140,7 @@ pub fn table_json(out: &Outcome, prov: &Provenance) -> serde_json::Value {
                            "lambda_ligament_radius": cl.ligament.r.lambda, "lambda_ligament_height": cl.ligament.z.lambda,
                            "chosen_by": if prov.fit.smoothing.is_some() { "user" } else { "generalized cross-validation" } },
             "step_mm": prov.measure.step_mm,
+            "areas": crate::measure::AREAS_NOTE,
             "bare_shelf": prov.measure.bare_shelf,
             "volumes_mm3": {
                 "scala_vestibuli": volume(&out.geoms, &out.rows, true),

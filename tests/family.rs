@@ -93,7 +93,11 @@ fn clinical(n: u64, voxel: f64) -> (f64, f64, f64) {
 /// +22 → +9 %). A scala whose blurred pixels nowhere reach the lumen/soft-tissue midpoint was
 /// then grown against bone alone, its ligament and limbus counted 60–80 % lumen; it now grows
 /// below 0.7 of the way to soft tissue first (`measure::DEEP_CUT`): members 1 and 8 14.5 → 8.7 %
-/// and 26.3 → 9.2 %, mean 11.0 → 8.8 %; held here at 20 % each and 10 % mean.
+/// and 26.3 → 9.2 %, mean 11.0 → 8.8 %. Since each row's area is the median of the sections' own
+/// areas within ±0.5 mm (`measure::areas_along`) the mean is 8.5 → 7.3 % (every 0.25 mm), and
+/// member 3 (air-filled, its soft tissue read 0.43 of the way to bone for 0.28) 18.6 → 20.1 %:
+/// the section-to-section scatter that pulled some of its sections toward the truth is gone and
+/// its bias is left. Held here at 22 % each and 8.5 % mean (it was 20 % and 10 %).
 #[test]
 fn clinical_resolution_keeps_turns_apart() {
     let mut at200 = vec![];
@@ -106,11 +110,11 @@ fn clinical_resolution_keeps_turns_apart() {
         // (it was up to 28 % with such walls read as bare bone)
         assert!(med < 0.15, "member {n}: SV+ST median error {:.1} %", 100.0 * med);
         let (measured, med, _) = clinical(n, 200.0);
-        assert!(measured >= 0.6 && med < 0.2, "member {n} at 200 µm: areas on {:.0} %, SV+ST median error {:.1} %", 100.0 * measured, 100.0 * med);
+        assert!(measured >= 0.6 && med < 0.22, "member {n} at 200 µm: areas on {:.0} %, SV+ST median error {:.1} %", 100.0 * measured, 100.0 * med);
         at200.push(med);
     }
     let mean = at200.iter().sum::<f64>() / at200.len() as f64;
-    assert!(mean < 0.1, "family at 200 µm: SV+ST median error {:.1} % (mean of the members')", 100.0 * mean);
+    assert!(mean < 0.085, "family at 200 µm: SV+ST median error {:.1} % (mean of the members')", 100.0 * mean);
 }
 
 /// At 300 µm (clinical CT of the temporal bone) a scala is two or three voxels across and none

@@ -43,6 +43,13 @@ impl Inspector {
                 ("frequency", format!("{:.0} Hz", row.cf_hz)),
                 ("SV area", f(row.sv.area, "mm²")),
                 ("ST area", f(row.st.area, "mm²")),
+                (
+                    "this section alone, SV / ST",
+                    match (row.sv.own_area, row.st.own_area) {
+                        (None, None) => "—".into(),
+                        (a, b) => format!("{} / {} mm²", a.map_or("—".into(), |v| format!("{v:.4}")), b.map_or("—".into(), |v| format!("{v:.4}"))),
+                    },
+                ),
                 ("partition width", f(row.partition_width_mm, "mm")),
                 ("wall", f(row.wall_mm, "mm")),
                 ("levels lumen / soft tissue / bone", {
