@@ -827,3 +827,40 @@ fn sample_section(stack: &Stack, g: &SectionGeom, part: &Partition, half: f64, p
     }
     img
 }
+
+#[cfg(test)]
+mod tests {
+    use super::median_along;
+
+    /// A running median with as many values on either side leaves a steadily rising or falling
+    /// sequence as it is and takes out a lone spike (common practice: a median of a monotone
+    /// window is its middle value). Values every 0.1 mm, stretch ±0.25 mm: two either side.
+    #[test]
+    fn median_along_keeps_trends_and_drops_spikes() {
+        let s = |i: usize| 0.1 * i as f64;
+        let ramp: Vec<(f64, Option<f64>)> = (0..20).map(|i| (s(i), Some(1.0 - 0.03 * i as f64 + 0.0005 * (i * i) as f64))).collect();
+        let out = median_along(&ramp, 0.25);
+        for (a, b) in ramp.iter().zip(&out) {
+            assert_eq!(a.1, *b, "a falling, curving sequence keeps its values");
+        }
+        let mut spiky = ramp.clone();
+        spiky[7].1 = Some(5.0);
+        let out = median_along(&spiky, 0.25);
+        assert!((out[7].unwrap() - ramp[7].1.unwrap()).abs() < 0.04, "the spike is replaced by a neighbour: {:?}", out[7]);
+        assert!(out.iter().all(|x| x.unwrap() <= 1.0), "no row takes the spike");
+    }
+
+    /// The ends and a gap narrow the stretch (the first value has no neighbour below, so it keeps
+    /// its own); a row without a value stays without, and takes no part.
+    #[test]
+    fn median_along_narrows_at_ends_and_gaps() {
+        let v = vec![(0.0, Some(9.0)), (0.1, Some(1.0)), (0.2, Some(2.0)), (0.3, None), (0.4, Some(3.0)), (0.5, Some(4.0))];
+        let out = median_along(&v, 0.25);
+        assert_eq!(out[0], Some(9.0), "the first value has no neighbour below");
+        assert_eq!(out[1], Some(2.0), "one either side: median of 9, 1, 2");
+        assert_eq!(out[3], None);
+        // 0.2 mm: known values within 0.25 below are 0.0 and 0.1, above only 0.4 → one either side
+        assert_eq!(out[2], Some(2.0), "median of 1, 2, 3");
+        assert_eq!(out[5], Some(4.0), "the last keeps its own");
+    }
+}
