@@ -260,6 +260,7 @@ fn overrides_and_cancel() {
     assert!(f.sv.area.is_some() && f.sound());
     let r = rows.iter().find(|r| (r.s_mm - 5.0).abs() < 1e-9).unwrap();
     assert!(r.sv.area.is_none() && r.flags.contains(&ductline::measure::Flag::Excluded));
+    assert!(f.sv.own_area.is_some_and(|a| a > 0.0), "a sound section keeps its own area");
     assert!(rows.iter().filter(|r| r.flags.contains(&ductline::measure::Flag::Excluded)).count() == 1);
     // levels set with the lumen above bone: a one-line error naming the section, no table
     let bad = ductline::measure::Override { s_mm: 3.0, levels: Some([58000.0, 9000.0]), ..Default::default() };

@@ -122,6 +122,11 @@ fn nan_voxels_are_flagged_not_reported() {
     .unwrap();
     let open = out.rows.iter().filter(|r| r.flags.contains(&ductline::measure::Flag::Open)).count();
     assert!(open > 0, "sections through the hole are flagged open");
+    // a flag blanks the section's own areas as well as the table's (the JSON carries both)
+    for r in out.rows.iter().filter(|r| !r.sound()) {
+        assert!(r.sv.area.is_some() || r.sv.own_area.is_none(), "own SV area kept on a blank row at s = {}", r.s_mm);
+        assert!(r.st.area.is_some() || r.st.own_area.is_none(), "own ST area kept on a blank row at s = {}", r.s_mm);
+    }
     assert!(out.rows.iter().filter(|r| r.sound()).count() > out.rows.len() / 2);
     let csv = ductline::export::table_csv(&out.rows);
     assert!(!csv.to_lowercase().contains("nan"));

@@ -42,7 +42,7 @@
 //!    fitted the same way with the shelf's far side and the lumen beyond it in the model (the
 //!    spiral limbus on the shelf). Pixels nearer to another lumen region are left to it.
 //! 5. Wall ([`wall`]): along the partition direction outward, from where bone starts to where it
-//!    ends; each row reports the median over ±0.5 mm of s (`walls_along`). Width and wall under
+//!    ends; each row reports the median over ±0.5 mm of s (`walls_along`, `median_along`). Width and wall under
 //!    one voxel are flagged `below_resolution` and left blank.
 
 mod areas;
@@ -154,8 +154,8 @@ impl Flag {
 /// One scala found in a section.
 #[derive(Clone, Debug, Default, Serialize, Deserialize)]
 pub struct Scala {
-    /// mm²: the median of the section's own areas along s (see `areas_along`); None when it
-    /// cannot be trusted (see the row's flags).
+    /// mm²: the median of the sound sections' own areas within ±0.5 mm along s (see
+    /// `areas_along`); None when it cannot be trusted (see the row's flags).
     pub area: Option<f64>,
     /// mm²: this section's own area, before the median along s.
     #[serde(default)]
@@ -165,6 +165,13 @@ pub struct Scala {
     /// Fraction-weighted centroid (section coordinates, mm).
     pub centroid: [f64; 2],
     pub seed: Option<[f64; 2]>,
+}
+
+impl Scala {
+    /// No area, of its own or along s (the row's flags say why).
+    fn blank(&mut self) {
+        (self.area, self.own_area) = (None, None);
+    }
 }
 
 /// The measures at one output position; the table row plus what the inspector draws.
@@ -208,9 +215,14 @@ impl Row {
         for f in self.flags.clone() {
             match f {
                 Flag::Extrapolated | Flag::Excluded => {
-                    (self.sv.area, self.st.area, self.partition_width_mm, self.wall_mm) = (None, None, None, None);
+                    (self.partition_width_mm, self.wall_mm) = (None, None);
+                    self.sv.blank();
+                    self.st.blank();
                 }
-                Flag::Open | Flag::NoSeed | Flag::LowContrast | Flag::NoLumen => (self.sv.area, self.st.area) = (None, None),
+                Flag::Open | Flag::NoSeed | Flag::LowContrast | Flag::NoLumen => {
+                    self.sv.blank();
+                    self.st.blank();
+                }
                 Flag::NoWall => self.wall_mm = None,
                 // the value under one voxel was blanked where it was found
                 Flag::BelowResolution => {}
@@ -503,8 +515,8 @@ fn walls_along(rows: &mut [Row], vmax: f64) {
 /// move it by several per cent from one section to the next, while the duct's cross-section
 /// changes over millimetres (the phantoms' truth tables move by under 0.6 % under this median).
 /// The family at its own resolution, every 0.1 mm, scala vestibuli median error summed over the
-/// fourteen members: 28.8 → 24.6 points, p95 83.3 → 65.7 (member 1 3.4 → 2.6 %, member 9 3.5 →
-/// 3.0 %); members whose error is a bias do not change.
+/// fourteen members: 28.8 → 24.6 points, p95 83.3 → 65.7 (member 1 3.4 → 2.5 %, member 9 3.5 →
+/// 2.7 %); members whose error is a bias do not change.
 fn areas_along(rows: &mut [Row]) {
     let scalae: [fn(&mut Row) -> &mut Scala; 2] = [|r| &mut r.sv, |r| &mut r.st];
     for pick in scalae {
