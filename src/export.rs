@@ -140,7 +140,7 @@ pub fn table_json(out: &Outcome, prov: &Provenance) -> serde_json::Value {
                            "lambda_ligament_radius": cl.ligament.r.lambda, "lambda_ligament_height": cl.ligament.z.lambda,
                            "chosen_by": if prov.fit.smoothing.is_some() { "user" } else { "generalized cross-validation" } },
             "step_mm": prov.measure.step_mm,
-            "areas": crate::measure::AREAS_NOTE,
+            "areas": crate::measure::areas_note(),
             "bare_shelf": prov.measure.bare_shelf,
             "volumes_mm3": {
                 "scala_vestibuli": volume(&out.geoms, &out.rows, true),

@@ -42,8 +42,8 @@
 //!    fitted the same way with the shelf's far side and the lumen beyond it in the model (the
 //!    spiral limbus on the shelf). Pixels nearer to another lumen region are left to it.
 //! 5. Wall ([`wall`]): along the partition direction outward, from where bone starts to where it
-//!    ends; each row reports the median over ±0.5 mm of s (`walls_along`, `median_along`). Width and wall under
-//!    one voxel are flagged `below_resolution` and left blank.
+//!    ends; each row reports the median over ±0.5 mm of s (`walls_along`, `median_along`).
+//!    Width and wall under one voxel are flagged `below_resolution` and left blank.
 
 mod areas;
 mod levels;
@@ -465,9 +465,13 @@ const BAND_VOX: f64 = 4.5;
 /// Half-length (mm along s) of the stretch whose median wall and areas a row reports.
 const ALONG_MM: f64 = 0.5;
 
-/// What the area columns hold, for the JSON metadata.
-pub const AREAS_NOTE: &str = "sv_area_mm2 and st_area_mm2: the median of the sound sections' own areas (sv_section_area_mm2, \
-     st_section_area_mm2) within ±0.5 mm along s, as many sections either side";
+/// What the area columns hold, for the JSON metadata (the stretch from [`ALONG_MM`]).
+pub fn areas_note() -> String {
+    format!(
+        "sv_area_mm2 and st_area_mm2: the median of the sound sections' own areas (sv_section_area_mm2, st_section_area_mm2) \
+         within ±{ALONG_MM} mm along s, as many sections either side"
+    )
+}
 
 /// The median of each value's stretch: the values `v` (s in mm, the value where there is one)
 /// within ±`h` mm of each, as many on either side (its own included), so a value that rises or
