@@ -449,7 +449,7 @@ pub fn trace(stack: &Stack, seeds: &[Landmark], step_deg: f64) -> Result<Trace> 
         // (the slab's cuts follow the predicted partition, whatever lamina tip is tried in it)
         let cuts = slab(&lam, &lig, angle, step_deg, vmax);
         // the partition itself, where it shows, for a lamina tip predicted at `pl`
-        let look = |pl: Edge| {
+        let look = |pl: Edge, pg: Edge| {
             let width = pg.r - pl.r;
             let span = span_of(width);
             if width < 3.0 * vmax {
@@ -468,7 +468,7 @@ pub fn trace(stack: &Stack, seeds: &[Landmark], step_deg: f64) -> Result<Trace> 
                 }
             })
         };
-        let mut fine = look(pl);
+        let mut fine = look(pl, pg);
         // A narrow basal membrane widens toward the apex (REFERENCES.md) faster than the steps
         // so far predict, and its tip is then lost inward of the prediction: there the tip is
         // looked for farther in, a quarter of the span a step, up to a partition 1.4 ρ wide
@@ -477,7 +477,7 @@ pub fn trace(stack: &Stack, seeds: &[Landmark], step_deg: f64) -> Result<Trace> 
         if narrow && fine.is_err() {
             let mut w = if width < 3.0 * vmax { 3.0 * vmax } else { width + 0.25 * span };
             while w <= 1.4 * rho_now {
-                let found = look(Edge { r: pg.r - w, ..pl });
+                let found = look(Edge { r: pg.r - w, ..pl }, pg);
                 if found.as_ref().is_ok_and(|f| f.2 >= 0.3) {
                     fine = found;
                     break;
@@ -508,6 +508,27 @@ pub fn trace(stack: &Stack, seeds: &[Landmark], step_deg: f64) -> Result<Trace> 
             duct(stack, &frame, angle, (c.r, c.h), rho, pitch, &below)
                 .filter(|d| (d.r - c.r).hypot(d.h - c.h) < 0.5 * rho && d.rho > 0.6 * rho && d.rho < 1.25 * rho)
         });
+        // Where the partition does not show near its prediction but the lumen does, it is looked
+        // for at other heights within the lumen's middle half, a search band's height apart:
+        // predicted from guesses (the lumen's centroid and the partition's place relative to it at
+        // the last steps that showed it), the prediction drifts as the scalae's shares of the duct
+        // change, and a partition beyond the search band is never found again.
+        if fine.is_err()
+            && cal.is_some()
+            && let Some(d) = &lumen
+        {
+            let step = 0.1 * span + vmax;
+            let k = (0.5 * d.rho / step).floor() as i32;
+            let mid_h = 0.5 * (pl.h + pg.h);
+            let best = (-k..=k)
+                .map(|j| d.h + j as f64 * step - mid_h)
+                .filter_map(|dh| look(Edge { h: pl.h + dh, ..pl }, Edge { h: pg.h + dh, ..pg }).ok())
+                .filter(|(l, g, c)| *c >= 0.3 && (0.5 * (l.h + g.h) - d.h).abs() <= 0.5 * d.rho)
+                .max_by(|a, b| a.2.total_cmp(&b.2));
+            if let Some(b) = best {
+                fine = Ok(b);
+            }
+        }
         let found = match (fine, lumen, cal) {
             (Ok((l, g, conf)), _, _) => {
                 if let Some(d) = &lumen {
