@@ -202,20 +202,6 @@ pub(super) fn fraction_area(img: &Img, r: &Region, side: f64, lv: &Levels, band:
     // scala tympani 3–8 points high.
     let modiolar_reach = (vox3 as f64).max(6.0 * blur.unwrap_or(0.0));
     let on_bone_edge = chamfer(w, h, |k| mask[at(k)] && lined[k].map_or(4 * d_bone[k] <= 7 * vox3, |r| r == Ref::Bone));
-    // A pixel no ray reached within a voxel of one whose ray met soft tissue, on the ligament's
-    // half of the partition, counts against soft tissue: where the spiral ligament thins toward
-    // its ends on the bony roof and floor, bone lies within reach of the edge there and such
-    // pixels counted against bone, each ligament pixel among them as 0.7 lumen (the family's
-    // members 2 and 6, ligament 2–3 voxels thick: SV signed median +4.9/+2.1 → +1.4/+0.6 %;
-    // the fourteen members at their own voxels, SV/ST median summed 24.6/17.1 → 20.7/13.9
-    // points; members 0–11 at 150 µm SV/ST 84/81 → 83/72, at 200 µm 120/107 → 113/94, at 80 µm
-    // 39/27 → 40/22: members 0 and 1 lower there, whose soft tissue reads low).
-    let ray_tissue = |i: usize| {
-        let (a, b) = (i % n, i / n);
-        let inside = a >= reach.a0 && a < reach.a1 && b >= reach.b0 && b < reach.b1;
-        inside && matches!(by_ray[(b - reach.b0) * w + a - reach.a0], Some(Ref::Tissue | Ref::Mixed(..)))
-    };
-    let by_tissue = near(n, reach, erode, ray_tissue);
     // A pixel beyond the crest of a bony wall, seen from the nearest edge pixel of the lumen,
     // holds no lumen (see [`past_crest`]).
     let edge_of = nearest_edge(w, h, band + erode, |k| mask[at(k)], |k| k);
@@ -244,9 +230,6 @@ pub(super) fn fraction_area(img: &Img, r: &Region, side: f64, lv: &Levels, band:
         }
         if let Some(r) = by_ray[k] {
             return r;
-        }
-        if by_tissue[i] && along > 0.5 * part.width() {
-            return Ref::Tissue;
         }
         let x = img.sm[i];
         let tissue = d_lumen[k] >= vox3 && x >= tissue_band.0 && x <= tissue_band.1;

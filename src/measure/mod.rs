@@ -40,9 +40,7 @@
 //!    tissue − lumen), which holds however thin the layer: a ligament tapering to nothing is
 //!    neither half fluid nor cut off. From scala vestibuli, rays across the thin bony shelf are
 //!    fitted the same way with the shelf's far side and the lumen beyond it in the model (the
-//!    spiral limbus on the shelf). A pixel no ray reached within a voxel of one whose ray met soft
-//!    tissue, on the ligament's half of the partition, counts against soft tissue (the
-//!    ligament's thin ends on the roof and floor). Pixels nearer to another lumen region are left to it.
+//!    spiral limbus on the shelf). Pixels nearer to another lumen region are left to it.
 //! 5. Wall ([`wall`]): along the partition direction outward, from where bone starts to where it
 //!    ends; each row reports the median over ±0.5 mm of s (`walls_along`, `median_along`).
 //!    Width and wall under one voxel are flagged `below_resolution` and left blank.
