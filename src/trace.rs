@@ -23,6 +23,10 @@
 //! seeds on such a narrow membrane (under [`NARROW_MM`]), a lamina tip not found near its
 //! prediction is looked for farther in, since the membrane widens toward the apex.
 //!
+//! Where the partition does not show near its prediction but the duct's dark blob does, it is
+//! looked for again at other heights within the blob's middle half: a prediction made from
+//! guesses drifts, and a partition outside the search band would never be found again.
+//!
 //! Where the partition does not show — clinical CT, where the bony shelf and the membrane are far
 //! thinner than a voxel, or a stretch where the steps above fail — the lumen is followed instead:
 //! the duct's dark blob in the cut (its centroid and size, [`duct`]), with the lamina and ligament
