@@ -316,6 +316,14 @@ fn lamina_tip(r: f64, lig: f64, q: f64, cal_r: f64) -> Option<f64> {
     Some(r + (lig - r) * (2.0 * share - 1.0))
 }
 
+/// How far back (degrees) the partition's place relative to the lumen is taken from, for the
+/// guesses: the last nine steps that showed both within this, or the last three whatever their
+/// angle where fewer did. Where the lumen's blob was not found for a stretch, the nine went back a
+/// turn or more, to a duct of another shape: family member 8 drawn at isotropic 35 µm found both
+/// again at 610–620° after a stretch without the blob, its guesses from 630° on took the offsets of the
+/// basal turn and lay 4–10 voxels off to the apex (p95 8.6 voxels; now 1.3).
+const CAL_WINDOW_DEG: f64 = 90.0;
+
 fn offsets(d: &Duct, l: Edge, g: Edge) -> Offsets {
     [(l.r - d.r) / d.rho, (l.h - d.h) / d.rho, (g.r - d.r) / d.rho, (g.h - d.h) / d.rho, g.r]
 }
@@ -424,10 +432,11 @@ pub fn trace(stack: &Stack, seeds: &[Landmark], step_deg: f64) -> Result<Trace> 
         (c, rho) = ((d.r, d.h), (1.5 * rho).min(DUCT_RHO_MM));
     }
     let first = guess.and_then(|d| duct(stack, &frame, start, (d.r, d.h), d.rho, pitch, &[]));
-    // (the offsets found wherever the partition showed, the seeds' first; the median of the last
-    // nine is used, so one step misread in the noise does not move the guesses that follow)
-    let mut cals: Vec<Offsets> = first.map(|d| offsets(&d, l0, g0)).into_iter().collect();
-    let mut cal: Option<Offsets> = cals.first().copied();
+    // (the offsets found wherever the partition showed, with their angles, the seeds' first; the
+    // median of the last nine within [`CAL_WINDOW_DEG`] is used, so one step misread in the noise
+    // does not move the guesses that follow)
+    let mut cals: Vec<(f64, Offsets)> = first.map(|d| (start, offsets(&d, l0, g0))).into_iter().collect();
+    let mut cal: Option<Offsets> = cals.first().map(|c| c.1);
     // (how far the seeds' ligament lies past the lumen's outer edge, mm: see the guesses below)
     let past_edge =
         first.and_then(|d| outer_edge(stack, &frame, &slab(&lam, &lig, start, step_deg, vmax), d.r, 0.5 * (l0.h + g0.h), d.rho, vmax, pitch)).map(|e| g0.r - e);
@@ -537,8 +546,11 @@ pub fn trace(stack: &Stack, seeds: &[Landmark], step_deg: f64) -> Result<Trace> 
             (Ok((l, g, conf)), _, _) => {
                 if let Some(d) = &lumen {
                     let o = offsets(d, l, g);
-                    cals.push(o);
-                    let tail = &cals[cals.len().saturating_sub(9)..];
+                    cals.push((angle, o));
+                    let mut tail: Vec<&Offsets> = cals[cals.len().saturating_sub(9)..].iter().filter(|c| c.0 >= angle - CAL_WINDOW_DEG).map(|c| &c.1).collect();
+                    if tail.len() < 3 {
+                        tail = cals[cals.len().saturating_sub(3)..].iter().map(|c| &c.1).collect();
+                    }
                     cal = Some(std::array::from_fn(|k| median(&mut tail.iter().map(|c| c[k]).collect::<Vec<_>>())));
                 }
                 Ok((l, g, conf))

@@ -136,9 +136,10 @@ fn clinical_resolution_300um_follows_the_lumen() {
 /// drifted up to 7.5 voxels in height and the partition, beyond the search band, was never found
 /// again (0.96/7.26 voxels median/p95); since a step that misses it looks again at other heights
 /// within the lumen's middle half (`trace::trace`), 0.47/1.48 — and member 12 (45 µm, a narrow
-/// membrane) 0.16/0.72 → 0.15/0.63, member 9 (65 µm) unchanged at 0.56/1.16. Known gap, not held
-/// here: member 8 drawn at isotropic 35 µm (the family draws it at 35 × 35 × 50) loses the
-/// partition at 620° and its guesses stay 4–10 voxels off to the apex (p95 8.8).
+/// membrane) 0.16/0.72 → 0.15/0.63, member 9 (65 µm) unchanged at 0.56/1.16. Member 8 drawn at
+/// isotropic 35 µm (the family draws it at 35 × 35 × 50) lost the partition at 620° and its
+/// guesses, placed by the partition's offsets from a turn earlier, stayed 4–10 voxels off to the
+/// apex (0.52/8.64); with the offsets from the last 90° (`trace::CAL_WINDOW_DEG`), 0.39/1.32.
 #[test]
 fn proposals_follow_the_true_edges() {
     let only: Option<u64> = std::env::var("DL_ONLY").ok().and_then(|x| x.parse().ok());
@@ -153,6 +154,7 @@ fn proposals_follow_the_true_edges() {
         (13, [40.0; 3]),
         (12, [45.0; 3]),
         (9, [65.0; 3]),
+        (8, [35.0; 3]),
     ] {
         cases.push((Some(n), PhantomSpec { truth_step_deg: 30.0, ..PhantomSpec::variant(n, v) }));
     }
