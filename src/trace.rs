@@ -318,10 +318,10 @@ fn lamina_tip(r: f64, lig: f64, q: f64, cal_r: f64) -> Option<f64> {
 
 /// How far back (degrees) the partition's place relative to the lumen is taken from, for the
 /// guesses: the last nine steps that showed both within this, or the last three whatever their
-/// angle where fewer did. Where the lumen's blob was not found for a stretch, the nine went back a
-/// turn or more, to a duct of another shape: family member 8 drawn at isotropic 35 µm found both
-/// again at 610–620° after a stretch without the blob, its guesses from 630° on took the offsets of the
-/// basal turn and lay 4–10 voxels off to the apex (p95 8.6 voxels; now 1.3).
+/// angle where fewer did. Where the lumen's blob was not found for a stretch, the last nine went
+/// back far, to a duct of another shape: family member 8 drawn at isotropic 35 µm found both again
+/// at 610–620° after such a stretch, and its guesses from 630° on lay 4–10 voxels off to the apex
+/// (p95 8.6 voxels; now 1.3).
 const CAL_WINDOW_DEG: f64 = 90.0;
 
 fn offsets(d: &Duct, l: Edge, g: Edge) -> Offsets {

@@ -138,8 +138,9 @@ fn clinical_resolution_300um_follows_the_lumen() {
 /// within the lumen's middle half (`trace::trace`), 0.47/1.48 — and member 12 (45 µm, a narrow
 /// membrane) 0.16/0.72 → 0.15/0.63, member 9 (65 µm) unchanged at 0.56/1.16. Member 8 drawn at
 /// isotropic 35 µm (the family draws it at 35 × 35 × 50) lost the partition at 620° and its
-/// guesses, placed by the partition's offsets from a turn earlier, stayed 4–10 voxels off to the
-/// apex (0.52/8.64); with the offsets from the last 90° (`trace::CAL_WINDOW_DEG`), 0.39/1.32.
+/// guesses, placed by the partition's offsets from steps long before (the lumen's blob had not
+/// been found for a stretch), stayed 4–10 voxels off to the apex (0.52/8.64); with the offsets
+/// from the last 90° only (`trace::CAL_WINDOW_DEG`), 0.39/1.32.
 #[test]
 fn proposals_follow_the_true_edges() {
     let only: Option<u64> = std::env::var("DL_ONLY").ok().and_then(|x| x.parse().ok());
