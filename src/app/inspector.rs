@@ -37,6 +37,7 @@ impl Inspector {
         });
         egui::Grid::new("section-values").num_columns(2).striped(true).show(ui, |ui| {
             let f = |x: Option<f64>, u: &str| x.map(|v| format!("{v:.4} {u}")).unwrap_or_else(|| "—".into());
+            let bare = |x: Option<f64>| x.map_or("—".into(), |v| format!("{v:.4}"));
             for (k, v) in [
                 ("s", f(Some(row.s_mm), "mm")),
                 ("angle", f(Some(row.angle_deg), "°")),
@@ -47,7 +48,7 @@ impl Inspector {
                     "this section alone, SV / ST",
                     match (row.sv.own_area, row.st.own_area) {
                         (None, None) => "—".into(),
-                        (a, b) => format!("{} / {} mm²", a.map_or("—".into(), |v| format!("{v:.4}")), b.map_or("—".into(), |v| format!("{v:.4}"))),
+                        (a, b) => format!("{} / {} mm²", bare(a), bare(b)),
                     },
                 ),
                 ("partition width", f(row.partition_width_mm, "mm")),
