@@ -25,7 +25,7 @@ DUCTLINE = ROOT / "target" / "release" / "ductline"
 
 # name, what it varies, the script's options
 VARIANTS = [
-    ("plain80", "as committed (tests/fixtures/outside)", ["--voxel-um", "80"]),
+    ("plain80", "as committed (tests/fixtures/outside; a left ear)", ["--voxel-um", "80"]),
     ("air80", "air-filled", ["--voxel-um", "80", "--air"]),
     ("cnr6", "contrast-to-noise 6", ["--voxel-um", "80", "--cnr", "6"]),
     ("solid80", "a solid bony capsule", ["--voxel-um", "80", "--wall-mm", "0"]),
@@ -33,8 +33,8 @@ VARIANTS = [
     ("thinlig50", "50 µm, ligament 0.05 mm", ["--voxel-um", "50", "--ligament-mm", "0.05"]),
     ("thicklig50", "50 µm, ligament 0.3 mm", ["--voxel-um", "50", "--ligament-mm", "0.3"]),
     ("blur15", "50 µm, blur 1.5 voxels", ["--voxel-um", "50", "--blur", "1.5"]),
-    ("aniso", "40 × 40 × 80 µm, left ear", ["--voxel-um", "40", "--z-um", "80", "--mirror"]),
-    ("airtilt", "60 µm, air, left ear tilted 40°/20°, CNR 8", ["--voxel-um", "60", "--air", "--tilt-deg", "40,20", "--mirror", "--cnr", "8"]),
+    ("aniso", "40 × 40 × 80 µm, mirrored (a right ear)", ["--voxel-um", "40", "--z-um", "80", "--mirror"]),
+    ("airtilt", "60 µm, air, right ear tilted 40°/20°, CNR 8", ["--voxel-um", "60", "--air", "--tilt-deg", "40,20", "--mirror", "--cnr", "8"]),
     ("v150", "150 µm", ["--voxel-um", "150"]),
     ("v200", "200 µm", ["--voxel-um", "200"]),
     ("v300", "300 µm", ["--voxel-um", "300"]),

@@ -142,14 +142,15 @@ fn a_phantom_built_elsewhere() {
 }
 
 /// The same script's cochlea in another pose and another labyrinth (`outside_air`): air-filled
-/// (air at 0.02 of full scale, far darker than the soft tissue at 0.42), turned as a left ear,
-/// the modiolar axis tilted 30° and −20°, contrast-to-noise 8, 80 µm. Held as for the plain one,
-/// from the landmarks and from seven points: 95 % sound or more (100 % both), SV+ST within 5 %
-/// median (2.0 %, traced 1.9 %), SV and ST within 9 % (2.6 and 2.3 %, traced 4.4 and 3.1 %; SV
-/// low by the bare shelf, as above), the length within 0.5 % from the landmarks (0.00 %) and 1 %
-/// traced (−0.22 %), the trace to 95 % of the depth or more (890° of 900°).
+/// (air at 0.02 of full scale, far darker than the soft tissue at 0.42), mirrored (a right ear;
+/// the committed one turns as a left ear), the modiolar axis tilted 30° and −20°,
+/// contrast-to-noise 8, 80 µm. Held as for the plain one, from the landmarks and from seven
+/// points: 95 % sound or more (100 % both), SV+ST within 5 % median (2.0 %, traced 1.9 %), SV and
+/// ST within 9 % (2.6 and 2.3 %, traced 4.4 and 3.1 %; SV low by the bare shelf, as above), the
+/// length within 0.5 % from the landmarks (0.00 %) and 1 % traced (−0.22 %), the trace to 95 % of
+/// the depth or more (890° of 900°).
 #[test]
-fn an_air_filled_left_ear_tilted() {
+fn an_air_filled_right_ear_tilted() {
     let (dir, stack, t) = open("outside_air", 0.08);
     let ms = MeasureSettings { step_mm: 0.25, ..Default::default() };
     let landmarks = ductline::landmarks::read_csv(&dir.join("landmarks.csv"), Some(&stack)).unwrap();
