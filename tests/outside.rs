@@ -59,6 +59,17 @@ fn open(name: &str, voxel_mm: f64) -> (std::path::PathBuf, ductline::stack::Stac
     (dir, stack, t)
 }
 
+/// A trace of the fixture's seven points (seeds.csv) at 10° steps, printed: the angle it stopped
+/// at, and the seeds with the proposals as one landmark list, as `measure` reads them.
+fn trace_seeds(dir: &Path, stack: &ductline::stack::Stack, t: &Truth) -> (f64, Vec<ductline::landmarks::Landmark>) {
+    let seeds = ductline::landmarks::read_csv(&dir.join("seeds.csv"), Some(stack)).unwrap();
+    assert_eq!(seeds.len(), 7);
+    let traced = ductline::trace::trace(stack, &seeds, 10.0).unwrap();
+    eprintln!("trace: to {:.0}° of {:.0}°: {}", traced.stopped_deg, t.depth_deg, traced.reason);
+    let lm = ductline::landmarks::parse_csv(&ductline::trace::to_csv(&seeds, &traced), Path::new("traced.csv"), Some(stack)).unwrap();
+    (traced.stopped_deg, lm)
+}
+
 /// The whole pipeline on `lm` with the settings `ms`.
 fn run(stack: &ductline::stack::Stack, lm: &[ductline::landmarks::Landmark], ms: &MeasureSettings) -> ductline::pipeline::Outcome {
     let gw = Greenwood::preset("human").unwrap();
@@ -126,12 +137,8 @@ fn a_phantom_built_elsewhere() {
     let (sound, sv_bare, st_bare, _) = score("from the landmarks, bare shelf", &told.rows, &t);
     assert!(sound >= 0.95 && sv_bare <= 4.5 && sv_bare < sv && (st_bare - st).abs() < 0.5, "bare shelf: SV {sv_bare} %, ST {st_bare} %");
 
-    let seeds = ductline::landmarks::read_csv(&dir.join("seeds.csv"), Some(&stack)).unwrap();
-    assert_eq!(seeds.len(), 7);
-    let traced = ductline::trace::trace(&stack, &seeds, 10.0).unwrap();
-    eprintln!("trace: to {:.0}° of {:.0}°: {}", traced.stopped_deg, t.depth_deg, traced.reason);
-    assert!(traced.stopped_deg >= 0.95 * t.depth_deg, "trace reached {}°", traced.stopped_deg);
-    let lm = ductline::landmarks::parse_csv(&ductline::trace::to_csv(&seeds, &traced), Path::new("traced.csv"), Some(&stack)).unwrap();
+    let (stopped, lm) = trace_seeds(&dir, &stack, &t);
+    assert!(stopped >= 0.95 * t.depth_deg, "trace reached {stopped}°");
     let out = run(&lm, &ms);
     let length = out.centreline.length;
     let (sound, sv, st, tot) = score("traced", &out.rows, &t);
@@ -154,11 +161,8 @@ fn an_air_filled_right_ear_tilted() {
     let (dir, stack, t) = open("outside_air", 0.08);
     let ms = MeasureSettings { step_mm: 0.25, ..Default::default() };
     let landmarks = ductline::landmarks::read_csv(&dir.join("landmarks.csv"), Some(&stack)).unwrap();
-    let seeds = ductline::landmarks::read_csv(&dir.join("seeds.csv"), Some(&stack)).unwrap();
-    let traced = ductline::trace::trace(&stack, &seeds, 10.0).unwrap();
-    eprintln!("trace: to {:.0}° of {:.0}°: {}", traced.stopped_deg, t.depth_deg, traced.reason);
-    assert!(traced.stopped_deg >= 0.95 * t.depth_deg, "trace reached {}°", traced.stopped_deg);
-    let proposed = ductline::landmarks::parse_csv(&ductline::trace::to_csv(&seeds, &traced), Path::new("traced.csv"), Some(&stack)).unwrap();
+    let (stopped, proposed) = trace_seeds(&dir, &stack, &t);
+    assert!(stopped >= 0.95 * t.depth_deg, "trace reached {stopped}°");
     for (label, lm, tol) in [("from the landmarks", &landmarks, 0.005), ("traced", &proposed, 0.01)] {
         let out = run(&stack, lm, &ms);
         let length = out.centreline.length;
@@ -190,12 +194,9 @@ fn an_air_filled_right_ear_tilted() {
 #[test]
 fn a_trace_at_clinical_resolution_stops_at_the_apex() {
     let (dir, stack, t) = open("outside_200um", 0.2);
-    let seeds = ductline::landmarks::read_csv(&dir.join("seeds.csv"), Some(&stack)).unwrap();
-    let traced = ductline::trace::trace(&stack, &seeds, 10.0).unwrap();
-    eprintln!("trace: to {:.0}° of {:.0}°: {}", traced.stopped_deg, t.depth_deg, traced.reason);
-    let depth = traced.stopped_deg / t.depth_deg;
-    assert!((0.9..=1.05).contains(&depth), "trace reached {:.0}° of {:.0}°", traced.stopped_deg, t.depth_deg);
-    let lm = ductline::landmarks::parse_csv(&ductline::trace::to_csv(&seeds, &traced), Path::new("traced.csv"), Some(&stack)).unwrap();
+    let (stopped, lm) = trace_seeds(&dir, &stack, &t);
+    let depth = stopped / t.depth_deg;
+    assert!((0.9..=1.05).contains(&depth), "trace reached {stopped:.0}° of {:.0}°", t.depth_deg);
     let ms = MeasureSettings { step_mm: 0.25, ..Default::default() };
     let out = run(&stack, &lm, &ms);
     let length = out.centreline.length;
