@@ -36,21 +36,31 @@ pub(super) fn near(n: usize, rect: Rect, k: usize, set: impl Fn(usize) -> bool) 
 }
 
 /// Partial-volume area (mm²) of a grown region and its edge band; also the per-pixel lumen
-/// fraction field (0 outside) and the fraction-weighted centroid. Region pixels at least `erode`
-/// pixels inside count 1; the others, and the band pixels (on the region's side, within `band`
-/// pixels of it and no nearer to another dark pixel there), count (ref − v)/(ref − lumen), with
-/// ref the level of the material beyond the lumen there: what the ray from the nearest edge pixel
-/// met first (soft tissue or bone; `levels::plateaus`), else bone where bone lies within 1.75
-/// voxels of the edge. Past a soft-tissue plateau a pixel holds no lumen. Where the nearest edge
-/// pixel's ray fitted a soft-tissue layer (`levels::Layer`), the pixels that ray passes count
-/// (tissue + (bone − tissue)·β − v)/(tissue − lumen), β = Φ((t − bone edge)/σ) the blurred bone
-/// share at their distance t along it: exact for the blurred three-material model whatever the
-/// layer's thickness. No pixel over four blur widths from the region holds lumen, nor one past
-/// the crest of a bony wall thinner than that ([`past_crest`]). The fractions
-/// are not clipped, so noise averages out instead of biasing the sum. `part` is the section's
+/// fraction field (0 outside) and the fraction-weighted centroid. Region pixels at least `pure`
+/// pixels inside (the coarsest voxel side) count 1; the others, and the band pixels (on the
+/// region's side, within `band` pixels of it and no nearer to another dark pixel there), count
+/// (ref − v)/(ref − lumen), with ref the level of the material beyond the lumen there: what the
+/// ray from the nearest edge pixel met first (soft tissue or bone; `levels::plateaus`, its rays
+/// `pure` pixels a voxel), else bone where bone lies within 1.75 voxels of the edge (`erode`
+/// pixels a voxel: the finest side). Past a soft-tissue plateau a pixel holds no lumen. Where the
+/// nearest edge pixel's ray fitted a soft-tissue layer (`levels::Layer`), the pixels that ray
+/// passes count (tissue + (bone − tissue)·β − v)/(tissue − lumen), β = Φ((t − bone edge)/σ) the
+/// blurred bone share at their distance t along it: exact for the blurred three-material model
+/// whatever the layer's thickness. No pixel over four blur widths from the region holds lumen,
+/// nor one past the crest of a bony wall thinner than that ([`past_crest`]). The fractions are
+/// not clipped, so noise averages out instead of biasing the sum. `part` is the section's
 /// partition: next to it the material beyond is known from the anatomy where no ray says.
 #[allow(clippy::too_many_arguments)]
-pub(super) fn fraction_area(img: &Img, r: &Region, side: f64, lv: &Levels, band: usize, erode: usize, part: &Partition) -> (f64, Vec<f32>, [f64; 2]) {
+pub(super) fn fraction_area(
+    img: &Img,
+    r: &Region,
+    side: f64,
+    lv: &Levels,
+    band: usize,
+    erode: usize,
+    pure: usize,
+    part: &Partition,
+) -> (f64, Vec<f32>, [f64; 2]) {
     let (n, mask) = (img.n, &r.mask);
     let thr = lv.lumen_cut();
     let k = band as isize;
@@ -78,7 +88,7 @@ pub(super) fn fraction_area(img: &Img, r: &Region, side: f64, lv: &Levels, band:
         (dr, dother)
     };
     let mut interior = vec![false; n * n];
-    r.each_interior(n, erode, |i| interior[i] = true);
+    r.each_interior(n, pure, |i| interior[i] = true);
     // bone: a smoothed value a fifth of the way from soft tissue to bone, so that a thin, blurred
     // septum still counts as bone
     let two_tissues = lv.tissue < lv.bone;
@@ -133,7 +143,7 @@ pub(super) fn fraction_area(img: &Img, r: &Region, side: f64, lv: &Levels, band:
             inside.then(|| (y as usize - reach.b0) * w + x as usize - reach.a0)
         };
         let plateaus;
-        (plateaus, blur) = super::levels::plateaus(img, &[mask], r.bounds, lv, erode, part, side);
+        (plateaus, blur) = super::levels::plateaus(img, &[mask], r.bounds, lv, pure, part, side);
         for p in plateaus.iter().filter(|p| p.layer.is_none()) {
             let (a, b) = ((p.pixel % n) as f64, (p.pixel / n) as f64);
             let kind = if p.value < lv.bone_cut() { Ref::Tissue } else { Ref::Bone };
