@@ -267,6 +267,18 @@ pub fn measure(
     progress.start(2 * geoms.len() as u64);
     let pitch = s.pitch_mm.unwrap_or(f64::INFINITY).min(0.5 * vox.min());
     let vmax = vox.max();
+    // Two voxels in pixels. `pure`, the coarsest side: a region pixel that far inside is lumen
+    // whatever the blur's direction, and the rays that read the material beyond an edge
+    // (`levels::plateaus`) run and look that many voxels, to cross the blurred edge in any
+    // direction; the scalae grown for the lateral wall's profile cut their necks at it too.
+    // `erode`, the finest side: the reach of the rules that tell a section's regions and the
+    // areas' references apart. Where the coarsest side set that reach too, a thin spiral limbus or
+    // ligament within it of bone passed for a bony edge and counted as lumen: the family's
+    // members at 1:2 voxels read SV+ST signed medians +2.3 (member 0 at 50 × 50 × 100 µm), +4.1
+    // (member 4) and +4.3 % (member 6 at 40 × 40 × 80 µm); now −0.6, +1.9 and +0.3 %, near the
+    // same members' cubic-voxel readings (+0.2, +2.4 and +0.0 % at 50, 50 and 40 µm; every 0.1 mm).
+    let pure = (vmax / pitch).ceil() as usize;
+    let erode = (vox.min() / pitch).ceil() as usize;
     let ov_of = |g: &SectionGeom| {
         overrides.iter().filter(|o| (o.s_mm - g.s).abs() <= 0.5 * s.step_mm).min_by(|a, b| (a.s_mm - g.s).abs().total_cmp(&(b.s_mm - g.s).abs()))
     };
@@ -317,10 +329,9 @@ pub fn measure(
     let profile = |k: usize, cut: f32| -> Option<(Vec<f64>, usize)> {
         let (img, g, part) = (&first[k], &geoms[k], &parts[k]);
         let lv = auto[k].filter(|l| l.lumen < l.bone)?;
-        let erode = (vmax / pitch).ceil() as usize;
         let found: Vec<regions::Region> = [1.0f64, -1.0]
             .into_iter()
-            .filter_map(|side| regions::scala(img, &part.line, part.mid, side, cut, vmax, g.width(), erode, None))
+            .filter_map(|side| regions::scala(img, &part.line, part.mid, side, cut, vmax, g.width(), pure, None))
             .map(|(_, r)| r)
             .collect();
         Some(levels::wall_profile(img, &found, &lv, g.to_plane(g.ligament), part.dir, (0.3f64).max(3.0 * vmax)))
@@ -421,7 +432,7 @@ pub fn measure(
             // the lumen level is re-taken from the section's own scalae (levels found, not given)
             // where it lies within the duct's range
             let limit = given.is_none().then(|| duct.map_or(f32::INFINITY, |d| d.1));
-            let mut row = section_row(stack, cl, g, part, s, pitch, vox.min(), vmax, ov, gw, img, given.or(auto), limit);
+            let mut row = section_row(stack, cl, g, part, s, pitch, vmax, (erode, pure), ov, gw, img, given.or(auto), limit);
             if cl.extrapolated(g.theta) {
                 row.flags.push(Flag::Extrapolated);
             }
@@ -638,8 +649,8 @@ fn section_row(
     part: &Partition,
     s: &MeasureSettings,
     pitch: f64,
-    vmin: f64,
     vmax: f64,
+    (erode, pure): (usize, usize),
     ov: Option<&Override>,
     gw: &Greenwood,
     mut img: Img,
@@ -687,17 +698,6 @@ fn section_row(
     // it (the family's member 9 at 65 µm, blur 1.24 voxels: SV/ST signed median −3.1/−3.5 →
     // +1.0/+0.1 %; member 1, blur 1.14: −3.9/−3.2 → −1.9/−1.7 %; the others within 0.4 %)
     let band = (BAND_VOX * vmax / pitch).ceil() as usize;
-    // Two voxels in pixels. `pure`, the coarsest side: a region pixel that far inside is lumen
-    // whatever the blur's direction, and the rays that read the material beyond an edge
-    // (`levels::plateaus`) run and look that many voxels, to cross the blurred edge in any
-    // direction. `erode`, the finest side: the reach of the rules that tell the regions and the
-    // areas' references apart. Where the coarsest side set that reach too, a thin spiral limbus or
-    // ligament within it of bone passed for a bony edge and counted as lumen: the family's
-    // members at 1:2 voxels read SV+ST signed medians +2.3 (member 0 at 50 × 50 × 100 µm), +4.1
-    // (member 4) and +4.3 % (member 6 at 40 × 40 × 80 µm); now −0.6, +1.9 and +0.3 %, near the
-    // same members' cubic-voxel readings (+0.2, +2.4 and +0.0 % at 50, 50 and 40 µm; every 0.1 mm).
-    let pure = (vmax / pitch).ceil() as usize;
-    let erode = (vmin / pitch).ceil() as usize;
     let mut deep = false;
     loop {
         row.half_mm = half;
