@@ -267,6 +267,7 @@ fn family_sweep() {
     eprintln!("member voxel_um        cnr  air  sound   SV med/p95 %    ST med/p95 %   width µm  wall µm");
     let mut worst_sv: f64 = 0.0;
     let mut worst_st: f64 = 0.0;
+    let mut sum_sv = 0.0;
     for m in &members {
         let (spec, rows, truth) = run_member(m.n, m.voxel);
         let tmax = spec.theta_max().to_degrees();
@@ -317,6 +318,7 @@ fn family_sweep() {
         let vox = m.voxel.iter().fold(0.0f64, |a, &b| a.max(b)) / 1000.0;
         assert!(lm <= 0.38 * vox, "member {}: wall median error {:.1} µm", m.n, 1000.0 * lm);
         worst_sv = worst_sv.max(svm);
+        sum_sv += svm;
         worst_st = worst_st.max(stm);
     }
     // the state reached (see the module note), with room for other seeds: every member's median
@@ -325,4 +327,10 @@ fn family_sweep() {
     // wider edge band the worst from 5.2/3.8 to 4.8/3.3 %)
     assert!(worst_st < 0.04, "worst ST median error {:.1} %", 100.0 * worst_st);
     assert!(worst_sv < 0.06, "worst SV median error {:.1} %", 100.0 * worst_sv);
+    // the family's mean SV median error: each section's soft-tissue level the median of the
+    // lateral-wall fits within ±4 mm along the duct (`measure::TISSUE_ALONG_MM`); with the
+    // nearest fit alone a stretch's noise carried its sections, and the mean read 1.71 % (now 1.61)
+    let mean_sv = sum_sv / members.len() as f64;
+    eprintln!("family mean SV median error {:.3} %", 100.0 * mean_sv);
+    assert!(mean_sv < 0.0166, "family mean SV median error {:.2} %", 100.0 * mean_sv);
 }
