@@ -392,7 +392,10 @@ pub fn measure(
     let layered: Vec<(usize, levels::Wall)> = fitted.iter().copied().filter(|f| matches!(f.1, levels::Wall::Layer(_))).collect();
     let fitted = if 3 * layered.len() >= fitted.len() && !layered.is_empty() { layered } else { fitted };
     // Each layer's level is the median of the layers fitted within [`TISSUE_ALONG_MM`] of it
-    // along the duct (a bare wall stays bare).
+    // along the duct (a bare wall stays bare). Not [`median_along`], whose stretch narrows to as
+    // many values on either side so that a wall or an area that trends along s keeps its trend:
+    // the ligament's level does not trend, and near the duct's ends that stretch would shrink to
+    // the one fit whose noise this median is there to take out.
     let fitted: Vec<(usize, levels::Wall)> = fitted
         .iter()
         .map(|&(i, wall)| {
