@@ -80,10 +80,13 @@ fn measure_traced(spec: &PhantomSpec) -> (phantom::Phantom, ductline::pipeline::
 /// as does the family's (its shelf spans 45–60 % of the duct at the base, 25–35 % at the apex).
 /// Kept at the seeds' share, the tip drifted 0.16–0.33 mm outward over the trace's last fifth
 /// (median; now 0.02–0.17 mm), and the midlines of the twelve members came out +1.9 to +4.8 %
-/// long and member 9, its ligament guessed 0.1–0.2 mm out, +6.7 % (3.6 % on average). Now +0.7
-/// to +3.4 % and +5.7 % (1.8 % on average). The midline traced from seven points is held within
-/// 6 % of the phantom's length on every member and 2 % on average (the real-CT check
-/// asks for 5 %).
+/// long and member 9, its ligament guessed 0.1–0.2 mm out, +6.7 % (3.6 % on average); then +0.7
+/// to +3.4 % and +5.7 % (1.8 % on average). The ligament guessed on the lumen's outer edge sat
+/// up to 0.16 mm out by the second turn, the edge read half the way from a lumen level that the
+/// far wall's blur lifts as the duct narrows; read from the lumen's share of the wall's level at
+/// the seeds (`outer_edge` in src/trace.rs), now +0.6 to +3.1 % and +4.8 % (1.6 % on average).
+/// The midline traced from seven points is held within 5 % of the phantom's length on every
+/// member (the real-CT check) and 1.75 % on average; the old reading fails both.
 #[test]
 fn clinical_resolution_200um_midline_length() {
     let mut errs = vec![];
@@ -92,12 +95,12 @@ fn clinical_resolution_200um_midline_length() {
         let (_, _, (len, want, at, _)) = measure_traced(&spec);
         let e = 100.0 * (len / want - 1.0);
         eprintln!("member {n} at 200 µm: traced midline to {at:.0}°: {len:.3} mm, phantom {want:.3} mm ({e:+.2} %)");
-        assert!(e.abs() <= 6.0, "member {n}: traced length {len:.3} mm vs {want:.3} mm ({e:+.2} %)");
+        assert!(e.abs() <= 5.0, "member {n}: traced length {len:.3} mm vs {want:.3} mm ({e:+.2} %)");
         errs.push(e.abs());
     }
     let mean = errs.iter().sum::<f64>() / errs.len() as f64;
     eprintln!("mean |error| {mean:.2} %");
-    assert!(mean <= 2.0, "traced lengths at 200 µm: mean |error| {mean:.2} %");
+    assert!(mean <= 1.75, "traced lengths at 200 µm: mean |error| {mean:.2} %");
 }
 
 /// At 300 µm (clinical CT) the duct is two to six voxels across and every point is a guess from
@@ -105,8 +108,10 @@ fn clinical_resolution_200um_midline_length() {
 /// stopped at 1–81 % of the depth (three under 10 %). Now one under a voxel does (`MIN_RHO_VOX`
 /// in src/trace.rs): eight of the twelve reach 98 % or more, their midlines +0.4 to +5.4 % long;
 /// members 1 and 6 stop at 63 and 78 % (the partition guessed turning outward), 8 and 9 (blur
-/// 1.3 and 1.24 voxels, 0.37–0.39 mm) lose the lumen at 40 and 12 %. Held: at least eight
-/// members reach 90 % of the depth, and each that does has its midline within 6 %.
+/// 1.3 and 1.24 voxels, 0.37–0.39 mm) lose the lumen at 40 and 12 %. With the outer edge read
+/// from the seeds' lumen share (see `clinical_resolution_200um_midline_length`) the eight read
+/// +1.3 to +3.8 % (member 2 now stops at 92 %). Held: at least eight members reach 90 % of the
+/// depth, and each that does has its midline within 5 % (member 5 read +5.4 % before).
 #[test]
 fn clinical_resolution_300um_follows_the_lumen() {
     let mut reached = 0;
@@ -118,7 +123,7 @@ fn clinical_resolution_300um_follows_the_lumen() {
         eprintln!("member {n} at 300 µm: stopped at {stopped:.0}° of {tmax:.0}°; midline to {at:.0}°: {len:.3} mm, phantom {want:.3} mm ({e:+.2} %)");
         if stopped >= 0.9 * tmax {
             reached += 1;
-            assert!(e.abs() <= 6.0, "member {n} at 300 µm: traced length {len:.3} mm vs {want:.3} mm ({e:+.2} %)");
+            assert!(e.abs() <= 5.0, "member {n} at 300 µm: traced length {len:.3} mm vs {want:.3} mm ({e:+.2} %)");
         }
     }
     assert!(reached >= 8, "{reached} of 12 members traced to 90 % of the depth at 300 µm");
