@@ -396,15 +396,13 @@ pub fn measure(
     // many values on either side so that a wall or an area that trends along s keeps its trend:
     // the ligament's level does not trend, and near the duct's ends that stretch would shrink to
     // the one fit whose noise this median is there to take out.
+    // (each layer's arc length and level, read once)
+    let layers: Vec<(f64, f32)> = fitted.iter().filter_map(|&(i, wall)| if let levels::Wall::Layer(q) = wall { Some((geoms[i].s, q)) } else { None }).collect();
     let fitted: Vec<(usize, levels::Wall)> = fitted
         .iter()
         .map(|&(i, wall)| {
             let levels::Wall::Layer(_) = wall else { return (i, wall) };
-            let mut near: Vec<f32> = fitted
-                .iter()
-                .filter(|f| (geoms[f.0].s - geoms[i].s).abs() <= TISSUE_ALONG_MM)
-                .filter_map(|f| if let levels::Wall::Layer(q) = f.1 { Some(q) } else { None })
-                .collect();
+            let mut near: Vec<f32> = layers.iter().filter(|l| (l.0 - geoms[i].s).abs() <= TISSUE_ALONG_MM).map(|l| l.1).collect();
             (i, levels::Wall::Layer(levels::median_f32(&mut near)))
         })
         .collect();
