@@ -243,8 +243,9 @@ fn duct(stack: &Stack, f: &Frame, angle_deg: f64, c: (f64, f64), rho: f64, pitch
 /// widths across the far wall's blur lifts the darkest value, and half the way from it the
 /// crossing moved out as the duct narrowed (the family at 200 µm: ligament guesses up to 0.16 mm
 /// out by the second turn; member 9's midline +5.7 % long, now +4.8 %, and the twelve members'
-/// mean error 1.8 → 1.6 %). A share, not a level, follows a scanner's slow drift. None where
-/// the profile never rises half way or leaves the stack first.
+/// mean error 1.8 → 1.6 %). A share, not a level, follows a scanner's slow drift; it is used
+/// only where the wall's level is above zero. None where the profile never rises half way or
+/// leaves the stack first.
 #[allow(clippy::too_many_arguments)]
 fn outer_edge(
     stack: &Stack,
@@ -264,7 +265,7 @@ fn outer_edge(
     if top <= prof[m] {
         return None; // a flat profile: no edge (and no 0/0 below)
     }
-    let lumen = lumen_share.map_or(prof[m], |q| (q * top).min(prof[m]));
+    let lumen = lumen_share.filter(|_| top > 0.0).map_or(prof[m], |q| (q * top).min(prof[m]));
     let half = lumen + 0.5 * (top - lumen);
     let i = (m + 1..cut.nr).take_while(|&i| prof[i].is_finite()).find(|&i| prof[i] >= half)?;
     let t = ((half - prof[i - 1]) / (prof[i] - prof[i - 1])).clamp(0.0, 1.0);
@@ -460,7 +461,9 @@ pub fn trace(stack: &Stack, seeds: &[Landmark], step_deg: f64) -> Result<Trace> 
     // the wall's level there: see the guesses below)
     let at_seeds = first.and_then(|d| outer_edge(stack, &frame, &slab(&lam, &lig, start, step_deg, vmax), d.r, 0.5 * (l0.h + g0.h), d.rho, vmax, pitch, None));
     let past_edge = at_seeds.map(|e| g0.r - e.0);
-    let share_at_seeds = at_seeds.map(|e| e.1);
+    // (a share below one: the wall brighter than zero and than the lumen; where the wall's level
+    // is zero or below the ratio says nothing of a gain)
+    let share_at_seeds = at_seeds.map(|e| e.1).filter(|q| q.is_finite() && *q < 1.0);
     let mut ducts: Vec<(Edge, f64)> = first.map(|d| (Edge { angle: start, r: d.r, h: d.h }, d.rho)).into_iter().collect();
     let mut r_min = ducts.first().map_or(f64::INFINITY, |d| d.0.r);
     let mut angle = start;
